@@ -1,0 +1,272 @@
+"""Representations of quantum channels and conversions between them.
+
+Conventions (CONTRACT §2), for a channel Φ on d = 2^n dimensions:
+
+* Choi matrix ``J = Σ_ij |i><j| ⊗ Φ(|i><j|)``: input factor first, output
+  second, ``Tr J = d``; trace preserving ⇔ ``Tr_out J = I_d``. In index
+  form ``J[i*d + a, j*d + b] = <a|Φ(|i><j|)|b>``.
+* Chi matrix: ``Φ(ρ) = Σ_mn χ_mn P_m ρ P_n`` over Pauli strings in the order
+  of :func:`gatescope.conventions.pauli_labels`; ``Tr χ = 1`` when trace
+  preserving. With ``|P>> = Σ_i |i> ⊗ P|i>`` one has ``J = Σ_mn χ_mn
+  |P_m>><<P_n|`` and ``χ_mn = <<P_m|J|P_n>>/d²``.
+* Pauli transfer matrix ``R_ij = Tr(P_i Φ(P_j))/d`` (real for a
+  Hermiticity-preserving map); ``J = (1/d) Σ_ij R_ij P_j^T ⊗ P_i``.
+* Superoperator ``S`` acts on column-stacked matrices:
+  ``vec(Φ(ρ)) = S vec(ρ)`` with ``vec(X)[b*d + a] = X[a, b]``.
+* Kraus operators ``Φ(ρ) = Σ_k K_k ρ K_k†``; ``J = Σ_k |K_k>><<K_k|``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .conventions import kron_all, n_qubits_of, pauli_basis, named_gate, GATE_NAMES
+
+
+def dim_of_choi(choi: np.ndarray) -> int:
+    """d for a d²×d² Choi matrix."""
+    d = int(round(np.sqrt(choi.shape[0])))
+    if d * d != choi.shape[0] or choi.shape[0] != choi.shape[1]:
+        raise ValueError(f"a Choi matrix must be d²×d², got {choi.shape}")
+    return d
+
+
+def operator_vector(op: np.ndarray) -> np.ndarray:
+    """|K>> = Σ_i |i> ⊗ K|i>, i.e. entry (i, a) is K[a, i]."""
+    return np.asarray(op).T.reshape(-1)
+
+
+def choi_from_unitary(u: np.ndarray) -> np.ndarray:
+    """Choi matrix |U>><<U| of ρ ↦ UρU†."""
+    v = operator_vector(u)
+    return np.outer(v, v.conj())
+
+
+def choi_from_kraus(kraus) -> np.ndarray:
+    """Choi matrix Σ_k |K_k>><<K_k| of ρ ↦ Σ_k K_k ρ K_k†."""
+    vs = np.array([operator_vector(k) for k in kraus])
+    return vs.T @ vs.conj()
+
+
+def kraus_from_choi(choi: np.ndarray, tol: float = 1e-12) -> list[np.ndarray]:
+    """Kraus operators from the eigen-decomposition of a positive Choi matrix.
+
+    Eigenvalues below ``tol · λ_max`` are dropped; negative ones (an
+    unphysical estimate) raise ValueError.
+    """
+    d = dim_of_choi(choi)
+    w, v = np.linalg.eigh(0.5 * (choi + choi.conj().T))
+    if w[0] < -max(tol, 1e-9) * max(1.0, abs(w[-1])):
+        raise ValueError(f"Choi matrix is not positive (eigenvalue {w[0]:.3g}); no Kraus form")
+    keep = w > tol * max(w[-1], 0.0)
+    return [np.sqrt(wk) * vk.reshape(d, d).T for wk, vk in zip(w[keep], v[:, keep].T)]
+
+
+def _choi_tensor(choi: np.ndarray) -> np.ndarray:
+    d = dim_of_choi(choi)
+    return choi.reshape(d, d, d, d)            # [i, a, j, b]
+
+
+def choi_to_superop(choi: np.ndarray) -> np.ndarray:
+    """Column-stacking superoperator S from the Choi matrix."""
+    d = dim_of_choi(choi)
+    # S[(b,a),(j,i)] = J[i,a,j,b]
+    return _choi_tensor(choi).transpose(3, 1, 2, 0).reshape(d * d, d * d)
+
+
+def superop_to_choi(superop: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`choi_to_superop`."""
+    d = dim_of_choi(superop)
+    return superop.reshape(d, d, d, d).transpose(3, 1, 2, 0).reshape(d * d, d * d)
+
+
+def _pauli_vectors(d: int) -> np.ndarray:
+    """Columns |P_m>> for every Pauli string, shape (d², d²)."""
+    basis = pauli_basis(n_qubits_of(d))
+    return basis.transpose(0, 2, 1).reshape(d * d, d * d).T
+
+
+def choi_to_chi(choi: np.ndarray) -> np.ndarray:
+    """χ_mn = <<P_m|J|P_n>>/d² (CONTRACT Pauli order)."""
+    d = dim_of_choi(choi)
+    v = _pauli_vectors(d)
+    return v.conj().T @ choi @ v / d**2
+
+
+def chi_to_choi(chi: np.ndarray) -> np.ndarray:
+    """J = Σ_mn χ_mn |P_m>><<P_n|."""
+    d = dim_of_choi(chi)
+    v = _pauli_vectors(d)
+    return v @ chi @ v.conj().T
+
+
+def choi_to_ptm(choi: np.ndarray) -> np.ndarray:
+    """R_ij = Tr(P_i Φ(P_j))/d = Tr[(P_j^T ⊗ P_i) J]/d, returned as float64."""
+    d = dim_of_choi(choi)
+    basis = pauli_basis(n_qubits_of(d))
+    # Tr[(A ⊗ B) J] = Σ A[j,i] B[b,a] J[i,a,j,b] with A = P_j^T, B = P_i
+    r = np.einsum("jxy,iba,xayb->ij", basis, basis, _choi_tensor(choi), optimize=True) / d
+    return np.ascontiguousarray(r.real)
+
+
+def ptm_to_choi(ptm: np.ndarray) -> np.ndarray:
+    """J = (1/d) Σ_ij R_ij P_j^T ⊗ P_i."""
+    d = int(round(np.sqrt(ptm.shape[0])))
+    basis = pauli_basis(n_qubits_of(d))
+    j4 = np.einsum("ij,jyx,iab->xayb", ptm, basis, basis, optimize=True) / d
+    return j4.reshape(d * d, d * d)
+
+
+def partial_trace_output(choi: np.ndarray) -> np.ndarray:
+    """Tr_out J (a d×d matrix on the input space); I_d when trace preserving."""
+    return np.einsum("iaja->ij", _choi_tensor(choi))
+
+
+def apply_channel(choi: np.ndarray, rho: np.ndarray) -> np.ndarray:
+    """Φ(ρ) = Tr_in[(ρ^T ⊗ I) J]."""
+    return np.einsum("ij,iajb->ab", rho, _choi_tensor(choi))
+
+
+def compose(first: np.ndarray, second: np.ndarray) -> np.ndarray:
+    """Choi matrix of ρ ↦ second(first(ρ))."""
+    return superop_to_choi(choi_to_superop(second) @ choi_to_superop(first))
+
+
+def hermitian_part(m: np.ndarray) -> np.ndarray:
+    return 0.5 * (m + m.conj().T)
+
+
+# --------------------------------------------------------------------------
+# Noise channels of CONTRACT §4 and channel specs
+# --------------------------------------------------------------------------
+
+def depolarizing(p: float, d: int) -> np.ndarray:
+    """Choi matrix of ρ ↦ (1−p)ρ + p Tr(ρ) I/d."""
+    return (1 - p) * choi_from_unitary(np.eye(d)) + p * np.eye(d * d) / d
+
+
+def _each_qubit(kraus_1q, n_qubits: int) -> np.ndarray:
+    """Choi matrix of a single-qubit channel applied to every qubit."""
+    ops = [kron_all(combo) for combo in _product(kraus_1q, n_qubits)]
+    return choi_from_kraus(ops)
+
+
+def _product(items, n):
+    import itertools
+    return itertools.product(items, repeat=n)
+
+
+def dephasing(p: float, n_qubits: int) -> np.ndarray:
+    """ρ ↦ (1−p)ρ + p ZρZ on every qubit."""
+    z = np.diag([1.0, -1.0]).astype(complex)
+    return _each_qubit([np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * z], n_qubits)
+
+
+def amplitude_damping(g: float, n_qubits: int) -> np.ndarray:
+    """Kraus pair [[1,0],[0,√(1−g)]], [[0,√g],[0,0]] on every qubit."""
+    k0 = np.array([[1, 0], [0, np.sqrt(1 - g)]], dtype=complex)
+    k1 = np.array([[0, np.sqrt(g)], [0, 0]], dtype=complex)
+    return _each_qubit([k0, k1], n_qubits)
+
+
+def zz_phase(phi: float, n_qubits: int) -> np.ndarray:
+    """exp(−i φ Z⊗Z/2) on each neighbouring pair (k, k+1), as a Choi matrix."""
+    d = 2 ** n_qubits
+    bits = (np.arange(d)[:, None] >> (n_qubits - 1 - np.arange(n_qubits))[None, :]) & 1
+    z = 1 - 2 * bits                                  # ±1 eigenvalue of Z_k
+    exponent = np.zeros(d)
+    for k in range(n_qubits - 1):
+        exponent += z[:, k] * z[:, k + 1]
+    return choi_from_unitary(np.diag(np.exp(-0.5j * phi * exponent)))
+
+
+NOISE_KINDS = ("depolarizing", "dephasing", "amplitude-damping", "zz")
+
+
+def noise_channel(kind: str, value: float, n_qubits: int) -> np.ndarray:
+    """Choi matrix of one CONTRACT §4 noise term."""
+    if kind == "zz":
+        return zz_phase(value, n_qubits)
+    if not 0.0 <= value <= 1.0:
+        raise ValueError(f"{kind} parameter must lie in [0, 1], got {value}")
+    if kind == "depolarizing":
+        return depolarizing(value, 2 ** n_qubits)
+    if kind == "dephasing":
+        return dephasing(value, n_qubits)
+    if kind == "amplitude-damping":
+        return amplitude_damping(value, n_qubits)
+    raise ValueError(f"unknown noise kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
+
+
+def random_channel(n_qubits: int, rank: int, seed: int | None = None) -> np.ndarray:
+    """A random CPTP channel whose Choi matrix has the given rank.
+
+    Built from a Haar-like random isometry V: C^d → C^d ⊗ C^rank (QR of a
+    complex Gaussian matrix), whose blocks are the Kraus operators.
+    """
+    d = 2 ** n_qubits
+    if not 1 <= rank <= d * d:
+        raise ValueError(f"rank must lie in 1..{d * d}, got {rank}")
+    rng = np.random.default_rng(seed)
+    g = rng.normal(size=(d * rank, d)) + 1j * rng.normal(size=(d * rank, d))
+    q, r = np.linalg.qr(g)
+    q = q * (np.diag(r) / np.abs(np.diag(r)))[None, :]
+    kraus = q.reshape(rank, d, d)
+    return choi_from_kraus(kraus)
+
+
+def parse_channel_spec(spec: str):
+    """Parse ``GATE[+KIND:P]...`` or ``random:RANK[:SEED]`` (CONTRACT §4).
+
+    Returns
+    -------
+    gate : str or None
+        The gate name (the target of the simulated experiment), None for a
+        random channel.
+    noise : list of (kind, value)
+    random : tuple (rank, seed) or None
+    """
+    text = spec.strip()
+    if text.startswith("random:"):
+        parts = text.split(":")
+        if len(parts) not in (2, 3):
+            raise ValueError(f"channel {spec!r}: expected random:RANK[:SEED]")
+        try:
+            rank = int(parts[1])
+            seed = int(parts[2]) if len(parts) == 3 else None
+        except ValueError:
+            raise ValueError(f"channel {spec!r}: RANK and SEED must be whole numbers") from None
+        return None, [], (rank, seed)
+    pieces = text.split("+")
+    gate = pieces[0]
+    if gate not in GATE_NAMES:
+        raise ValueError(f"channel {spec!r}: unknown gate {gate!r}; known gates: {', '.join(GATE_NAMES)}")
+    return gate, [parse_noise(p) for p in pieces[1:]], None
+
+
+def parse_noise(text: str) -> tuple[str, float]:
+    """Parse one ``KIND:P`` noise term."""
+    kind, sep, value = text.partition(":")
+    if not sep:
+        raise ValueError(f"noise {text!r}: expected KIND:P, e.g. depolarizing:0.02")
+    if kind not in NOISE_KINDS:
+        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
+    try:
+        p = float(value)
+    except ValueError:
+        raise ValueError(f"noise {text!r}: {value!r} is not a number") from None
+    if not np.isfinite(p):
+        raise ValueError(f"noise {text!r}: parameter must be finite")
+    return kind, p
+
+
+def build_channel(gate: str, noise, n_qubits: int | None = None) -> np.ndarray:
+    """Choi matrix of a named gate followed by the noise terms, in order."""
+    u = named_gate(gate)
+    n = n_qubits_of(u.shape[0])
+    if n_qubits is not None and n != n_qubits:
+        raise ValueError(f"gate {gate} acts on {n} qubit(s), not {n_qubits}")
+    choi = choi_from_unitary(u)
+    for kind, value in noise:
+        choi = compose(choi, noise_channel(kind, value, n))
+    return choi

@@ -1,0 +1,186 @@
+"""The `gatescope` command line (CONTRACT §4). Thin: it parses arguments,
+calls the same public functions a notebook would, and turns `InputError`
+into exit status 2 (bad input or usage) — anything else unexpected is 1.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import warnings
+from pathlib import Path
+
+from .errors import GatescopeWarning, InputError
+
+DEMO_DATASET = "cz_bench_b"
+DEMO_OUTPUT = "gatescope-demo"
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):                      # usage errors: status 2, as argparse does
+        self.print_usage(sys.stderr)
+        self.exit(2, f"{self.prog}: error: {message}\n")
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    sys.stderr.write(f"warning: {message}\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from .estimators import METHODS
+
+    p = _Parser(prog="gatescope", description="Quantum process tomography from laboratory counts.")
+    p.add_argument("--version", action="store_true", help="print the version and exit")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    f = sub.add_parser("fit", help="reconstruct the process of an experiment and write the result file")
+    f.add_argument("experiment", help="experiment.toml")
+    f.add_argument("-o", "--output", help="result file (default: result.h5 beside the experiment)")
+    f.add_argument("--method", choices=METHODS, default="mle", help="estimator (default mle)")
+    f.add_argument("--bootstrap", type=int, default=0, metavar="B", help="number of resamples for error bars")
+    f.add_argument("--bootstrap-kind", choices=("parametric", "nonparametric"), default="parametric")
+    f.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL", help="confidence level (fraction)")
+    f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
+    f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
+    f.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    s = sub.add_parser("show", help="print a summary of a result file")
+    s.add_argument("result", help="result.h5")
+
+    m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel")
+    src = m.add_mutually_exclusive_group(required=True)
+    src.add_argument("--gate", help="a named gate (I X Y Z H S T CNOT CZ SWAP iSWAP sqrtSWAP)")
+    src.add_argument("--channel", metavar="SPEC", help="GATE[+KIND:P]... or random:RANK[:SEED]")
+    m.add_argument("--noise", action="append", default=[], metavar="KIND:P",
+                   help="depolarizing:p, dephasing:p, amplitude-damping:g or zz:phi (repeatable)")
+    m.add_argument("--qubits", type=int, default=2, help="qubits of a random channel (default 2)")
+    m.add_argument("--shots", type=float, default=1000.0, metavar="N",
+                   help="expected counts per preparation and analyser basis (default 1000)")
+    m.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6, pauli4 or a comma list")
+    m.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6, pauli4 or a comma list")
+    m.add_argument("--seed", type=int, default=None)
+    m.add_argument("--title", default=None)
+    m.add_argument("-o", "--output", required=True, metavar="DIR")
+
+    sub.add_parser("demo", help="the whole job on the bundled data")
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if args.version:
+        from . import __version__
+        print(f"gatescope {__version__}")
+        return 0
+    if args.command is None:
+        parser.print_help(sys.stderr)
+        return 2
+    warnings.showwarning = _show_warning
+    warnings.simplefilter("always", GatescopeWarning)
+    command_line = "gatescope " + " ".join(sys.argv[1:] if argv is None else argv)
+    try:
+        return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate,
+                "demo": cmd_demo}[args.command](args, command_line)
+    except InputError as exc:
+        print(f"gatescope: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("gatescope: interrupted", file=sys.stderr)
+        return 1
+
+
+# --------------------------------------------------------------------------
+
+def _check_options(args):
+    if args.bootstrap < 0:
+        raise InputError("must be 0 or more", key="--bootstrap")
+    if not 0 < args.ci_level < 1:
+        raise InputError("must be a fraction between 0 and 1, e.g. 0.95", key="--ci-level")
+    if args.workers is not None and args.workers < 1:
+        raise InputError("must be at least 1", key="--workers")
+
+
+def cmd_fit(args, command_line) -> int:
+    from .api import fit
+    from .experiment import read_experiment
+
+    _check_options(args)
+    exp = read_experiment(args.experiment)
+    out = Path(args.output) if args.output else exp.path.parent / "result.h5"
+    result = fit(exp, args.method, bootstrap=args.bootstrap, bootstrap_kind=args.bootstrap_kind,
+                 ci_level=args.ci_level, seed=args.seed, workers=args.workers,
+                 progress=not args.quiet, command_line=command_line)
+    result.save(out)
+    print(out)
+    return 0
+
+
+def cmd_show(args, command_line) -> int:
+    from .results import load_result
+    from .summary import summary
+
+    print(summary(load_result(args.result)))
+    return 0
+
+
+def cmd_simulate(args, command_line) -> int:
+    from .simulate import run_simulation
+
+    spec = args.channel if args.channel else "+".join([args.gate] + list(args.noise))
+    if args.channel and args.noise:
+        spec = "+".join([args.channel] + list(args.noise))
+    path = run_simulation(spec, Path(args.output), shots=args.shots, prep=args.prep, meas=args.meas,
+                          seed=args.seed, n_qubits=args.qubits, title=args.title,
+                          command_line=command_line)
+    print(path)
+    return 0
+
+
+def find_demo_data() -> Path | None:
+    """The bundled dataset: the repository's synthetic_data/, beside the package source."""
+    here = Path(__file__).resolve()
+    for base in [here.parents[2], Path.cwd()]:
+        candidate = base / "synthetic_data" / DEMO_DATASET / "experiment.toml"
+        if candidate.exists():
+            return candidate
+    return None
+
+
+def cmd_demo(args, command_line) -> int:
+    from .api import fit
+    from .experiment import read_experiment
+    from .results import load_result
+    from .simulate import DEMO_RECIPE, run_simulation
+    from .summary import summary
+
+    outdir = Path(DEMO_OUTPUT)
+    source = find_demo_data()
+    if source is None:
+        # Not in a source checkout: regenerate the bundled data from its recipe (same seed,
+        # same numbers) into the output folder.
+        print("bundled data not found beside the package; regenerating it from its recipe",
+              file=sys.stderr)
+        source = run_simulation(DEMO_RECIPE["channel"], outdir / "data", shots=DEMO_RECIPE["shots"],
+                                prep="pauli6", meas="pauli6", seed=DEMO_RECIPE["seed"],
+                                n_qubits=2, title=DEMO_RECIPE["title"], command_line=command_line)
+    exp = read_experiment(source)
+    print(f"demo: fitting {source}", file=sys.stderr)
+    result = fit(exp, "mle", bootstrap=DEMO_RECIPE["bootstrap"], seed=DEMO_RECIPE["seed"],
+                 progress=True, command_line=command_line)
+    out = outdir / "result.h5"
+    result.save(out)
+    print(summary(result))
+    truth_path = source.parent / "truth.h5"
+    if truth_path.exists():
+        truth = load_result(truth_path)
+        print("\nagainst the true channel of the simulation (truth.h5):")
+        for name, fig in result.figures.items():
+            if name in truth.figures:
+                t = truth.figures[name].value
+                inside = ""
+                if fig.ci is not None:
+                    inside = "  inside the interval" if fig.ci[0] <= t <= fig.ci[1] else "  OUTSIDE the interval"
+                print(f"  {name:24s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
+    print(f"\nresult written to {out}")
+    return 0

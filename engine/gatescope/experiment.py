@@ -1,0 +1,549 @@
+"""Read an experiment (``experiment.toml`` + ``counts.csv``) into an `Experiment`.
+
+This is the only module that parses user text. Everything is checked here,
+once; every problem is an `InputError` naming the file, the line (CSV) or the
+key (TOML) and what is wrong. Past this point the numerical code trusts its
+arrays. The layout of both files is CONTRACT §3.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .conventions import (
+    BUILTIN_LABELS, GATE_NAMES, RIGHT_CIRCULAR_CHOICES, bloch_density, builtin_states,
+    check_unitary, density, kron_all, named_gate, split_label, wave_plate,
+)
+from .errors import InputError
+
+NORMALIZATIONS = ("per-preparation", "global", "per-group")
+TRACE_KINDS = ("preserving", "decreasing")
+TOP_KEYS = ("title", "qubits", "target", "counts", "normalization", "trace",
+            "input_rate", "conventions", "states")
+REQUIRED_COLUMNS = ("prep", "meas", "counts")
+OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
+MAX_QUBITS = 6
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a = np.ascontiguousarray(a)
+    a.setflags(write=False)
+    return a
+
+
+@dataclass(frozen=True, eq=False)
+class Experiment:
+    """A validated experiment. Arrays are read-only.
+
+    Rows are the CSV's data rows in file order. Row k was taken with the
+    preparation ``prep_states[prep_index[k]]`` and the analyser effect
+    ``meas_effects[meas_index[k]]``; its model is CONTRACT §3:
+    ``E[counts_k] = λ_g · seconds_k · efficiency_k · Tr[(ρ^T ⊗ E) J] +
+    background_k`` with g = ``group_index[k]``.
+    """
+
+    path: Path
+    counts_path: Path
+    title: str
+    n_qubits: int
+    target_name: str | None
+    target: np.ndarray | None
+    normalization: str
+    trace: str
+    input_rate: float | None
+    right_circular: str
+    prep_labels: tuple[str, ...]
+    meas_labels: tuple[str, ...]
+    prep_states: np.ndarray
+    meas_effects: np.ndarray
+    prep: tuple[str, ...]
+    meas: tuple[str, ...]
+    prep_index: np.ndarray
+    meas_index: np.ndarray
+    counts: np.ndarray
+    seconds: np.ndarray
+    background: np.ndarray
+    efficiency: np.ndarray
+    group: tuple[str, ...] | None
+    group_index: np.ndarray
+    group_names: tuple[str, ...]
+    columns: tuple[str, ...]
+    toml_text: str
+    toml_sha256: str
+    csv_sha256: str
+    custom_states: tuple[str, ...] = field(default=())
+
+    @property
+    def dim(self) -> int:
+        return 2 ** self.n_qubits
+
+    @property
+    def n_rows(self) -> int:
+        return int(self.counts.shape[0])
+
+    @property
+    def n_groups(self) -> int:
+        return len(self.group_names)
+
+
+# --------------------------------------------------------------------------
+# TOML helpers: tomllib gives no line numbers, so we find them in the text
+# --------------------------------------------------------------------------
+
+_HEADER = re.compile(r"^\s*\[\s*([^\]\[]+?)\s*\]\s*(#.*)?$")
+
+
+def _key_line(text: str, dotted: str) -> int | None:
+    """Best-effort physical line of a dotted key in TOML text."""
+    parts = dotted.split(".")
+    table, key = ".".join(parts[:-1]), parts[-1]
+    current = ""
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        m = _HEADER.match(line)
+        if m:
+            current = m.group(1).replace('"', "").replace(" ", "")
+            if current == dotted:
+                return lineno
+            continue
+        if current == table and re.match(rf"^\s*\"?{re.escape(key)}\"?\s*=", line):
+            return lineno
+        if table and current == "" and re.match(rf"^\s*{re.escape(dotted)}\s*=", line):
+            return lineno
+    return None
+
+
+class _Toml:
+    """Raises InputErrors that name the file, the key and its line."""
+
+    def __init__(self, path: Path, text: str):
+        self.path = path
+        self.text = text
+
+    def error(self, key: str, message: str) -> InputError:
+        return InputError(message, file=str(self.path), line=_key_line(self.text, key), key=key)
+
+
+def _parse_complex(value, where: str, toml: _Toml) -> complex:
+    if isinstance(value, bool):
+        raise toml.error(where, f"expected a number, got {value!r}")
+    if isinstance(value, (int, float)):
+        z = complex(value)
+    elif isinstance(value, str):
+        try:
+            z = complex(value.replace(" ", ""))
+        except ValueError:
+            raise toml.error(where, f"{value!r} is not a complex number in Python notation "
+                                    "(for example \"0.5-0.5j\")") from None
+    else:
+        raise toml.error(where, f"expected a number or a string, got {type(value).__name__}")
+    if not (math.isfinite(z.real) and math.isfinite(z.imag)):
+        raise toml.error(where, f"{value!r} is not finite")
+    return z
+
+
+def _parse_float(value, where: str, toml: _Toml, *, positive: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise toml.error(where, f"expected a number, got {value!r}")
+    x = float(value)
+    if not math.isfinite(x):
+        raise toml.error(where, f"{value!r} is not finite")
+    if positive and x <= 0:
+        raise toml.error(where, f"must be positive, got {value!r}")
+    return x
+
+
+def _read_target(raw, n_qubits: int, toml: _Toml, base: Path):
+    d = 2 ** n_qubits
+    if isinstance(raw, str):
+        if raw not in GATE_NAMES:
+            raise toml.error("target", f"unknown gate {raw!r}; known gates: {', '.join(GATE_NAMES)}, "
+                                       "or { unitary = ... }")
+        u = named_gate(raw)
+        name = raw
+    elif isinstance(raw, dict):
+        extra = set(raw) - {"unitary"}
+        if extra:
+            key = sorted(extra)[0]
+            raise toml.error(f"target.{key}", f"unknown key {key!r} in target (only 'unitary')")
+        if "unitary" not in raw:
+            raise toml.error("target", "a target table needs the key 'unitary'")
+        spec = raw["unitary"]
+        if isinstance(spec, str):
+            upath = (base / spec)
+            try:
+                u = np.load(upath, allow_pickle=False)
+            except FileNotFoundError:
+                raise toml.error("target.unitary", f"file not found: {upath}") from None
+            except Exception as exc:  # numpy raises several kinds for a bad file
+                raise toml.error("target.unitary", f"cannot read {upath} as a .npy array: {exc}") from None
+            name = f"unitary from {spec}"
+        elif isinstance(spec, list):
+            if not all(isinstance(r, list) for r in spec):
+                raise toml.error("target.unitary", "expected a list of rows (a list of lists)")
+            widths = {len(r) for r in spec}
+            if len(widths) != 1:
+                raise toml.error("target.unitary", "rows of the unitary have different lengths")
+            u = np.array([[_parse_complex(x, "target.unitary", toml) for x in r] for r in spec])
+            name = "user unitary"
+        else:
+            raise toml.error("target.unitary", "expected a .npy file name or a list of rows")
+        u = np.asarray(u, dtype=complex)
+    else:
+        raise toml.error("target", "expected a gate name or { unitary = ... }")
+    if u.shape != (d, d):
+        raise toml.error("target", f"target is {u.shape[0]}×{u.shape[1] if u.ndim == 2 else '?'} "
+                                   f"but {n_qubits} qubit(s) need {d}×{d}")
+    try:
+        check_unitary(u)
+    except ValueError as exc:
+        raise toml.error("target", str(exc)) from None
+    return name, _frozen(u)
+
+
+PLATE_KINDS = {"half": 180.0, "quarter": 90.0}
+
+
+def _read_custom_states(raw, toml: _Toml):
+    """Return {name: (prep_density, meas_effect)} for [states.NAME] tables."""
+    if not isinstance(raw, dict):
+        raise toml.error("states", "expected tables [states.NAME]")
+    out = {}
+    for name, spec in raw.items():
+        key = f"states.{name}"
+        if name in BUILTIN_LABELS:
+            raise toml.error(key, f"custom state name {name!r} equals a built-in label")
+        if not name or re.search(r"[\s,]", name):
+            raise toml.error(key, f"custom state name {name!r} may not contain spaces or commas")
+        if not isinstance(spec, dict):
+            raise toml.error(key, "expected a table with one of 'bloch', 'vector', 'plates'")
+        kinds = [k for k in spec if k in ("bloch", "vector", "plates")]
+        unknown = [k for k in spec if k not in ("bloch", "vector", "plates")]
+        if unknown:
+            raise toml.error(f"{key}.{unknown[0]}", f"unknown key {unknown[0]!r} "
+                                                    "(expected one of 'bloch', 'vector', 'plates')")
+        if len(kinds) != 1:
+            raise toml.error(key, "give exactly one of 'bloch', 'vector', 'plates'")
+        kind = kinds[0]
+        value = spec[kind]
+        where = f"{key}.{kind}"
+        if kind == "bloch":
+            if not isinstance(value, list) or len(value) != 3:
+                raise toml.error(where, "expected three numbers (<X>, <Y>, <Z>)")
+            r = [_parse_float(x, where, toml) for x in value]
+            length = math.sqrt(sum(x * x for x in r))
+            if length > 1 + 1e-9:
+                raise toml.error(where, f"Bloch vector is longer than 1 (|r| = {length:.6g})")
+            rho = bloch_density(r)
+            out[name] = (rho, rho)
+        elif kind == "vector":
+            if not isinstance(value, list) or len(value) != 2:
+                raise toml.error(where, "expected two amplitudes (of H and V)")
+            v = np.array([_parse_complex(x, where, toml) for x in value])
+            if np.linalg.norm(v) < 1e-12:
+                raise toml.error(where, "the zero vector is not a state")
+            rho = density(v)
+            out[name] = (rho, rho)
+        else:
+            if not isinstance(value, list) or not value:
+                raise toml.error(where, "expected a non-empty list of plates "
+                                        "{ kind, angle_deg[, retardance_deg] }")
+            jones = np.eye(2, dtype=complex)
+            for k, plate in enumerate(value):
+                pwhere = f"{where}[{k}]"
+                if not isinstance(plate, dict):
+                    raise toml.error(where, f"plate {k} is not a table")
+                bad = set(plate) - {"kind", "angle_deg", "retardance_deg"}
+                if bad:
+                    raise toml.error(where, f"plate {k}: unknown key {sorted(bad)[0]!r}")
+                pkind = plate.get("kind")
+                if pkind not in PLATE_KINDS:
+                    raise toml.error(where, f"plate {k}: unknown plate kind {pkind!r} "
+                                            "(expected 'half' or 'quarter')")
+                if "angle_deg" not in plate:
+                    raise toml.error(where, f"plate {k}: missing 'angle_deg'")
+                angle = _parse_float(plate["angle_deg"], pwhere, toml)
+                ret = _parse_float(plate.get("retardance_deg", PLATE_KINDS[pkind]), pwhere, toml)
+                jones = wave_plate(math.radians(angle), math.radians(ret)) @ jones
+            h = np.array([1, 0], dtype=complex)
+            prep = density(jones @ h)
+            # analysis: the plates (first met first), then a polariser passing H
+            meas = jones.conj().T @ np.outer(h, h) @ jones
+            out[name] = (prep, meas)
+    return out
+
+
+# --------------------------------------------------------------------------
+# The reader
+# --------------------------------------------------------------------------
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def read_experiment(path) -> Experiment:
+    """Read and validate ``experiment.toml`` and the counts CSV it names.
+
+    Parameters
+    ----------
+    path : str or Path
+        The experiment file (CONTRACT §3). Paths inside it are relative to it.
+
+    Returns
+    -------
+    Experiment
+
+    Raises
+    ------
+    InputError
+        For every problem, naming the file, the line or key, and what is wrong.
+    """
+    path = Path(path)
+    try:
+        raw_bytes = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("file not found", file=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file: {exc.strerror}", file=str(path)) from None
+    try:
+        text = raw_bytes.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start})", file=str(path)) from None
+    if not text.strip():
+        raise InputError("the experiment file is empty", file=str(path))
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        raise InputError(f"not valid TOML: {exc}", file=str(path),
+                         line=int(m.group(1)) if m else None) from None
+    toml = _Toml(path, text)
+
+    for key in data:
+        if key not in TOP_KEYS:
+            raise toml.error(key, f"unknown key {key!r}; allowed keys: {', '.join(TOP_KEYS)}")
+    for key in ("qubits", "counts"):
+        if key not in data:
+            raise InputError(f"missing required key {key!r}", file=str(path), key=key)
+
+    title = data.get("title", "")
+    if not isinstance(title, str):
+        raise toml.error("title", "expected a string")
+
+    n_qubits = data["qubits"]
+    if isinstance(n_qubits, bool) or not isinstance(n_qubits, int):
+        raise toml.error("qubits", f"expected a whole number, got {n_qubits!r}")
+    if not 1 <= n_qubits <= MAX_QUBITS:
+        raise toml.error("qubits", f"must lie in 1..{MAX_QUBITS}, got {n_qubits}")
+
+    normalization = data.get("normalization", "per-preparation")
+    if normalization not in NORMALIZATIONS:
+        raise toml.error("normalization", f"{normalization!r} is not one of {', '.join(NORMALIZATIONS)}")
+    trace = data.get("trace", "preserving")
+    if trace not in TRACE_KINDS:
+        raise toml.error("trace", f"{trace!r} is not one of {', '.join(TRACE_KINDS)}")
+    input_rate = None
+    if "input_rate" in data:
+        input_rate = _parse_float(data["input_rate"], "input_rate", toml, positive=True)
+    if trace == "decreasing":
+        if normalization != "global":
+            raise toml.error("trace", "trace = \"decreasing\" needs normalization = \"global\"")
+        if input_rate is None:
+            raise toml.error("trace", "trace = \"decreasing\" needs the key input_rate")
+        raise toml.error("trace", "trace = \"decreasing\" is not supported by this version of gatescope")
+
+    right_circular = "H-iV"
+    conventions = data.get("conventions", {})
+    if not isinstance(conventions, dict):
+        raise toml.error("conventions", "expected a table [conventions]")
+    for key, value in conventions.items():
+        if key != "right_circular":
+            raise toml.error(f"conventions.{key}", f"unknown key {key!r} (only 'right_circular')")
+        if value not in RIGHT_CIRCULAR_CHOICES:
+            raise toml.error("conventions.right_circular",
+                             f"{value!r} is not one of {', '.join(RIGHT_CIRCULAR_CHOICES)}")
+        right_circular = value
+
+    target_name, target = (None, None)
+    if "target" in data:
+        target_name, target = _read_target(data["target"], n_qubits, toml, path.parent)
+
+    custom = _read_custom_states(data.get("states", {}), toml)
+
+    counts_name = data["counts"]
+    if not isinstance(counts_name, str) or not counts_name.strip():
+        raise toml.error("counts", "expected the CSV file name as a string")
+    counts_path = path.parent / counts_name
+    table = _read_counts(counts_path, n_qubits, right_circular, custom, normalization)
+
+    return Experiment(
+        path=path, counts_path=counts_path, title=title, n_qubits=n_qubits,
+        target_name=target_name, target=target, normalization=normalization,
+        trace=trace, input_rate=input_rate, right_circular=right_circular,
+        toml_text=text, toml_sha256=_sha256(raw_bytes), custom_states=tuple(custom),
+        **table,
+    )
+
+
+def _parse_counts_cell(text: str) -> int:
+    x = float(text)                       # ValueError for junk
+    if not math.isfinite(x):
+        raise ValueError(f"counts must be finite, got {text!r}")
+    if x < 0:
+        raise ValueError(f"counts must be non-negative, got {text!r}")
+    if x != math.floor(x):
+        raise ValueError(f"counts must be whole numbers, got {text!r}")
+    if x > 2**62:
+        raise ValueError(f"counts value {text!r} is too large")
+    return int(x)
+
+
+def _parse_positive_cell(text: str, column: str, *, allow_zero: bool) -> float:
+    x = float(text)
+    if not math.isfinite(x):
+        raise ValueError(f"{column} must be finite, got {text!r}")
+    if x < 0 or (x == 0 and not allow_zero):
+        need = "non-negative" if allow_zero else "positive"
+        raise ValueError(f"{column} must be {need}, got {text!r}")
+    return x
+
+
+def _state_tables(n_qubits, right_circular, custom):
+    vectors = builtin_states(right_circular)
+    prep_1q = {k: density(v) for k, v in vectors.items()}
+    meas_1q = dict(prep_1q)
+    for name, (prep, meas) in custom.items():
+        prep_1q[name] = prep
+        meas_1q[name] = meas
+    return prep_1q, meas_1q
+
+
+def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: dict,
+                 normalization: str) -> dict:
+    file = str(counts_path)
+    try:
+        raw = counts_path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("counts file not found", file=file) from None
+    except OSError as exc:
+        raise InputError(f"cannot read counts file: {exc.strerror}", file=file) from None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start})", file=file) from None
+    if not text.strip():
+        raise InputError("the counts file is empty", file=file, line=1)
+
+    reader = csv.reader(io.StringIO(text, newline=""))
+    header = None
+    for cells in reader:
+        if any(c.strip() for c in cells):
+            header = [c.strip() for c in cells]
+            break
+    header_line = reader.line_num
+    allowed = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+    for col in header:
+        if col not in allowed:
+            raise InputError(f"unknown column {col!r}; allowed columns: {', '.join(allowed)}",
+                             file=file, line=header_line)
+    for col in set(header):
+        if header.count(col) > 1:
+            raise InputError(f"column {col!r} appears twice", file=file, line=header_line)
+    for col in REQUIRED_COLUMNS:
+        if col not in header:
+            raise InputError(f"missing required column {col!r}", file=file, line=header_line)
+    if normalization == "per-group" and "group" not in header:
+        raise InputError("normalization = \"per-group\" needs a 'group' column",
+                         file=file, line=header_line)
+    pos = {c: header.index(c) for c in header}
+
+    known = set(BUILTIN_LABELS) | set(custom)
+    prep_1q, meas_1q = _state_tables(n_qubits, right_circular, custom)
+    prep_settings: dict[tuple, int] = {}
+    meas_settings: dict[tuple, int] = {}
+    prep_mats, meas_mats, prep_names, meas_names = [], [], [], []
+    cols = {c: [] for c in header}
+    prep_index, meas_index = [], []
+
+    def setting(label, settings, mats, names, table, line, column):
+        try:
+            parts = tuple(split_label(label, n_qubits, known))
+        except ValueError as exc:
+            raise InputError(f"column '{column}': {exc}", file=file, line=line) from None
+        idx = settings.get(parts)
+        if idx is None:
+            idx = len(mats)
+            settings[parts] = idx
+            mats.append(kron_all(table[p] for p in parts))
+            names.append(" ".join(parts))
+        return idx
+
+    n_rows = 0
+    for cells in reader:
+        line = reader.line_num
+        if not any(c.strip() for c in cells):
+            continue
+        if len(cells) != len(header):
+            raise InputError(f"expected {len(header)} cells, found {len(cells)}", file=file, line=line)
+        cells = [c.strip() for c in cells]
+        for col in REQUIRED_COLUMNS:
+            if not cells[pos[col]]:
+                raise InputError(f"empty cell in required column '{col}'", file=file, line=line)
+        prep_index.append(setting(cells[pos["prep"]], prep_settings, prep_mats, prep_names,
+                                  prep_1q, line, "prep"))
+        meas_index.append(setting(cells[pos["meas"]], meas_settings, meas_mats, meas_names,
+                                  meas_1q, line, "meas"))
+        for col in header:
+            value = cells[pos[col]]
+            try:
+                if col == "counts":
+                    value = _parse_counts_cell(value)
+                elif col in ("seconds", "efficiency"):
+                    value = _parse_positive_cell(value or "1", col, allow_zero=False)
+                elif col == "background":
+                    value = _parse_positive_cell(value or "0", col, allow_zero=True)
+                elif col == "group":
+                    if not value:
+                        raise ValueError("empty cell in column 'group'")
+            except ValueError as exc:
+                msg = str(exc)
+                if "could not convert" in msg or "invalid literal" in msg:
+                    msg = f"column '{col}': {value!r} is not a number"
+                raise InputError(msg, file=file, line=line) from None
+            cols[col].append(value)
+        n_rows += 1
+    if n_rows == 0:
+        raise InputError("the counts file has a header but no data rows", file=file, line=header_line)
+
+    ones = np.ones(n_rows)
+    prep_index = np.array(prep_index, dtype=np.int64)
+    if normalization == "per-preparation":
+        group_index, group_names = prep_index, tuple(prep_names)
+    elif normalization == "global":
+        group_index, group_names = np.zeros(n_rows, dtype=np.int64), ("all",)
+    else:
+        names = {}
+        group_index = np.array([names.setdefault(g, len(names)) for g in cols["group"]], dtype=np.int64)
+        group_names = tuple(names)
+    return dict(
+        prep_labels=tuple(prep_names), meas_labels=tuple(meas_names),
+        prep_states=_frozen(np.array(prep_mats)), meas_effects=_frozen(np.array(meas_mats)),
+        prep=tuple(cols["prep"]), meas=tuple(cols["meas"]),
+        prep_index=_frozen(prep_index), meas_index=_frozen(np.array(meas_index, dtype=np.int64)),
+        counts=_frozen(np.array(cols["counts"], dtype=np.int64)),
+        seconds=_frozen(np.array(cols["seconds"], dtype=float) if "seconds" in cols else ones),
+        background=_frozen(np.array(cols["background"], dtype=float) if "background" in cols
+                           else np.zeros(n_rows)),
+        efficiency=_frozen(np.array(cols["efficiency"], dtype=float) if "efficiency" in cols else ones),
+        group=tuple(cols["group"]) if "group" in cols else None,
+        group_index=_frozen(group_index), group_names=group_names,
+        columns=tuple(header), csv_sha256=_sha256(raw),
+    )

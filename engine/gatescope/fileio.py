@@ -1,0 +1,34 @@
+"""Atomic file writing: a temporary file in the same folder, then a rename.
+
+A reader never sees a half-written file, and a failure leaves no partial
+output behind (the temporary file is removed).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import tempfile
+from pathlib import Path
+
+
+@contextlib.contextmanager
+def atomic_path(path):
+    """Yield a temporary path beside ``path``; rename it onto ``path`` on success."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def atomic_write_text(path, text: str) -> None:
+    """Write UTF-8 text to ``path`` atomically."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")

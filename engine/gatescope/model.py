@@ -1,0 +1,186 @@
+"""The measurement model: the linear map from a Choi matrix to every row.
+
+Row k probes the probability ``p_k = Tr[(ρ_k^T ⊗ E_k) J]`` (CONTRACT §3),
+ρ_k the row's preparation density matrix and E_k its analyser effect. Its
+expected counts are ``ν_k = λ_g · seconds_k · efficiency_k · p_k +
+background_k``.
+
+No design matrix of size rows × d⁴ is ever formed. The rows only use P
+distinct preparations and M distinct effects, so all probabilities come from
+one P × M table
+
+    T = R · J' · F^T,   R[p, (x, y)] = ρ_p[x, y],   F[m, (a, b)] = E_m[b, a],
+    J'[(x, y), (a, b)] = J[(x, a), (y, b)],
+
+gathered by each row's (prep, meas) pair; the adjoint scatters row weights
+back into the table and contracts the other way. Cost O(P·d⁴ + P·M·d²),
+memory O(d⁴ + P·M + rows).
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from .conventions import pauli_basis, pauli_labels
+from .errors import GatescopeWarning
+from .experiment import Experiment
+
+
+@dataclass(frozen=True, eq=False)
+class Identifiability:
+    """Which part of the process the data determine.
+
+    ``prep_rank`` and ``meas_rank`` are the dimensions (out of d²) of the
+    operator spaces spanned by the preparations and by the analyser
+    effects; ``rank`` the number of trace-preserving process parameters
+    the rows determine (d⁴ − d² when the data are informationally
+    complete).
+    """
+
+    prep_rank: int
+    meas_rank: int
+    rank: int
+    n_parameters: int
+    missing_inputs: tuple[str, ...]
+    missing_outputs: tuple[str, ...]
+
+    @property
+    def complete(self) -> bool:
+        return self.rank == self.n_parameters
+
+
+class MeasurementModel:
+    """Forward map J ↦ p (every row) and its adjoint w ↦ Σ_k w_k ρ_k^T ⊗ E_k.
+
+    Parameters
+    ----------
+    experiment : Experiment
+        The validated experiment whose rows define the map.
+    """
+
+    def __init__(self, experiment: Experiment):
+        self.experiment = experiment
+        self.n_qubits = experiment.n_qubits
+        self.dim = d = experiment.dim
+        self.n_rows = experiment.n_rows
+        self.n_preps = experiment.prep_states.shape[0]
+        self.n_meas = experiment.meas_effects.shape[0]
+        self.prep_matrix = np.ascontiguousarray(experiment.prep_states.reshape(self.n_preps, d * d))
+        self.meas_matrix = np.ascontiguousarray(
+            experiment.meas_effects.transpose(0, 2, 1).reshape(self.n_meas, d * d))
+        self.pair_index = experiment.prep_index * self.n_meas + experiment.meas_index
+        self.exposure = np.asarray(experiment.seconds * experiment.efficiency, dtype=float)
+        self.background = np.asarray(experiment.background, dtype=float)
+        self.counts = np.asarray(experiment.counts, dtype=float)
+        self.group_index = experiment.group_index
+        self.n_groups = experiment.n_groups
+        self._pair_multiplicity = np.bincount(self.pair_index, minlength=self.n_preps * self.n_meas)
+
+    # -- the linear map --------------------------------------------------
+    def table(self, choi: np.ndarray) -> np.ndarray:
+        """The P × M table Tr[(ρ_p^T ⊗ E_m) J] (real part)."""
+        d = self.dim
+        jp = choi.reshape(d, d, d, d).transpose(0, 2, 1, 3).reshape(d * d, d * d)
+        return ((self.prep_matrix @ jp) @ self.meas_matrix.T).real
+
+    def forward(self, choi: np.ndarray) -> np.ndarray:
+        """p_k = Tr[(ρ_k^T ⊗ E_k) J] for every row k."""
+        return self.table(choi).reshape(-1)[self.pair_index]
+
+    def adjoint(self, weights: np.ndarray) -> np.ndarray:
+        """A*(w) = Σ_k w_k ρ_k^T ⊗ E_k, a Hermitian d² × d² matrix.
+
+        It satisfies Σ_k w_k p_k(J) = Tr[A*(w) J] for every Hermitian J.
+        """
+        d = self.dim
+        table = np.bincount(self.pair_index, weights=weights,
+                            minlength=self.n_preps * self.n_meas).reshape(self.n_preps, self.n_meas)
+        k = (self.prep_matrix.T @ table) @ self.meas_matrix.conj()      # [(y, x), (a, b)]
+        return k.reshape(d, d, d, d).transpose(1, 2, 0, 3).reshape(d * d, d * d)
+
+    def expected_counts(self, choi: np.ndarray, intensities: np.ndarray) -> np.ndarray:
+        """ν_k = λ_g · seconds · efficiency · p_k + background (CONTRACT §3)."""
+        return intensities[self.group_index] * self.exposure * self.forward(choi) + self.background
+
+    # -- Pauli coordinates, used by linear inversion and identifiability --
+    def pauli_coordinates(self):
+        """Real Pauli vectors r_p[j] = Tr(ρ_p P_j) and e_m[i] = Tr(E_m P_i).
+
+        In these coordinates p = (1/d) e_mᵀ R r_p, R the Pauli transfer matrix.
+        """
+        d = self.dim
+        # Tr(X P) = Σ X[a,b] P[b,a]
+        flat_t = pauli_basis(self.n_qubits).transpose(0, 2, 1).reshape(d * d, d * d)
+        r = (self.experiment.prep_states.reshape(self.n_preps, -1) @ flat_t.T).real
+        e = (self.experiment.meas_effects.reshape(self.n_meas, -1) @ flat_t.T).real
+        return r, e
+
+    def pairs_present(self) -> np.ndarray:
+        """Multiplicity of every (prep, meas) pair in the rows, shape (P, M)."""
+        return self._pair_multiplicity.reshape(self.n_preps, self.n_meas)
+
+    def identifiability(self) -> Identifiability:
+        """Which trace-preserving process parameters the rows determine."""
+        r, e = self.pauli_coordinates()
+        d = self.dim
+        labels = pauli_labels(self.n_qubits)
+        prep_rank, missing_in = _span(r, labels)
+        meas_rank, missing_out = _span(e[:, 1:], labels[1:])
+        n_params = d ** 4 - d ** 2
+        present = self.pairs_present() > 0
+        if present.all():
+            rank = prep_rank * meas_rank
+        elif n_params <= 4096:
+            # Rank of the design restricted to the pairs present, in PTM coordinates.
+            p_idx, m_idx = np.nonzero(present)
+            design = (e[m_idx, 1:][:, :, None] * r[p_idx][:, None, :]).reshape(len(p_idx), -1)
+            rank = int(np.linalg.matrix_rank(design))
+        else:
+            rank = min(prep_rank * meas_rank, int(present.sum()))
+        return Identifiability(prep_rank, meas_rank, rank, n_params,
+                               tuple(missing_in), tuple(missing_out))
+
+    def warn_if_undetermined(self) -> Identifiability:
+        """Warn (GatescopeWarning) naming the part of the process the data leave open."""
+        ident = self.identifiability()
+        d2 = self.dim ** 2
+        if ident.prep_rank < d2:
+            warnings.warn(
+                f"the preparations span only {ident.prep_rank} of {d2} input operator directions: "
+                f"the process is undetermined on the input Pauli components "
+                f"{_short(ident.missing_inputs)}; the fit still runs", GatescopeWarning, stacklevel=3)
+        if ident.meas_rank < d2 - 1:
+            warnings.warn(
+                f"the analyser effects span only {ident.meas_rank} of {d2 - 1} traceless output "
+                f"directions: the output Pauli components {_short(ident.missing_outputs)} are not "
+                f"measured; the fit still runs", GatescopeWarning, stacklevel=3)
+        if ident.prep_rank == d2 and ident.meas_rank == d2 - 1 and not ident.complete:
+            warnings.warn(
+                f"the (prep, meas) pairs present determine only {ident.rank} of "
+                f"{ident.n_parameters} process parameters; the fit still runs",
+                GatescopeWarning, stacklevel=3)
+        return ident
+
+
+def _span(vectors: np.ndarray, labels) -> tuple[int, list[str]]:
+    """Rank of the rows of ``vectors`` and the Pauli labels they miss."""
+    _, s, vt = np.linalg.svd(vectors, full_matrices=True)
+    tol = max(vectors.shape) * np.finfo(float).eps * (s[0] if s.size else 1.0) * 100
+    rank = int(np.sum(s > tol))
+    null = vt[rank:]
+    missing = []
+    if null.size:
+        weight = np.sum(null ** 2, axis=0)
+        missing = [labels[i] for i in np.argsort(-weight) if weight[i] > 0.5]
+        if not missing:
+            missing = [labels[i] for i in np.argsort(-weight)[: null.shape[0]]]
+    return rank, missing
+
+
+def _short(labels, limit: int = 8) -> str:
+    labels = list(labels)
+    text = ", ".join(labels[:limit])
+    return text + (f" and {len(labels) - limit} more" if len(labels) > limit else "")

@@ -1,0 +1,282 @@
+"""The `Result` of a fit and its HDF5 file (CONTRACT §5).
+
+The file is readable from any HDF5 tool: no pickled objects, complex arrays
+as native complex, strings as UTF-8. `Result.save` writes to a temporary
+file beside the target and renames it, so a reader never sees half a file
+and a failure leaves nothing behind. `load_result` reads every field back
+exactly.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from .errors import InputError
+from .figures import FIGURE_NAMES
+from .fileio import atomic_path
+
+FORMAT = "gatescope.result"
+FORMAT_VERSION = 1
+
+
+@dataclass
+class Figure:
+    """One figure of merit: its value and, when error bars were computed, an interval.
+
+    ``ci`` is (low, high) at confidence ``level`` (a fraction, e.g. 0.95).
+    """
+
+    value: float
+    ci: tuple[float, float] | None = None
+    level: float | None = None
+
+    def __float__(self) -> float:
+        return float(self.value)
+
+
+@dataclass
+class Diagnostics:
+    """Goodness of fit of the estimate to the rows.
+
+    Pearson residuals are (n − ν)/√ν; deviance residuals
+    sign(n − ν)·√(2[n log(n/ν) − (n − ν)]). ``dof`` is the number of rows
+    minus the process parameters the data determine minus the number of
+    fitted intensities.
+    """
+
+    expected_counts: np.ndarray
+    pearson_residuals: np.ndarray
+    deviance_residuals: np.ndarray
+    chi2: float
+    deviance: float
+    dof: int
+
+
+@dataclass
+class Bootstrap:
+    """Resampled figures: one row per resample, one column per name."""
+
+    figures: np.ndarray
+    names: tuple[str, ...]
+    kind: str
+    seed: int
+    samples: int
+    failures: int = 0
+    interval: str = "percentile"
+
+
+@dataclass
+class Result:
+    """Everything a fit produced; the in-memory form of the result file.
+
+    Attributes
+    ----------
+    choi, chi, ptm : arrays in the conventions of CONTRACT §2
+    figures : dict name → Figure
+    method, converged, iterations, log_likelihood, stop_reason, seconds :
+        the estimator's report (`gatescope.estimators.Fit`)
+    intensities : fitted λ of every normalisation group
+    diagnostics : Diagnostics
+    provenance : dict of str/number, see CONTRACT §5
+    experiment_toml, toml_sha256, csv_sha256 : the input files
+    counts_columns : dict column → array, the CSV as read (plus
+        ``prep_index`` and ``meas_index``)
+    prep_states, meas_effects : the model's density matrices and effects
+    target : the target unitary or None; target_name its name
+    bootstrap : Bootstrap or None
+    """
+
+    choi: np.ndarray
+    chi: np.ndarray
+    ptm: np.ndarray
+    figures: dict
+    method: str
+    converged: bool
+    iterations: int
+    log_likelihood: float
+    stop_reason: str
+    seconds: float
+    intensities: np.ndarray
+    diagnostics: Diagnostics
+    provenance: dict
+    experiment_toml: str
+    toml_sha256: str
+    csv_sha256: str
+    counts_columns: dict
+    prep_states: np.ndarray
+    meas_effects: np.ndarray
+    target: np.ndarray | None = None
+    target_name: str | None = None
+    bootstrap: Bootstrap | None = None
+    created_utc: str = field(default_factory=lambda: _dt.datetime.now(_dt.timezone.utc).isoformat())
+
+    def save(self, path) -> Path:
+        """Write the CONTRACT §5 layout to ``path`` atomically; returns the path."""
+        path = Path(path)
+        with atomic_path(path) as tmp:
+            with h5py.File(tmp, "w") as f:
+                _write(f, self)
+        return path
+
+
+_STR = h5py.string_dtype("utf-8")
+
+
+def _write(f: h5py.File, r: Result) -> None:
+    f.attrs["format"] = FORMAT
+    f.attrs["format_version"] = FORMAT_VERSION
+    f.attrs["created_utc"] = r.created_utc
+
+    inp = f.create_group("input")
+    ds = inp.create_dataset("experiment_toml", data=r.experiment_toml, dtype=_STR)
+    ds.attrs["sha256"] = r.toml_sha256
+    counts = inp.create_group("counts")
+    counts.attrs["sha256"] = r.csv_sha256
+    for name, values in r.counts_columns.items():
+        values = np.asarray(values)
+        if values.dtype.kind in "OUS":
+            counts.create_dataset(name, data=np.array(values, dtype=object), dtype=_STR)
+        else:
+            counts.create_dataset(name, data=values)
+
+    model = f.create_group("model")
+    model.create_dataset("prep_states", data=np.asarray(r.prep_states, dtype=np.complex128))
+    model.create_dataset("meas_effects", data=np.asarray(r.meas_effects, dtype=np.complex128))
+    if r.target is not None:
+        t = model.create_dataset("target_unitary", data=np.asarray(r.target, dtype=np.complex128))
+        t.attrs["name"] = r.target_name or ""
+
+    est = f.create_group("estimate")
+    est.create_dataset("choi", data=np.asarray(r.choi, dtype=np.complex128))
+    est.create_dataset("chi", data=np.asarray(r.chi, dtype=np.complex128))
+    est.create_dataset("ptm", data=np.asarray(r.ptm, dtype=np.float64))
+    est.create_dataset("intensities", data=np.asarray(r.intensities, dtype=np.float64))
+    est.attrs["method"] = r.method
+    est.attrs["converged"] = bool(r.converged)
+    est.attrs["iterations"] = int(r.iterations)
+    est.attrs["log_likelihood"] = float(r.log_likelihood)
+    est.attrs["stop_reason"] = r.stop_reason
+    est.attrs["seconds"] = float(r.seconds)
+
+    figs = f.create_group("figures")
+    for name, fig in r.figures.items():
+        ds = figs.create_dataset(name, data=np.float64(fig.value))
+        if fig.ci is not None:
+            ds.attrs["ci_low"] = float(fig.ci[0])
+            ds.attrs["ci_high"] = float(fig.ci[1])
+            ds.attrs["ci_level"] = float(fig.level)
+
+    if r.bootstrap is not None:
+        b = f.create_group("bootstrap")
+        ds = b.create_dataset("figures", data=np.asarray(r.bootstrap.figures, dtype=np.float64))
+        ds.attrs["names"] = np.array(r.bootstrap.names, dtype=object).astype(_STR)
+        b.attrs["kind"] = r.bootstrap.kind
+        b.attrs["seed"] = int(r.bootstrap.seed)
+        b.attrs["samples"] = int(r.bootstrap.samples)
+        b.attrs["failures"] = int(r.bootstrap.failures)
+        b.attrs["interval"] = r.bootstrap.interval
+
+    prov = f.create_group("provenance")
+    for key, value in r.provenance.items():
+        prov.attrs[key] = "" if value is None else value
+
+    dg = f.create_group("diagnostics")
+    d = r.diagnostics
+    dg.create_dataset("expected_counts", data=np.asarray(d.expected_counts, dtype=np.float64))
+    dg.create_dataset("pearson_residuals", data=np.asarray(d.pearson_residuals, dtype=np.float64))
+    dg.create_dataset("deviance_residuals", data=np.asarray(d.deviance_residuals, dtype=np.float64))
+    dg.attrs["chi2"] = float(d.chi2)
+    dg.attrs["deviance"] = float(d.deviance)
+    dg.attrs["dof"] = int(d.dof)
+
+
+def _attr(obj, key, default=None):
+    v = obj.attrs.get(key, default)
+    if isinstance(v, bytes):
+        v = v.decode("utf-8")
+    if isinstance(v, np.generic):
+        v = v.item()
+    return v
+
+
+def _text(ds) -> str:
+    v = ds[()]
+    return v.decode("utf-8") if isinstance(v, bytes) else str(v)
+
+
+def load_result(path) -> Result:
+    """Read a result file written by `Result.save`.
+
+    Raises
+    ------
+    InputError
+        If the file is missing, not HDF5, or not a gatescope result.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputError("file not found", file=str(path))
+    try:
+        f = h5py.File(path, "r")
+    except OSError:
+        raise InputError("not an HDF5 file", file=str(path)) from None
+    with f:
+        if _attr(f, "format") != FORMAT:
+            raise InputError(f"not a {FORMAT} file (attribute 'format' is {_attr(f, 'format')!r})",
+                             file=str(path), key="/format")
+        version = _attr(f, "format_version")
+        if version != FORMAT_VERSION:
+            raise InputError(f"format_version {version} is not supported (this reader: {FORMAT_VERSION})",
+                             file=str(path), key="/format_version")
+        counts = {}
+        for name, ds in f["input/counts"].items():
+            if h5py.check_string_dtype(ds.dtype) is not None:
+                counts[name] = np.array([s.decode("utf-8") if isinstance(s, bytes) else s
+                                         for s in ds[()]], dtype=object)
+            else:
+                counts[name] = ds[()]
+        figures = {}
+        order = {name: k for k, name in enumerate(FIGURE_NAMES)}
+        for name in sorted(f["figures"], key=lambda n: (order.get(n, len(order)), n)):
+            ds = f["figures"][name]
+            ci = None
+            level = None
+            if "ci_low" in ds.attrs:
+                ci = (float(ds.attrs["ci_low"]), float(ds.attrs["ci_high"]))
+                level = float(ds.attrs["ci_level"])
+            figures[name] = Figure(float(ds[()]), ci, level)
+        est = f["estimate"]
+        boot = None
+        if "bootstrap" in f:
+            b = f["bootstrap"]
+            names = tuple(s.decode("utf-8") if isinstance(s, bytes) else str(s)
+                          for s in b["figures"].attrs["names"])
+            boot = Bootstrap(b["figures"][()], names, _attr(b, "kind"), int(_attr(b, "seed")),
+                             int(_attr(b, "samples")), int(_attr(b, "failures", 0)),
+                             _attr(b, "interval", "percentile"))
+        target = target_name = None
+        if "target_unitary" in f["model"]:
+            target = f["model/target_unitary"][()]
+            target_name = _attr(f["model/target_unitary"], "name")
+        dg = f["diagnostics"]
+        diagnostics = Diagnostics(dg["expected_counts"][()], dg["pearson_residuals"][()],
+                                  dg["deviance_residuals"][()], float(_attr(dg, "chi2")),
+                                  float(_attr(dg, "deviance")), int(_attr(dg, "dof")))
+        prov = {k: _attr(f["provenance"], k) for k in f["provenance"].attrs}
+        return Result(
+            choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()], figures=figures,
+            method=_attr(est, "method"), converged=bool(_attr(est, "converged")),
+            iterations=int(_attr(est, "iterations")), log_likelihood=float(_attr(est, "log_likelihood")),
+            stop_reason=_attr(est, "stop_reason"), seconds=float(_attr(est, "seconds")),
+            intensities=est["intensities"][()], diagnostics=diagnostics, provenance=prov,
+            experiment_toml=_text(f["input/experiment_toml"]),
+            toml_sha256=_attr(f["input/experiment_toml"], "sha256"),
+            csv_sha256=_attr(f["input/counts"], "sha256"), counts_columns=counts,
+            prep_states=f["model/prep_states"][()], meas_effects=f["model/meas_effects"][()],
+            target=target, target_name=target_name, bootstrap=boot,
+            created_utc=_attr(f, "created_utc"),
+        )
