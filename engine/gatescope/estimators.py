@@ -127,7 +127,7 @@ def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarr
 
 
 def fit_lin(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
-            maxiter: int = 5) -> Fit:
+            maxiter: int = 200) -> Fit:
     """Linear inversion by least squares on relative frequencies.
 
     Relative frequencies are f_k = (n_k − b_k)/(λ_g s_k e_k). The
@@ -149,18 +149,20 @@ def fit_lin(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         ptm = _linear_least_squares(model, freq)
         choi = ptm_to_choi(ptm)
         probs = model.forward(choi)
-        if lam_prev is not None and np.allclose(lam, lam_prev, rtol=tol, atol=0):
+        settled = lam_prev is not None and np.allclose(lam, lam_prev, rtol=tol, atol=0)
+        if settled:
             break
         lam_prev = lam
     ev = lik.evaluate(choi)
     min_eig = float(np.linalg.eigvalsh(choi)[0])
-    return Fit("lin", choi, ev.intensities, ev.log_likelihood, True, passes,
-               "closed-form least squares", time.perf_counter() - t0,
-               {"min_eigenvalue": min_eig})
+    reason = ("least squares; intensities settled after {} passes".format(passes) if settled
+              else "least squares; intensities still changing after the last pass")
+    return Fit("lin", choi, ev.intensities, ev.log_likelihood, bool(settled), passes, reason,
+               time.perf_counter() - t0, {"min_eigenvalue": min_eig})
 
 
 def fit_pls(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
-            maxiter: int = 5) -> Fit:
+            maxiter: int = 200) -> Fit:
     """Projected least squares: the ``lin`` estimate projected onto CPTP maps."""
     t0 = time.perf_counter()
     lin = fit_lin(model, counts=counts, tol=tol, maxiter=maxiter)

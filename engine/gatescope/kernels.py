@@ -155,3 +155,153 @@ def poisson_terms_numpy(counts, base, background, lam, group_index, exposure, we
         weights[:] = np.where(positive, (counts / np.where(positive, nu, 1.0) - 1.0) * lg * exposure,
                               -lg * exposure)
     return total
+
+
+# --------------------------------------------------------------------------
+# CPTP projection: the dual semismooth Newton method of gatescope.projection,
+# compiled. `projection.project_cptp_numpy` is its twin.
+# --------------------------------------------------------------------------
+
+@njit(cache=True)
+def _dual_point(x, y, d):
+    """Positive part of X + Y⊗I, the dual value θ(Y) and its gradient I − Tr_out J."""
+    n = d * d
+    z = x.copy()
+    for i in range(d):
+        for k in range(d):
+            yik = y[i, k]
+            for a in range(d):
+                z[i * d + a, k * d + a] += yik
+    w, q = np.linalg.eigh(z)
+    j = np.zeros((n, n), dtype=np.complex128)
+    theta = 0.0
+    for i in range(d):
+        theta += y[i, i].real
+    for r in range(n):
+        if w[r] > 0.0:
+            theta -= 0.5 * w[r] * w[r]
+            for a in range(n):
+                qa = w[r] * q[a, r]
+                for b in range(n):
+                    j[a, b] += qa * np.conj(q[b, r])
+    grad = np.zeros((d, d), dtype=np.complex128)
+    for i in range(d):
+        for k in range(d):
+            s = 0.0 + 0.0j
+            for a in range(d):
+                s += j[i * d + a, k * d + a]
+            grad[i, k] = (1.0 if i == k else 0.0) - s
+    return theta, w, q, j, grad
+
+
+@njit(cache=True)
+def _add_pair(jac, q, r, s, weight, d, transpose):
+    """jac += weight · t t^H with t = vec(T_rs) (or vec(T_rs^H)), T_rs = Tr_out |q_r><q_s|."""
+    n = d * d
+    t = np.zeros(n, dtype=np.complex128)
+    for k in range(d):
+        for l in range(d):
+            acc = 0.0 + 0.0j
+            for o in range(d):
+                acc += q[k * d + o, r] * np.conj(q[l * d + o, s])
+            if transpose:
+                t[l * d + k] = np.conj(acc)
+            else:
+                t[k * d + l] = acc
+    for a in range(n):
+        ta = weight * t[a]
+        for b in range(n):
+            jac[a, b] += ta * np.conj(t[b])
+
+
+@njit(cache=True)
+def _newton_matrix_kernel(w, q, d):
+    n = d * d
+    jac = np.zeros((n, n), dtype=np.complex128)
+    for r in range(n):
+        if w[r] <= 0.0:
+            continue
+        for s in range(n):
+            if w[s] > 0.0:
+                _add_pair(jac, q, r, s, 1.0, d, False)
+            else:
+                omega = w[r] / (w[r] - w[s])
+                _add_pair(jac, q, r, s, omega, d, False)
+                _add_pair(jac, q, r, s, omega, d, True)
+    return jac
+
+
+@njit(cache=True)
+def project_cptp_kernel(x, y0, tol, maxiter):
+    """Dual semismooth Newton projection onto CPTP maps (see gatescope.projection).
+
+    Returns (J, Y, iterations, ‖Tr_out J − I‖_F) before the final congruence.
+    """
+    n = x.shape[0]
+    d = int(np.rint(np.sqrt(n)))
+    y = y0.copy()
+    theta, w, q, j, grad = _dual_point(x, y, d)
+    res = np.sqrt(np.sum(np.abs(grad) ** 2))
+    it = 0
+    eye_n = np.eye(n).astype(np.complex128)
+    while res > tol and it < maxiter:
+        it += 1
+        jac = _newton_matrix_kernel(w, q, d)
+        mu = 1e-2 * min(1e-2, res) + 1e-14
+        step = np.linalg.solve(jac + mu * eye_n, grad.reshape(n)).reshape(d, d)
+        step = 0.5 * (step + step.conj().T)
+        slope = np.sum(np.conj(grad) * step).real
+        if slope <= 0.0:
+            step = grad / d
+            slope = np.sum(np.abs(grad) ** 2) / d
+        s = 1.0
+        while True:
+            theta_new, w_new, q_new, j_new, grad_new = _dual_point(x, y + s * step, d)
+            res_new = np.sqrt(np.sum(np.abs(grad_new) ** 2))
+            if theta_new >= theta + 1e-4 * s * slope or res_new <= (1.0 - 1e-4 * s) * res or s < 1e-8:
+                break
+            s *= 0.5
+        y = y + s * step
+        theta, w, q, j, grad, res = theta_new, w_new, q_new, j_new, grad_new, res_new
+    return j, y, it, res
+
+
+@njit(cache=True)
+def tp_congruence(j, d):
+    """(M⊗I) J (M⊗I)† with M = (Tr_out J)^{-1/2}: exact trace preservation, positivity kept.
+
+    Left unchanged when Tr_out J is far from I (smallest eigenvalue ≤ 0.5).
+    """
+    n = d * d
+    t = np.zeros((d, d), dtype=np.complex128)
+    for i in range(d):
+        for k in range(d):
+            for a in range(d):
+                t[i, k] += j[i * d + a, k * d + a]
+    t = 0.5 * (t + t.conj().T)
+    tw, tv = np.linalg.eigh(t)
+    if tw.min() <= 0.5:
+        out = 0.5 * (j + j.conj().T)
+        return out
+    m = np.zeros((d, d), dtype=np.complex128)
+    for r in range(d):
+        s = 1.0 / np.sqrt(tw[r])
+        for i in range(d):
+            for k in range(d):
+                m[i, k] += tv[i, r] * s * np.conj(tv[k, r])
+    # (M⊗I) J (M⊗I)†: entry [(i,a),(k,b)] = Σ_{i',k'} M[i,i'] J[(i',a),(k',b)] conj(M[k,k'])
+    tmp = np.zeros((n, n), dtype=np.complex128)
+    for i in range(d):
+        for ip in range(d):
+            mi = m[i, ip]
+            for a in range(d):
+                for col in range(n):
+                    tmp[i * d + a, col] += mi * j[ip * d + a, col]
+    out = np.zeros((n, n), dtype=np.complex128)
+    for k in range(d):
+        for kp in range(d):
+            mk = np.conj(m[k, kp])
+            for b in range(d):
+                for row in range(n):
+                    out[row, k * d + b] += tmp[row, kp * d + b] * mk
+    return 0.5 * (out + out.conj().T)

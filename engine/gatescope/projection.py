@@ -28,6 +28,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import kernels
+
 
 @dataclass
 class Projection:
@@ -84,9 +86,11 @@ def _newton_matrix(w: np.ndarray, q: np.ndarray, d: int) -> np.ndarray:
     return jac
 
 
-def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
-                 maxiter: int = 100) -> Projection:
-    """Euclidean (Frobenius) projection of a Hermitian d² × d² matrix onto CPTP maps.
+def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
+                       maxiter: int = 100) -> Projection:
+    """Euclidean (Frobenius) projection onto CPTP maps, in NumPy (twin of the kernel).
+
+    Same parameters and result as :func:`project_cptp`.
 
     Parameters
     ----------
@@ -144,9 +148,12 @@ def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: fl
         y = y + s * step
         theta, j, w, q, grad = cand
         res = res_new
-    converged = res <= tol
-    tp_residual = float(res)
-    # final congruence: exact trace preservation, positivity kept
+    return _finish(j, y, it, res, tol, d)
+
+
+def _finish(j, y, it, res, tol, d) -> Projection:
+    """Final congruence (exact trace preservation) and the result record."""
+    eye = np.eye(d)
     tr_out = _partial_trace_out(j, d)
     tw, tv = np.linalg.eigh(0.5 * (tr_out + tr_out.conj().T))
     if tw.min() > 0.5:
@@ -154,4 +161,44 @@ def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: fl
         big = np.kron(m, eye)
         j = big @ j @ big.conj().T
     j = 0.5 * (j + j.conj().T)
-    return Projection(choi=j, multiplier=y, iterations=it, tp_residual=tp_residual, converged=converged)
+    return Projection(choi=j, multiplier=y, iterations=it, tp_residual=float(res),
+                      converged=bool(res <= tol))
+
+
+#: Above this d the loops of the compiled Newton matrix lose to BLAS: use the NumPy twin.
+_KERNEL_MAX_DIM = 4
+
+
+def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
+                 maxiter: int = 100) -> Projection:
+    """Euclidean (Frobenius) projection of a Hermitian d² × d² matrix onto CPTP maps.
+
+    Parameters
+    ----------
+    x : (d², d²) complex array
+        Matrix to project; its Hermitian part is used.
+    multiplier : (d, d) complex array, optional
+        Warm start for the dual variable (``Projection.multiplier`` of a
+        previous, nearby call).
+    tol : float
+        Stop when ‖Tr_out J − I‖_F ≤ tol.
+    maxiter : int
+        Maximum number of Newton iterations.
+
+    Returns
+    -------
+    Projection
+        ``choi`` is positive semidefinite and trace preserving to rounding
+        error; ``tp_residual`` is the trace-preservation error the Newton
+        iteration left before the final congruence removed it.
+    """
+    n = x.shape[0]
+    d = int(round(np.sqrt(n)))
+    xh = np.ascontiguousarray(0.5 * (x + x.conj().T), dtype=np.complex128)
+    y0 = (np.zeros((d, d), dtype=np.complex128) if multiplier is None
+          else np.ascontiguousarray(multiplier, dtype=np.complex128))
+    if d > _KERNEL_MAX_DIM:
+        return project_cptp_numpy(xh, multiplier=y0, tol=tol, maxiter=maxiter)
+    j, y, it, res = kernels.project_cptp_kernel(xh, y0, float(tol), int(maxiter))
+    return Projection(choi=kernels.tp_congruence(j, d), multiplier=y, iterations=it,
+                      tp_residual=float(res), converged=bool(res <= tol))

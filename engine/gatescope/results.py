@@ -59,7 +59,27 @@ class Diagnostics:
 
 @dataclass
 class Bootstrap:
-    """Resampled figures: one row per resample, one column per name."""
+    """Resampled figures and the spread of the estimate (`gatescope.bootstrap`).
+
+    Attributes
+    ----------
+    figures : (B, K) float array, one row per resample, one column per name
+        (NaN in a row whose refit raised a numerical error)
+    names : the K figure names
+    kind : "parametric" or "nonparametric"
+    seed : the seed of ``numpy.random.SeedSequence`` the resamples were spawned from
+    samples : B
+    failures : refits that did not converge (including those that raised)
+    interval : construction of the ``ci`` of the figures ("bc", "percentile", "basic")
+    converged : (B,) bool, per resample
+    errors : refits that raised a numerical error (left out of intervals and stds)
+    choi_std, chi_std : complex arrays, element-wise standard deviations over
+        the resamples: std of the real parts + 1j × std of the imaginary parts
+    ptm_std : float array, element-wise standard deviation of the PTM
+    method : estimator of the refits
+    workers : processes used (the figures do not depend on it)
+    seconds : wall time of the bootstrap
+    """
 
     figures: np.ndarray
     names: tuple[str, ...]
@@ -68,6 +88,14 @@ class Bootstrap:
     samples: int
     failures: int = 0
     interval: str = "percentile"
+    converged: np.ndarray | None = None
+    errors: int = 0
+    choi_std: np.ndarray | None = None
+    chi_std: np.ndarray | None = None
+    ptm_std: np.ndarray | None = None
+    method: str = ""
+    workers: int = 1
+    seconds: float = 0.0
 
 
 @dataclass
@@ -180,6 +208,17 @@ def _write(f: h5py.File, r: Result) -> None:
         b.attrs["samples"] = int(r.bootstrap.samples)
         b.attrs["failures"] = int(r.bootstrap.failures)
         b.attrs["interval"] = r.bootstrap.interval
+        b.attrs["errors"] = int(r.bootstrap.errors)
+        b.attrs["method"] = r.bootstrap.method
+        b.attrs["workers"] = int(r.bootstrap.workers)
+        b.attrs["seconds"] = float(r.bootstrap.seconds)
+        if r.bootstrap.converged is not None:
+            b.create_dataset("converged", data=np.asarray(r.bootstrap.converged, dtype=bool))
+        for name, dtype in (("choi_std", np.complex128), ("chi_std", np.complex128),
+                            ("ptm_std", np.float64)):
+            value = getattr(r.bootstrap, name)
+            if value is not None:
+                b.create_dataset(name, data=np.asarray(value, dtype=dtype))
 
     prov = f.create_group("provenance")
     for key, value in r.provenance.items():
@@ -255,9 +294,13 @@ def load_result(path) -> Result:
             b = f["bootstrap"]
             names = tuple(s.decode("utf-8") if isinstance(s, bytes) else str(s)
                           for s in b["figures"].attrs["names"])
+            optional = {name: (b[name][()] if name in b else None)
+                        for name in ("converged", "choi_std", "chi_std", "ptm_std")}
             boot = Bootstrap(b["figures"][()], names, _attr(b, "kind"), int(_attr(b, "seed")),
                              int(_attr(b, "samples")), int(_attr(b, "failures", 0)),
-                             _attr(b, "interval", "percentile"))
+                             _attr(b, "interval", "percentile"), errors=int(_attr(b, "errors", 0)),
+                             method=_attr(b, "method", ""), workers=int(_attr(b, "workers", 1)),
+                             seconds=float(_attr(b, "seconds", 0.0)), **optional)
         target = target_name = None
         if "target_unitary" in f["model"]:
             target = f["model/target_unitary"][()]

@@ -1,0 +1,68 @@
+"""The measurement model: the structured map equals the dense design matrix."""
+
+import numpy as np
+import pytest
+
+from gatescope.channels import random_channel
+from gatescope.model import MeasurementModel
+
+
+def dense_design(exp):
+    """Row k of the dense design: vec((ρ_k^T ⊗ E_k)^T), so p = A · vec(J) (CONTRACT §3)."""
+    return np.array([np.kron(exp.prep_states[i].T, exp.meas_effects[j]).T.reshape(-1)
+                     for i, j in zip(exp.prep_index, exp.meas_index)])
+
+
+def random_hermitian(rng, n):
+    g = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+    return g + g.conj().T
+
+
+@pytest.mark.parametrize("spec, n_qubits", [("random:3:7", 1), ("random:4:8", 2)])
+def test_forward_and_adjoint_equal_dense(make_experiment, rng, spec, n_qubits):
+    exp, _ = make_experiment(spec, n_qubits=n_qubits, shots=100)
+    model = MeasurementModel(exp)
+    a = dense_design(exp)
+    d2 = exp.dim ** 2
+    for _ in range(3):
+        j = random_hermitian(rng, d2)
+        np.testing.assert_allclose(model.forward(j), (a @ j.reshape(-1)).real, atol=1e-12)
+        w = rng.normal(size=exp.n_rows)
+        # adjoint: Σ_k w_k ρ_k^T ⊗ E_k
+        dense_adj = np.einsum("k,kab->ab", w, a.reshape(-1, d2, d2).transpose(0, 2, 1))
+        np.testing.assert_allclose(model.adjoint(w), dense_adj, atol=1e-11)
+        # adjoint identity <A x, y> = <x, A* y>
+        assert np.vdot(model.adjoint(w), j).real == pytest.approx(w @ model.forward(j), abs=1e-9)
+
+
+def test_random_row_subset_and_repeats(make_experiment, rng, tmp_path):
+    exp, _ = make_experiment("random:2:3", shots=100)
+    lines = (exp.counts_path.read_text().splitlines())
+    keep = sorted(rng.choice(np.arange(1, len(lines)), size=300, replace=True))   # repeats allowed
+    (exp.counts_path).write_text("\n".join([lines[0]] + [lines[k] for k in keep]) + "\n")
+    from gatescope import read_experiment
+    sub = read_experiment(exp.path)
+    assert sub.n_rows == 300
+    model = MeasurementModel(sub)
+    a = dense_design(sub)
+    j = random_channel(2, 5, seed=11)
+    np.testing.assert_allclose(model.forward(j), (a @ j.reshape(-1)).real, atol=1e-12)
+
+
+def test_probabilities_of_a_channel_sum_to_bases(make_experiment):
+    # Six-state analysers form three complete bases per qubit, so for any trace-preserving
+    # channel the probabilities of one preparation sum to 3^n (common practice).
+    exp, choi = make_experiment("random:4:5", shots=100)
+    p = MeasurementModel(exp).forward(choi)
+    sums = np.bincount(exp.prep_index, weights=p)
+    np.testing.assert_allclose(sums, 9.0, atol=1e-12)
+
+
+def test_identifiability_complete_and_incomplete(make_experiment):
+    exp, _ = make_experiment("CZ", shots=100)
+    ident = MeasurementModel(exp).identifiability()
+    assert ident.complete and ident.rank == 240
+    exp2, _ = make_experiment("CZ", shots=100, prep=("H", "V", "D"))
+    ident2 = MeasurementModel(exp2).identifiability()
+    assert ident2.prep_rank == 9 and not ident2.complete
+    assert "YI" in ident2.missing_inputs or "IY" in ident2.missing_inputs
