@@ -80,3 +80,13 @@ def test_tp_congruence_matches_twin(rng):
     out = kernels.tp_congruence(j / vals.min() * 0.6, d)   # smallest eigenvalue 0.6 > 0.5
     tr_out = np.einsum("iaja->ij", out.reshape(d, d, d, d))
     np.testing.assert_allclose(tr_out, np.eye(d), atol=1e-12)
+
+
+@pytest.mark.parametrize("d", [2, 4])
+def test_newton_matrix_kernel_matches_twin(rng, d):
+    from gatescope.projection import _newton_matrix
+    n = d * d
+    x = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+    w, q = np.linalg.eigh(x + x.conj().T)
+    np.testing.assert_allclose(kernels._newton_matrix_kernel(w, q, d), _newton_matrix(w, q, d),
+                               atol=1e-12)

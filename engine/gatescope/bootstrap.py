@@ -76,6 +76,7 @@ import multiprocessing as mp
 import numbers
 import os
 import sys
+import threading
 import time
 import warnings
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -84,6 +85,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import ndtr, ndtri
+from tqdm import tqdm
 
 from .channels import choi_to_chi, choi_to_ptm
 from .errors import GatescopeWarning, InputError
@@ -254,6 +256,7 @@ def _init_worker(state: dict) -> None:
         numba.set_num_threads(1)
     except Exception:                 # numba missing or its threading layer unavailable
         pass
+    _limit_blas_threads()
     _WORKER = _Refitter(**state)
 
 
@@ -304,6 +307,13 @@ class _Accumulator:
         return np.sqrt(var_re) + 1j * np.sqrt(var_im)
 
 
+class _Bar(tqdm):
+    """tqdm without its monitor thread, which would outlive the bar and make a
+    later fork unsafe (`_fork_is_safe`)."""
+
+    monitor_interval = 0
+
+
 @contextmanager
 def _single_threaded_children():
     """Children started inside this block inherit one-thread settings for BLAS and numba."""
@@ -320,7 +330,90 @@ def _single_threaded_children():
                 os.environ[var] = value
 
 
+def _fork_is_safe() -> bool:
+    """True when forking this process cannot inherit a lock held by another thread.
+
+    That is: Linux (elsewhere system libraries are not fork safe), no Python
+    thread besides this one, and numba's threading layer not started here
+    (GNU OpenMP, one of its layers, does not survive a fork). OpenBLAS
+    re-creates its own threads after a fork (it registers fork handlers).
+    """
+    if not sys.platform.startswith("linux") or threading.active_count() > 1:
+        return False
+    try:
+        from numba.np.ufunc import parallel
+    except Exception:
+        return False
+    return getattr(parallel, "_is_initialized", True) is False
+
+
+def _limit_blas_threads() -> None:
+    """Ask every OpenBLAS loaded in this process to use one thread (best effort).
+
+    The environment variables only act on libraries loaded after they are
+    set; a forked worker inherits libraries already loaded, so it calls each
+    library's own setter. numpy and scipy wheels may each bring their own
+    OpenBLAS, with prefixed symbol names.
+    """
+    import ctypes
+
+    try:
+        with open("/proc/self/maps") as fh:
+            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
+    except OSError:
+        return
+    for path in sorted(paths):
+        try:
+            lib = ctypes.CDLL(path)
+        except OSError:
+            continue
+        for symbol in ("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
+                       "scipy_openblas_set_num_threads", "openblas_set_num_threads64_"):
+            setter = getattr(lib, symbol, None)
+            if setter is not None:
+                setter.argtypes = [ctypes.c_int]
+                setter.restype = None
+                setter(1)
+                break
+
+
+def _blas_thread_counts() -> list[int]:
+    """Threads of every OpenBLAS loaded in this process (for checking the workers)."""
+    import ctypes
+
+    counts = []
+    try:
+        with open("/proc/self/maps") as fh:
+            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
+    except OSError:
+        return counts
+    for path in sorted(paths):
+        try:
+            lib = ctypes.CDLL(path)
+        except OSError:
+            continue
+        for symbol in ("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
+                       "scipy_openblas_get_num_threads", "openblas_get_num_threads64_"):
+            getter = getattr(lib, symbol, None)
+            if getter is not None:
+                getter.restype = ctypes.c_int
+                counts.append(int(getter()))
+                break
+    return counts
+
+
+def _worker_threads() -> dict:
+    """Thread settings seen inside a worker: numba's and every OpenBLAS's."""
+    import numba
+
+    return {"numba": numba.get_num_threads(), "blas": _blas_thread_counts(),
+            "start_method": mp.get_start_method(allow_none=True)}
+
+
 def _pool_context():
+    """fork when `_fork_is_safe` (workers start at once), else forkserver, else spawn."""
+    if _fork_is_safe():
+        return mp.get_context("fork")
     if "forkserver" in mp.get_all_start_methods():
         ctx = mp.get_context("forkserver")
         # workers forked from the server find the package already imported
@@ -442,33 +535,37 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     chunks = [(first, seeds[first:first + size]) for first in range(0, samples, size)]
     workers = min(workers, len(chunks))
 
-    from tqdm import tqdm
     show = bool(progress) and hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
-    with tqdm(total=samples, desc="bootstrap", unit="fit", file=sys.stderr, disable=not show,
-              dynamic_ncols=True) as bar:
-        if workers == 1:
-            refitter = _Refitter(**state)
+
+    def bar():
+        return _Bar(total=samples, desc="bootstrap", unit="fit", file=sys.stderr,
+                    disable=not show, dynamic_ncols=True)
+
+    if workers == 1:
+        refitter = _Refitter(**state)
+        with bar() as b:
             for first, chunk_seeds in chunks:
                 for j in range(len(chunk_seeds)):
                     collect(refitter.run(first + j, chunk_seeds[j:j + 1]))
-                    bar.update(1)
-        else:
-            with _single_threaded_children():
-                pool = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(),
-                                           initializer=_init_worker, initargs=(state,))
-            with pool:
-                todo = {pool.submit(_run_chunk, first, s) for first, s in chunks}
-                try:
-                    while todo:
-                        done, todo = wait(todo, return_when=FIRST_COMPLETED)
-                        for fut in done:
-                            chunk = fut.result()
-                            collect(chunk)
-                            bar.update(len(chunk["ok"]))
-                except BaseException:
-                    for fut in todo:
-                        fut.cancel()
-                    raise
+                    b.update(1)
+    else:
+        # The pool (and, with fork, every worker) starts before the bar's monitor thread.
+        with _single_threaded_children():
+            pool = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(),
+                                       initializer=_init_worker, initargs=(state,))
+            todo = {pool.submit(_run_chunk, first, s) for first, s in chunks}
+        with pool, bar() as b:
+            try:
+                while todo:
+                    done, todo = wait(todo, return_when=FIRST_COMPLETED)
+                    for fut in done:
+                        chunk = fut.result()
+                        collect(chunk)
+                        b.update(len(chunk["ok"]))
+            except BaseException:
+                for fut in todo:
+                    fut.cancel()
+                raise
 
     n_errors = len(errors)
     failures = int(np.count_nonzero(~converged))

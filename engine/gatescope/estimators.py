@@ -182,7 +182,7 @@ def fit_pls(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
 
 def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
             maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
-            record: bool = False, proj_tol: float = 1e-9) -> Fit:
+            record: bool = False, proj_tol: float = 1e-9, proj_maxiter: int = 100) -> Fit:
     """Poisson maximum likelihood over CPTP maps (accelerated projected gradient).
 
     Parameters
@@ -252,7 +252,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
             # Inner projections may be inexact: every iterate is exactly CPTP anyway (positive
             # part, then the trace-preserving congruence), and the ascent test below is
             # made on the point actually obtained.
-            proj = project_cptp(y + step * grad, multiplier=mult, tol=proj_tol)
+            proj = project_cptp(y + step * grad, multiplier=mult, tol=proj_tol, maxiter=proj_maxiter)
             n_proj += 1
             cand = proj.choi
             ev_c = lik.evaluate(cand)
@@ -289,7 +289,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
             converged = True
             stop_reason = "relative likelihood change and optimality residual below tolerance"
             break
-        step *= 1.25
+        step *= 1.1
     return Fit("mle", x, ev_x.intensities, ev_x.log_likelihood, converged, it, stop_reason,
                time.perf_counter() - t0,
                {"optimality_residual": float(residual), "restarts": restarts,

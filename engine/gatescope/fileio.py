@@ -19,6 +19,9 @@ def atomic_path(path):
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)          # mkstemp makes 0600; results are ordinary files
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -195,40 +195,49 @@ def _dual_point(x, y, d):
 
 
 @njit(cache=True)
-def _add_pair(jac, q, r, s, weight, d, transpose):
-    """jac += weight · t t^H with t = vec(T_rs) (or vec(T_rs^H)), T_rs = Tr_out |q_r><q_s|."""
-    n = d * d
-    t = np.zeros(n, dtype=np.complex128)
-    for k in range(d):
-        for l in range(d):
-            acc = 0.0 + 0.0j
-            for o in range(d):
-                acc += q[k * d + o, r] * np.conj(q[l * d + o, s])
-            if transpose:
-                t[l * d + k] = np.conj(acc)
-            else:
-                t[k * d + l] = acc
-    for a in range(n):
-        ta = weight * t[a]
-        for b in range(n):
-            jac[a, b] += ta * np.conj(t[b])
-
-
-@njit(cache=True)
 def _newton_matrix_kernel(w, q, d):
+    """Σ_rs Ω_rs t_rs t_rs^H, t_rs = vec(Tr_out |q_r><q_s|) (twin: projection._newton_matrix)."""
     n = d * d
-    jac = np.zeros((n, n), dtype=np.complex128)
+    n_pos = 0
+    for r in range(n):
+        if w[r] > 0.0:
+            n_pos += 1
+    n_neg = n - n_pos
+    if n_pos == 0:
+        return np.zeros((n, n), dtype=np.complex128)
+    # b[o, l*n + s] = conj(q[l*d + o, s]), so that (a_r @ b)[k, l*n + s] = T_rs[k, l]
+    b = np.empty((d, d * n), dtype=np.complex128)
+    for o in range(d):
+        for l in range(d):
+            for s_ in range(n):
+                b[o, l * n + s_] = np.conj(q[l * d + o, s_])
+    rows = n_pos * n + n_pos * n_neg
+    tw = np.empty((rows, n), dtype=np.complex128)
+    a = np.empty((d, d), dtype=np.complex128)
+    row = 0
+    row_mirror = n_pos * n
     for r in range(n):
         if w[r] <= 0.0:
             continue
-        for s in range(n):
-            if w[s] > 0.0:
-                _add_pair(jac, q, r, s, 1.0, d, False)
+        for k in range(d):
+            for o in range(d):
+                a[k, o] = q[k * d + o, r]
+        t = a @ b                                   # [k, l*n + s]
+        for s_ in range(n):
+            if w[s_] > 0.0:
+                weight = 1.0
             else:
-                omega = w[r] / (w[r] - w[s])
-                _add_pair(jac, q, r, s, omega, d, False)
-                _add_pair(jac, q, r, s, omega, d, True)
-    return jac
+                weight = np.sqrt(w[r] / (w[r] - w[s_]))
+            for k in range(d):
+                for l in range(d):
+                    v = weight * t[k, l * n + s_]
+                    tw[row, k * d + l] = v
+                    if w[s_] <= 0.0:
+                        tw[row_mirror, l * d + k] = np.conj(v)   # vec(T_rs^H), the (s, r) pair
+            row += 1
+            if w[s_] <= 0.0:
+                row_mirror += 1
+    return tw.T @ np.conj(tw)
 
 
 @njit(cache=True)

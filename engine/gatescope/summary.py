@@ -16,11 +16,23 @@ LABELS = {
 }
 
 
+def _num(x: float) -> str:
+    if abs(x) < 5e-13:
+        return "0"
+    return f"{x:.5f}" if abs(x) >= 1e-4 else f"{x:.3g}"
+
+
+def _signed(x: float) -> str:
+    return ("−" if x < 0 else "+") + _num(abs(x))
+
+
 def _fmt_figure(fig) -> str:
     if fig.ci is None:
-        return f"{fig.value:.5f}" if abs(fig.value) >= 1e-4 or fig.value == 0 else f"{fig.value:.3g}"
+        return _num(fig.value)
     lo, hi = fig.ci
-    return f"{fig.value:.5f}  [{lo:.5f}, {hi:.5f}] at {100 * fig.level:g}%"
+    # value with the distances to the interval ends, then the interval itself
+    return (f"{_num(fig.value)} {_signed(hi - fig.value)} {_signed(lo - fig.value)}  "
+            f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%")
 
 
 def summary(result: Result) -> str:
@@ -40,8 +52,10 @@ def summary(result: Result) -> str:
         lines.append(f"  {LABELS.get(name, name):24s} {_fmt_figure(fig)}")
     if r.bootstrap is not None:
         b = r.bootstrap
-        lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples, {b.interval} intervals, "
-                     f"seed {b.seed}, {b.failures} failed)")
+        refit = f" refitted with {b.method}" if b.method else ""
+        errors = f", {b.errors} raised an error" if b.errors else ""
+        lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
+                     f"seed {b.seed}; {b.failures} did not converge{errors})")
     lines.append("")
     lines.append("fit")
     lines.append(f"  method {r.method}, converged {'yes' if r.converged else 'NO'}, "
