@@ -193,7 +193,8 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
     start : (d², d²) array, optional
         Starting Choi matrix (CPTP); default the ``pls`` estimate. It is
         mixed with a fraction ``mix`` of the completely depolarising channel
-        so that every row starts with a positive rate.
+        (more, up to all of it, if that still leaves a row with counts at
+        rate zero) so that every row starts with a positive rate.
     tol : float
         Stop when the relative change of the log-likelihood over one step is
         below ``tol`` and the optimality residual below ``opt_tol``.
@@ -221,11 +222,14 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         start, mult = pls.choi, pls.info["multiplier"]
     else:
         mult = None
-    x = (1.0 - mix) * np.asarray(start, dtype=complex) + mix * np.eye(d2) / d
-    ev = lik.evaluate(x)
-    if not ev.finite:                      # a start that forbids observed counts
-        x = np.eye(d2, dtype=complex) / d
+    # Mix in as little of the completely depolarising channel as it takes for every row
+    # with counts to have a positive rate (a warm start sits on the boundary of the set).
+    depolarized = np.eye(d2, dtype=complex) / d
+    for amount in (mix, 1e-2, 1e-1, 1.0):
+        x = (1.0 - amount) * np.asarray(start, dtype=complex) + amount * depolarized
         ev = lik.evaluate(x)
+        if ev.finite:
+            break
     x_prev = x
     ev_x = ev
     momentum = 1.0
