@@ -103,14 +103,22 @@ _HEADER = re.compile(r"^\s*\[\s*([^\]\[]+?)\s*\]\s*(#.*)?$")
 
 
 def _key_line(text: str, dotted: str) -> int | None:
-    """Best-effort physical line of a dotted key in TOML text."""
+    """Best-effort physical line of a dotted key in TOML text.
+
+    Looks for ``key =`` inside its table, then for a table header that names
+    the key or starts with it (``[state.Dtilt]`` for ``state``), then for its
+    parent (a key inside an inline table is on its parent's line).
+    """
     parts = dotted.split(".")
     table, key = ".".join(parts[:-1]), parts[-1]
     current = ""
-    for lineno, line in enumerate(text.splitlines(), start=1):
+    lines = text.splitlines()
+    headers = []
+    for lineno, line in enumerate(lines, start=1):
         m = _HEADER.match(line)
         if m:
             current = m.group(1).replace('"', "").replace(" ", "")
+            headers.append((lineno, current))
             if current == dotted:
                 return lineno
             continue
@@ -118,6 +126,11 @@ def _key_line(text: str, dotted: str) -> int | None:
             return lineno
         if table and current == "" and re.match(rf"^\s*{re.escape(dotted)}\s*=", line):
             return lineno
+    for lineno, name in headers:
+        if name.startswith(dotted + "."):
+            return lineno
+    if table:                     # inside an inline table, or a key of an unlisted table
+        return _key_line(text, table)
     return None
 
 
@@ -393,8 +406,18 @@ def read_experiment(path) -> Experiment:
     )
 
 
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$|^[+-]?(nan|inf|infinity)$", re.I)
+
+
+def _number(text: str) -> float:
+    """A decimal number as written in a CSV cell (no underscores, no hex)."""
+    if not _NUMBER.match(text):
+        raise ValueError(f"{text!r} is not a number")
+    return float(text)
+
+
 def _parse_counts_cell(text: str) -> int:
-    x = float(text)                       # ValueError for junk
+    x = _number(text)
     if not math.isfinite(x):
         raise ValueError(f"counts must be finite, got {text!r}")
     if x < 0:
@@ -407,7 +430,7 @@ def _parse_counts_cell(text: str) -> int:
 
 
 def _parse_positive_cell(text: str, column: str, *, allow_zero: bool) -> float:
-    x = float(text)
+    x = _number(text)
     if not math.isfinite(x):
         raise ValueError(f"{column} must be finite, got {text!r}")
     if x < 0 or (x == 0 and not allow_zero):
@@ -442,13 +465,15 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
     if not text.strip():
         raise InputError("the counts file is empty", file=file, line=1)
 
-    reader = csv.reader(io.StringIO(text, newline=""))
+    reader = csv.reader(io.StringIO(text, newline=""), skipinitialspace=True)
     header = None
     for cells in reader:
         if any(c.strip() for c in cells):
             header = [c.strip() for c in cells]
             break
     header_line = reader.line_num
+    if header is None:
+        raise InputError("the counts file has no header row (only empty cells)", file=file, line=1)
     allowed = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
     for col in header:
         if col not in allowed:
@@ -515,7 +540,7 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
                         raise ValueError("empty cell in column 'group'")
             except ValueError as exc:
                 msg = str(exc)
-                if "could not convert" in msg or "invalid literal" in msg:
+                if "is not a number" in msg:
                     msg = f"column '{col}': {value!r} is not a number"
                 raise InputError(msg, file=file, line=line) from None
             cols[col].append(value)

@@ -1,0 +1,413 @@
+"""The experiment reader (CONTRACT §3) and how the command line reports bad input."""
+
+from __future__ import annotations
+
+import re
+import subprocess
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import gatescope as gs
+from gatescope import cli
+from gatescope.estimators import fit_mle
+from gatescope.model import MeasurementModel
+
+SQ = 1 / np.sqrt(2)
+KET = {
+    "H": np.array([1, 0], dtype=complex), "V": np.array([0, 1], dtype=complex),
+    "D": np.array([SQ, SQ], dtype=complex), "A": np.array([SQ, -SQ], dtype=complex),
+    "H-iV": np.array([SQ, -1j * SQ]), "H+iV": np.array([SQ, 1j * SQ]),
+}
+
+
+def proj(v):
+    return np.outer(v, np.conj(v))
+
+
+def write_case(folder: Path, toml: str, csv: str | None, csv_name: str = "counts.csv") -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / "experiment.toml"
+    path.write_text(toml, encoding="utf-8")
+    if csv is not None:
+        (folder / csv_name).write_text(csv, encoding="utf-8")
+    return path
+
+
+def toml_1q(extra: str = "") -> str:
+    return 'title = "bench A"\nqubits = 1\ncounts = "counts.csv"\n' + extra
+
+
+def toml_2q(extra: str = "") -> str:
+    return 'title = "bench A"\nqubits = 2\ncounts = "counts.csv"\n' + extra
+
+
+GOOD_1Q = "prep,meas,counts\nH,H,90\nH,V,10\nD,D,80\n"
+GOOD_2Q = "prep,meas,counts\nHH,HH,90\nHD,HV,10\n"
+
+
+def case(id, toml, csv, *, file, line=None, key=None, words=()):
+    return pytest.param(dict(toml=toml, csv=csv, file=file, line=line, key=key, words=words), id=id)
+
+
+# Every bad input: which file the message must name, and the line (CSV, TOML) or key (TOML).
+BAD_INPUTS = [
+    # -- TOML keys
+    case("unknown-toml-key", 'title = "x"\nqubits = 1\nbackground = 3\ncounts = "counts.csv"\n', GOOD_1Q,
+         file="toml", line=3, key="background", words=("background",)),
+    case("unknown-key-in-table", toml_1q('[conventions]\nright_circular = "H-iV"\nhandedness = "left"\n'),
+         GOOD_1Q, file="toml", line=6, key="conventions.handedness", words=("handedness",)),
+    case("unknown-key-in-state", toml_1q('[states.Dtilt]\nbloch = [0.99, 0.0, 0.14]\ncolour = "red"\n'),
+         GOOD_1Q, file="toml", line=6, key="states.Dtilt.colour", words=("colour",)),
+    case("missing-qubits", 'title = "x"\ncounts = "counts.csv"\n', GOOD_1Q,
+         file="toml", key="qubits", words=("qubits",)),
+    case("missing-counts", 'title = "x"\nqubits = 1\n', GOOD_1Q,
+         file="toml", key="counts", words=("counts",)),
+    # -- CSV structure
+    case("missing-csv-column", toml_1q(), "prep,counts\nH,5\n",
+         file="csv", line=1, words=("meas",)),
+    case("unknown-csv-column", toml_1q(), "prep,meas,counts,backgrund\nH,H,5,0.1\n",
+         file="csv", line=1, words=("backgrund",)),
+    case("empty-csv", toml_1q(), "", file="csv", line=1, words=("empty",)),
+    case("header-only", toml_1q(), "prep,meas,counts\n", file="csv", line=1),
+    # -- CSV values (the header is line 1; physical lines, blank ones included)
+    case("negative-counts", toml_1q(), "prep,meas,counts\nH,H,5\nH,V,-1\n",
+         file="csv", line=3, words=("-1",)),
+    case("fractional-counts", toml_1q(), "prep,meas,counts\nH,H,12.5\n",
+         file="csv", line=2, words=("12.5",)),
+    case("nan-counts", toml_1q(), "prep,meas,counts\nH,H,5\nH,V,5\nV,V,nan\n",
+         file="csv", line=4, words=("nan",)),
+    case("bad-row-after-blank-lines", toml_1q(), "prep,meas,counts\nH,H,5\n\n\nH,V,-3\n",
+         file="csv", line=5, words=("-3",)),
+    case("unknown-label", toml_1q(), "prep,meas,counts\nH,H,5\nQ,H,5\n",
+         file="csv", line=3, words=("Q",)),
+    case("lower-case-label", toml_1q(), "prep,meas,counts\nh,H,5\n",
+         file="csv", line=2, words=("h",)),
+    case("label-wrong-qubit-count", toml_2q(), "prep,meas,counts\nHH,HH,5\nHH,H,5\n",
+         file="csv", line=3, words=("H",)),
+    case("label-too-many-qubits", toml_2q(), "prep,meas,counts\nHDV,HH,5\n",
+         file="csv", line=2, words=("HDV",)),
+    case("zero-seconds", toml_1q(), "prep,meas,counts,seconds\nH,H,5,1\nH,V,5,0\n",
+         file="csv", line=3, words=("seconds",)),
+    case("negative-seconds", toml_1q(), "prep,meas,counts,seconds\nH,H,5,-2\n",
+         file="csv", line=2, words=("seconds",)),
+    case("zero-efficiency", toml_1q(), "prep,meas,counts,efficiency\nH,H,5,0\n",
+         file="csv", line=2, words=("efficiency",)),
+    case("negative-efficiency", toml_1q(), "prep,meas,counts,efficiency\nH,H,5,1\nV,V,5,-0.5\n",
+         file="csv", line=3, words=("efficiency",)),
+    # -- target
+    case("target-not-unitary", toml_1q('target = { unitary = [["1", "0"], ["0", "2"]] }\n'), GOOD_1Q,
+         file="toml", line=4, key="target", words=("unitary",)),
+    case("target-wrong-size", toml_1q('target = "CNOT"\n'), GOOD_1Q,
+         file="toml", line=4, key="target"),
+    case("target-unknown-gate", toml_1q('target = "CNOTT"\n'), GOOD_1Q,
+         file="toml", line=4, key="target", words=("CNOTT",)),
+    # -- custom states
+    case("state-name-is-builtin", toml_1q('[states.H]\nbloch = [0, 0, 1]\n'), GOOD_1Q,
+         file="toml", line=4, key="states.H", words=("H",)),
+    case("bloch-too-long", toml_1q('[states.Dtilt]\nbloch = [0.9, 0.0, 0.5]\n'), GOOD_1Q,
+         file="toml", line=5, key="states.Dtilt.bloch", words=("Bloch",)),
+    case("zero-vector", toml_1q('[states.Nothing]\nvector = ["0", "0j"]\n'), GOOD_1Q,
+         file="toml", line=5, key="states.Nothing.vector", words=("zero",)),
+    case("unknown-plate-kind", toml_1q('[states.Hmis]\nplates = [ { kind = "full", angle_deg = 0.4 } ]\n'),
+         GOOD_1Q, file="toml", line=5, key="states.Hmis.plates", words=("full",)),
+]
+
+
+def expected_file(folder: Path, which: str) -> Path:
+    return folder / ("experiment.toml" if which == "toml" else "counts.csv")
+
+
+def check_message(err: gs.InputError, folder: Path, spec: dict) -> None:
+    text = str(err)
+    target = expected_file(folder, spec["file"])
+    assert err.file is not None and Path(err.file).resolve() == target.resolve(), text
+    assert str(err.file) in text and target.name in text
+    if spec["line"] is not None:
+        assert err.line == spec["line"], text
+        assert f"line {spec['line']}" in text
+    if spec["key"] is not None:
+        assert err.key == spec["key"], text
+        assert spec["key"] in text
+    for word in spec["words"]:
+        assert word in text, (word, text)
+
+
+@pytest.mark.parametrize("spec", BAD_INPUTS)
+def test_bad_input_is_an_input_error_naming_file_and_place(tmp_path, spec):
+    path = write_case(tmp_path, spec["toml"], spec["csv"])
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    check_message(info.value, tmp_path, spec)
+
+
+def test_missing_counts_file_names_it(tmp_path):
+    path = write_case(tmp_path, toml_1q(), None)
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    assert "counts.csv" in str(info.value)
+
+
+def test_csv_of_only_separators_is_an_input_error(tmp_path):
+    path = write_case(tmp_path, toml_1q(), ",,\n,,\n")
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    assert "counts.csv" in str(info.value)
+
+
+@pytest.mark.parametrize("toml,line,key", [
+    (toml_1q('[state.Dtilt]\nbloch = [0.99, 0.0, 0.14]\n'), 4, "state"),
+    (toml_1q('target = { unitary = [["1", "0"], ["0", "1"]], name = "id" }\n'), 4, "target.name"),
+    (toml_1q('conventions = { right_circular = "H-iV", hand = "left" }\n'), 4, "conventions.hand"),
+], ids=["misspelt-table-header", "inline-target-table", "inline-conventions-table"])
+def test_unknown_keys_everywhere_name_their_line(tmp_path, toml, line, key):
+    path = write_case(tmp_path, toml, GOOD_1Q)
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    assert info.value.key == key
+    assert info.value.line == line, str(info.value)
+
+
+# --------------------------------------------------------------------------
+# What the reader accepts
+# --------------------------------------------------------------------------
+
+def read(tmp_path, toml, csv):
+    return gs.read_experiment(write_case(tmp_path, toml, csv))
+
+
+def test_twelve_point_zero_is_twelve(tmp_path):
+    exp = read(tmp_path, toml_1q(), "prep,meas,counts\nH,H,12.0\nH,V,3\n")
+    assert exp.counts.dtype == np.int64
+    assert exp.counts.tolist() == [12, 3]
+
+
+def test_optional_columns_default_and_parse(tmp_path):
+    exp = read(tmp_path, toml_1q(), "prep,meas,counts\nH,H,7\n")
+    assert exp.seconds.tolist() == [1.0] and exp.efficiency.tolist() == [1.0]
+    assert exp.background.tolist() == [0.0]
+    exp = read(tmp_path, toml_1q(), "prep,meas,counts,seconds,background,efficiency\nH,H,7,2.5,0.3,0.9\n")
+    assert exp.seconds.tolist() == [2.5] and exp.background.tolist() == [0.3]
+    assert exp.efficiency.tolist() == [0.9]
+
+
+def test_repeated_rows_are_separate_rows(tmp_path):
+    exp = read(tmp_path, toml_1q(), "prep,meas,counts\nH,H,5\nH,V,1\nH,H,7\n")
+    assert exp.n_rows == 3
+    assert exp.counts.tolist() == [5, 1, 7]
+    assert exp.prep_index[0] == exp.prep_index[2] and exp.meas_index[0] == exp.meas_index[2]
+    assert MeasurementModel(exp).pairs_present()[exp.prep_index[0], exp.meas_index[0]] == 2
+
+
+def test_repeated_rows_count_as_observations_in_the_fit(tmp_path, make_experiment):
+    # Every row of a complete one-qubit data set written twice: each row's
+    # log-likelihood term counts twice, the maximum stays where it was.
+    exp, _ = make_experiment("H+depolarizing:0.1", shots=400, seed=2)
+    lines = ["prep,meas,counts"] + [f"{p},{m},{n}" for p, m, n in zip(exp.prep, exp.meas, exp.counts)]
+    doubled = lines + lines[1:]
+    exp2 = read(tmp_path / "twice", toml_1q(), "\n".join(doubled) + "\n")
+    assert exp2.n_rows == 2 * exp.n_rows
+    once = fit_mle(MeasurementModel(exp))
+    twice = fit_mle(MeasurementModel(exp2))
+    assert twice.log_likelihood == pytest.approx(2 * once.log_likelihood, rel=1e-8)
+    np.testing.assert_allclose(twice.choi, once.choi, atol=1e-4)
+
+
+@pytest.mark.parametrize("label", ["HD", "H D", '"H,D"', "  H   D ", '"H, D"', '" H,D "'])
+def test_all_spellings_of_a_label_are_the_same_setting(tmp_path, label):
+    exp = read(tmp_path, toml_2q(), f"prep,meas,counts\nHD,HH,4\n{label},HH,5\n")
+    assert exp.prep_index.tolist() == [0, 0]
+    assert len(exp.prep_labels) == 1
+    # qubit 1 is the leftmost factor: H on qubit 1, D on qubit 2
+    np.testing.assert_allclose(exp.prep_states[0], np.kron(proj(KET["H"]), proj(KET["D"])), atol=1e-15)
+
+
+def test_multi_character_parts_need_separators(tmp_path):
+    exp = read(tmp_path, toml_2q(), 'prep,meas,counts\n+i 0,HH,4\n"+i,0",HH,5\n')
+    assert exp.prep_index.tolist() == [0, 0]
+    np.testing.assert_allclose(exp.prep_states[0], np.kron(proj(KET["H+iV"]), proj(KET["H"])), atol=1e-15)
+    with pytest.raises(gs.InputError):
+        read(tmp_path / "b", toml_2q(), "prep,meas,counts\n+i0,HH,4\n")
+
+
+def test_whitespace_around_cells_is_ignored(tmp_path):
+    plain = read(tmp_path / "a", toml_2q(), "prep,meas,counts,seconds\nHD,VA,12,2\nRL,+-,3,1\n")
+    spaced = read(tmp_path / "b", toml_2q(),
+                  " prep , meas ,counts,  seconds \n  HD ,  VA  , 12 , 2 \n\tRL\t,+-,  3,1\n")
+    for attr in ("prep_index", "meas_index", "counts", "seconds"):
+        assert np.array_equal(getattr(plain, attr), getattr(spaced, attr)), attr
+    np.testing.assert_array_equal(plain.prep_states, spaced.prep_states)
+    np.testing.assert_array_equal(plain.meas_effects, spaced.meas_effects)
+
+
+def test_whitespace_before_a_quoted_cell_is_ignored(tmp_path):
+    exp = read(tmp_path, toml_2q(), 'prep,meas,counts\nHD, "H,D", 5\n')
+    assert exp.meas_labels == ("H D",)
+
+
+def test_utf8_byte_order_mark_is_accepted(tmp_path):
+    exp = read(tmp_path, toml_1q(), "\ufeffprep,meas,counts\nH,H,5\n")
+    assert exp.columns == ("prep", "meas", "counts")
+
+
+@pytest.mark.parametrize("option", [None, "H-iV", "H+iV"])
+def test_handedness_option_swaps_r_and_l_but_not_the_aliases(tmp_path, option):
+    extra = "" if option is None else f'[conventions]\nright_circular = "{option}"\n'
+    exp = read(tmp_path, toml_1q(extra), "prep,meas,counts\nR,R,1\nL,L,1\n+i,+i,1\n-i,-i,1\n")
+    states = dict(zip(exp.prep_labels, exp.prep_states))
+    right = KET["H-iV"] if option in (None, "H-iV") else KET["H+iV"]
+    left = KET["H+iV"] if option in (None, "H-iV") else KET["H-iV"]
+    np.testing.assert_allclose(states["R"], proj(right), atol=1e-15)
+    np.testing.assert_allclose(states["L"], proj(left), atol=1e-15)
+    # the generic aliases are the Pauli-Y eigenstates whatever the option
+    np.testing.assert_allclose(states["+i"], proj(KET["H+iV"]), atol=1e-15)
+    np.testing.assert_allclose(states["-i"], proj(KET["H-iV"]), atol=1e-15)
+    effects = dict(zip(exp.meas_labels, exp.meas_effects))
+    np.testing.assert_allclose(effects["R"], proj(right), atol=1e-15)
+
+
+def test_custom_states_are_usable_as_labels(tmp_path):
+    extra = ('[states.Dtilt]\nbloch = [0.99, 0.0, 0.14]\n'
+             '[states.Vec]\nvector = ["0.6", "0.8j"]\n'
+             '[states.Dmade]\nplates = [ { kind = "half", angle_deg = 22.5 } ]\n')
+    exp = read(tmp_path, toml_2q(extra), "prep,meas,counts\nDtilt Vec,Dmade H,3\n")
+    x, z = np.array([[0, 1], [1, 0]]), np.diag([1.0, -1.0])
+    dtilt = 0.5 * (np.eye(2) + 0.99 * x + 0.14 * z)
+    vec = proj(np.array([0.6, 0.8j]))
+    np.testing.assert_allclose(exp.prep_states[0], np.kron(dtilt, vec), atol=1e-15)
+    np.testing.assert_allclose(exp.meas_effects[0], np.kron(proj(KET["D"]), proj(KET["H"])), atol=1e-15)
+
+
+# --------------------------------------------------------------------------
+# Too few settings: a warning naming the undetermined part, and the fit runs
+# --------------------------------------------------------------------------
+
+def _labels_named(message: str, n_qubits: int) -> set[str]:
+    return set(re.findall(rf"\b[IXYZ]{{{n_qubits}}}\b", message))
+
+
+def test_too_few_preparations_warn_and_the_fit_still_runs(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.05", shots=500, seed=4, prep=("H", "V"))
+    assert exp.prep_states.shape[0] == 2
+    with pytest.warns(gs.GatescopeWarning) as record:
+        res = gs.fit(exp, "pls")
+    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
+    named = set().union(*(_labels_named(m, 1) for m in messages))
+    # H and V span I and Z only: the input components X and Y are undetermined
+    assert named == {"X", "Y"}, messages
+    assert any("undetermined" in m for m in messages)
+    assert res.choi.shape == (4, 4) and np.isfinite(res.figures["process_fidelity"].value)
+
+
+def test_too_few_preparations_two_qubits_name_the_missing_inputs(make_experiment):
+    exp, _ = make_experiment("CZ", shots=200, seed=4, prep=("H", "V"))
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        res = gs.fit(exp, "pls")
+    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
+    assert messages
+    named = set().union(*(_labels_named(m, 2) for m in messages))
+    assert named, messages
+    # every named input component contains X or Y; the diagonal ones (I, Z only) are determined
+    assert all(("X" in lab or "Y" in lab) for lab in named), named
+    assert not named & {"II", "IZ", "ZI", "ZZ"}
+    assert np.isfinite(res.log_likelihood)
+
+
+def test_too_few_analysers_warn_about_outputs(make_experiment):
+    exp, _ = make_experiment("H", shots=500, seed=4, meas=("H", "V"))
+    with pytest.warns(gs.GatescopeWarning, match="output"):
+        gs.fit(exp, "pls")
+
+
+def test_complete_data_do_not_warn(make_experiment):
+    exp, _ = make_experiment("H", shots=500, seed=4)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", gs.GatescopeWarning)
+        gs.fit(exp, "pls")
+
+
+# --------------------------------------------------------------------------
+# The command line on bad input: exit status 2, a message naming the file,
+# no result file
+# --------------------------------------------------------------------------
+
+def folder_listing(folder: Path) -> set[str]:
+    return {p.name for p in folder.rglob("*")}
+
+
+@pytest.mark.parametrize("spec", BAD_INPUTS)
+def test_fit_command_in_process_on_bad_input(tmp_path, capsys, spec):
+    # cli.main is what `python -m gatescope` runs; this sweeps every bad input fast.
+    path = write_case(tmp_path, spec["toml"], spec["csv"])
+    before = folder_listing(tmp_path)
+    out = tmp_path / "result.h5"
+    status = cli.main(["fit", str(path), "-o", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert status == 2
+    assert expected_file(tmp_path, spec["file"]).name in err
+    assert not out.exists()
+    assert folder_listing(tmp_path) == before
+
+
+def run_fit_command(folder: Path, path: Path):
+    out = folder / "result.h5"
+    return subprocess.Popen([sys.executable, "-m", "gatescope", "fit", str(path), "-o", str(out), "--quiet"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=folder), out
+
+
+# One bad input of each family through a real process (about 1 s each); all of them
+# in the slow set below.
+SUBPROCESS_IDS = ("unknown-toml-key", "missing-qubits", "unknown-csv-column", "fractional-counts",
+                  "label-wrong-qubit-count", "target-not-unitary", "bloch-too-long")
+
+
+def _run_all(tmp_path, specs):
+    runs = []
+    for k, spec in enumerate(specs):
+        folder = tmp_path / f"case{k}"
+        path = write_case(folder, spec["toml"], spec["csv"])
+        before = folder_listing(folder)
+        proc, out = run_fit_command(folder, path)
+        runs.append((spec, folder, before, proc, out))
+    for spec, folder, before, proc, out in runs:
+        _, err = proc.communicate(timeout=120)
+        assert proc.returncode == 2, (spec, err)
+        assert expected_file(folder, spec["file"]).name in err, err
+        if spec["line"] is not None:
+            assert f"line {spec['line']}" in err
+        if spec["key"] is not None:
+            assert spec["key"] in err
+        assert "Traceback" not in err
+        assert not out.exists()
+        assert folder_listing(folder) == before
+
+
+def test_fit_command_subprocess_on_bad_input(tmp_path):
+    specs = [p.values[0] for p in BAD_INPUTS if p.id in SUBPROCESS_IDS]
+    assert len(specs) == len(SUBPROCESS_IDS)
+    _run_all(tmp_path, specs)
+
+
+@pytest.mark.slow
+def test_fit_command_subprocess_on_every_bad_input(tmp_path):
+    _run_all(tmp_path, [p.values[0] for p in BAD_INPUTS])
+
+
+def test_fit_command_subprocess_on_good_input_writes_the_result(tmp_path, make_experiment):
+    # the counterpart: the same command on good data exits 0 and writes the file
+    exp, _ = make_experiment("H", shots=300, seed=1)
+    proc, out = run_fit_command(exp.path.parent, exp.path)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 0, err
+    assert out.exists()
+
+
+def test_underscored_numbers_are_rejected(tmp_path):
+    # Python's float() takes "1_000"; a CSV cell of counts must be a plain decimal number
+    path = write_case(tmp_path, toml_1q(), "prep,meas,counts\nH,H,1_000\n")
+    with pytest.raises(gs.InputError, match="line 2"):
+        gs.read_experiment(path)
