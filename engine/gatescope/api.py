@@ -61,7 +61,8 @@ def diagnostics(model: MeasurementModel, fit: Fit, n_determined: int) -> Diagnos
     with np.errstate(divide="ignore", invalid="ignore"):
         term = np.where(n > 0, n * np.log(np.where(n > 0, n, 1.0) / safe), 0.0) - (n - nu)
     dev = np.where(ok, np.sign(n - nu) * np.sqrt(np.maximum(2.0 * term, 0.0)), np.nan)
-    dof = model.n_rows - n_determined - model.n_groups
+    fitted_intensities = 0 if model.fixed_intensities is not None else model.n_groups
+    dof = model.n_rows - n_determined - fitted_intensities
     return Diagnostics(nu, pearson, dev, float(np.sum(pearson**2)), float(np.sum(dev**2)), int(dof))
 
 

@@ -33,7 +33,7 @@ from . import kernels
 from .channels import ptm_to_choi
 from .likelihood import PoissonLikelihood
 from .model import MeasurementModel
-from .projection import project_cptp
+from .projection import project_cptni, project_cptp
 
 
 @dataclass
@@ -78,17 +78,25 @@ _DENSE_LIMIT = 20_000_000         # entries of the pair design matrix solved den
 def _frequencies(model: MeasurementModel, counts: np.ndarray, probs: np.ndarray):
     """Relative frequencies with moment intensities λ_g = Σ(n − b)/Σ(s·e·p)."""
     g = model.group_index
-    num = np.bincount(g, weights=counts - model.background, minlength=model.n_groups)
-    den = np.bincount(g, weights=model.exposure * probs, minlength=model.n_groups)
+    if model.fixed_intensities is not None:
+        lam = model.fixed_intensities
+    else:
+        num = np.bincount(g, weights=counts - model.background, minlength=model.n_groups)
+        den = np.bincount(g, weights=model.exposure * probs, minlength=model.n_groups)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lam = np.where(den > 0, num / den, 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        lam = np.where(den > 0, num / den, 0.0)
         scale = lam[g] * model.exposure
         freq = np.where(scale > 0, (counts - model.background) / scale, 0.0)
     return freq, lam
 
 
 def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarray:
-    """PTM R minimising Σ_k (f_k − p_k(R))² with R[0] = (1, 0, …) (trace preservation)."""
+    """PTM R minimising Σ_k (f_k − p_k(R))², p = (1/d) e_mᵀ R r_p.
+
+    For a trace-preserving model the first row is fixed, R[0] = (1, 0, …);
+    for a trace non-increasing one every entry is free.
+    """
     d = model.dim
     d2 = d * d
     r, e = model.pauli_coordinates()
@@ -97,20 +105,23 @@ def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarr
     q = np.nonzero(mult)[0]
     p_idx, m_idx = np.divmod(q, model.n_meas)
     weight = np.sqrt(mult[q].astype(float))
-    fixed = e[m_idx, 0] * r[p_idx, 0] / d                 # the trace-preserving first row
-    target = weight * (sums[q] / mult[q] - fixed)
-    e1 = e[:, 1:] / d
-    n_cols = (d2 - 1) * d2
+    first = 0 if model.trace_decreasing else 1
+    n_free = d2 - first
+    # the fixed trace-preserving first row contributes Tr(E)·Tr(ρ)/d
+    fixed_table = (e[:, :1] @ r[:, :1].T) / d if first else np.zeros((model.n_meas, model.n_preps))
+    target = weight * (sums[q] / mult[q] - fixed_table[m_idx, p_idx])
+    e1 = e[:, first:] / d
+    n_cols = n_free * d2
     if q.size == mult.size and np.all(mult == mult[0]):
         # complete table, equal multiplicity: the design is a Kronecker product
-        y = (sums / mult).reshape(model.n_preps, model.n_meas).T - (e[:, :1] @ r[:, :1].T) / d
+        y = (sums / mult).reshape(model.n_preps, model.n_meas).T - fixed_table
         sol = (np.linalg.pinv(e1) @ y @ np.linalg.pinv(r).T).reshape(-1)
     elif q.size * n_cols <= _DENSE_LIMIT:
         design = (e1[m_idx][:, :, None] * r[p_idx][:, None, :]).reshape(q.size, n_cols)
         sol = np.linalg.lstsq(weight[:, None] * design, target, rcond=None)[0]
     else:
         def matvec(v):
-            table = e1 @ v.reshape(d2 - 1, d2) @ r.T
+            table = e1 @ v.reshape(n_free, d2) @ r.T
             return weight * table.reshape(-1)[q]
 
         def rmatvec(u):
@@ -122,8 +133,17 @@ def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarr
         sol = lsqr(op, target, atol=1e-14, btol=1e-14, iter_lim=10 * n_cols)[0]
     ptm = np.zeros((d2, d2))
     ptm[0, 0] = 1.0
-    ptm[1:] = sol.reshape(d2 - 1, d2)
+    ptm[first:] = sol.reshape(n_free, d2)
     return ptm
+
+
+def project_physical(model: MeasurementModel, x: np.ndarray, *, multiplier=None,
+                     tol: float = 1e-12, maxiter: int = 100):
+    """Euclidean projection onto the model's physical set: CPTP maps, or completely
+    positive trace non-increasing maps for ``trace = "decreasing"``."""
+    if model.trace_decreasing:
+        return project_cptni(x, tol=tol)
+    return project_cptp(x, multiplier=multiplier, tol=tol, maxiter=maxiter)
 
 
 def fit_lin(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
@@ -163,10 +183,11 @@ def fit_lin(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
 
 def fit_pls(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
             maxiter: int = 200) -> Fit:
-    """Projected least squares: the ``lin`` estimate projected onto CPTP maps."""
+    """Projected least squares: the ``lin`` estimate projected onto CPTP maps
+    (onto trace non-increasing CP maps for ``trace = "decreasing"``)."""
     t0 = time.perf_counter()
     lin = fit_lin(model, counts=counts, tol=tol, maxiter=maxiter)
-    proj = project_cptp(lin.choi)
+    proj = project_physical(model, lin.choi)
     lik = PoissonLikelihood(model, counts)
     ev = lik.evaluate(proj.choi)
     info = {"lin_min_eigenvalue": lin.info["min_eigenvalue"],
@@ -256,7 +277,8 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
             # Inner projections may be inexact: every iterate is exactly CPTP anyway (positive
             # part, then the trace-preserving congruence), and the ascent test below is
             # made on the point actually obtained.
-            proj = project_cptp(y + step * grad, multiplier=mult, tol=proj_tol, maxiter=proj_maxiter)
+            proj = project_physical(model, y + step * grad, multiplier=mult, tol=proj_tol,
+                                    maxiter=proj_maxiter)
             n_proj += 1
             cand = proj.choi
             ev_c = lik.evaluate(cand)

@@ -371,7 +371,6 @@ def read_experiment(path) -> Experiment:
             raise toml.error("trace", "trace = \"decreasing\" needs normalization = \"global\"")
         if input_rate is None:
             raise toml.error("trace", "trace = \"decreasing\" needs the key input_rate")
-        raise toml.error("trace", "trace = \"decreasing\" is not supported by this version of gatescope")
 
     right_circular = "H-iV"
     conventions = data.get("conventions", {})

@@ -6,7 +6,9 @@ For a Choi matrix J the log-likelihood (CONTRACT §5)
     ν_k = λ_g · seconds_k · efficiency_k · p_k(J) + background_k,
 
 is maximised over the group intensities λ for fixed J (closed form without
-background, a 1-D Newton solve per group with it). The gradient of the
+background, a 1-D Newton solve per group with it). For a trace non-increasing
+model (``trace = "decreasing"``) the one global intensity is the known input
+rate and is not fitted. The gradient of the
 profiled ℓ with respect to J is, by the envelope theorem, A*(w) with
 w_k = (n_k/ν_k − 1) · λ_g · seconds_k · efficiency_k.
 """
@@ -54,7 +56,10 @@ class PoissonLikelihood:
         self.total_counts = float(self.counts.sum())
 
     def intensities(self, probabilities: np.ndarray) -> np.ndarray:
+        """Maximum-likelihood λ_g for these probabilities (the known rate when fixed)."""
         m = self.model
+        if m.fixed_intensities is not None:
+            return m.fixed_intensities
         return kernels.group_intensities(self.counts, m.exposure * probabilities, m.background,
                                          m.group_index, m.n_groups)
 
@@ -62,7 +67,7 @@ class PoissonLikelihood:
         m = self.model
         p = m.forward(choi)
         base = m.exposure * p
-        lam = kernels.group_intensities(self.counts, base, m.background, m.group_index, m.n_groups)
+        lam = self.intensities(p)
         weights = np.empty_like(p)
         ll = kernels.poisson_terms(self.counts, base, m.background, lam, m.group_index,
                                    m.exposure, weights)

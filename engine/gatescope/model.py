@@ -77,6 +77,11 @@ class MeasurementModel:
         self.counts = np.asarray(experiment.counts, dtype=float)
         self.group_index = experiment.group_index
         self.n_groups = experiment.n_groups
+        #: True for trace = "decreasing": Tr_out J ⪯ I, and the single (global) intensity is
+        #: the known input rate instead of a fitted parameter.
+        self.trace_decreasing = experiment.trace == "decreasing"
+        self.fixed_intensities = (np.array([float(experiment.input_rate)])
+                                  if self.trace_decreasing else None)
         self._pair_multiplicity = np.bincount(self.pair_index, minlength=self.n_preps * self.n_meas)
 
     # -- the linear map --------------------------------------------------
@@ -123,20 +128,24 @@ class MeasurementModel:
         return self._pair_multiplicity.reshape(self.n_preps, self.n_meas)
 
     def identifiability(self) -> Identifiability:
-        """Which trace-preserving process parameters the rows determine."""
+        """Which process parameters the rows determine (d⁴ − d² for trace-preserving
+        maps, d⁴ for trace non-increasing ones)."""
         r, e = self.pauli_coordinates()
         d = self.dim
         labels = pauli_labels(self.n_qubits)
+        # a trace-preserving map has its output identity component fixed; a trace
+        # non-increasing one does not
+        first = 0 if self.trace_decreasing else 1
         prep_rank, missing_in = _span(r, labels)
-        meas_rank, missing_out = _span(e[:, 1:], labels[1:])
-        n_params = d ** 4 - d ** 2
+        meas_rank, missing_out = _span(e[:, first:], labels[first:])
+        n_params = d ** 4 - (0 if self.trace_decreasing else d ** 2)
         present = self.pairs_present() > 0
         if present.all():
             rank = prep_rank * meas_rank
         elif n_params <= 4096:
             # Rank of the design restricted to the pairs present, in PTM coordinates.
             p_idx, m_idx = np.nonzero(present)
-            design = (e[m_idx, 1:][:, :, None] * r[p_idx][:, None, :]).reshape(len(p_idx), -1)
+            design = (e[m_idx, first:][:, :, None] * r[p_idx][:, None, :]).reshape(len(p_idx), -1)
             rank = int(np.linalg.matrix_rank(design))
         else:
             rank = min(prep_rank * meas_rank, int(present.sum()))
@@ -147,17 +156,18 @@ class MeasurementModel:
         """Warn (GatescopeWarning) naming the part of the process the data leave open."""
         ident = self.identifiability()
         d2 = self.dim ** 2
+        n_out = d2 if self.trace_decreasing else d2 - 1
         if ident.prep_rank < d2:
             warnings.warn(
                 f"the preparations span only {ident.prep_rank} of {d2} input operator directions: "
                 f"the process is undetermined on the input Pauli components "
                 f"{_short(ident.missing_inputs)}; the fit still runs", GatescopeWarning, stacklevel=3)
-        if ident.meas_rank < d2 - 1:
+        if ident.meas_rank < n_out:
             warnings.warn(
-                f"the analyser effects span only {ident.meas_rank} of {d2 - 1} traceless output "
+                f"the analyser effects span only {ident.meas_rank} of {n_out} output "
                 f"directions: the output Pauli components {_short(ident.missing_outputs)} are not "
                 f"measured; the fit still runs", GatescopeWarning, stacklevel=3)
-        if ident.prep_rank == d2 and ident.meas_rank == d2 - 1 and not ident.complete:
+        if ident.prep_rank == d2 and ident.meas_rank == n_out and not ident.complete:
             warnings.warn(
                 f"the (prep, meas) pairs present determine only {ident.rank} of "
                 f"{ident.n_parameters} process parameters; the fit still runs",
