@@ -90,3 +90,26 @@ def test_newton_matrix_kernel_matches_twin(rng, d):
     w, q = np.linalg.eigh(x + x.conj().T)
     np.testing.assert_allclose(kernels._newton_matrix_kernel(w, q, d), _newton_matrix(w, q, d),
                                atol=1e-12)
+
+
+@pytest.mark.parametrize("d", [2, 4, 8])
+def test_matrix_free_newton_product_equals_matrix(rng, d):
+    from gatescope.projection import _newton_apply, _newton_matrix
+    n = d * d
+    x = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+    w, q = np.linalg.eigh(x + x.conj().T)
+    v = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    v = v + v.conj().T
+    np.testing.assert_allclose(_newton_apply(w, q, d, v).reshape(-1),
+                               _newton_matrix(w, q, d) @ v.reshape(-1), atol=1e-12)
+
+
+def test_projection_with_conjugate_gradients_matches_direct(rng, monkeypatch):
+    from gatescope import projection
+    d, n = 8, 64
+    x = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+    x = 0.3 / d * (x + x.conj().T) + np.eye(n) / d
+    direct = projection.project_cptp_numpy(x)
+    monkeypatch.setattr(projection, "_MATRIX_FREE_DIM", 8)
+    iterative = projection.project_cptp_numpy(x)
+    np.testing.assert_allclose(iterative.choi, direct.choi, atol=1e-10)

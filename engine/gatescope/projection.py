@@ -68,22 +68,72 @@ def _newton_matrix(w: np.ndarray, q: np.ndarray, d: int) -> np.ndarray:
     n_pos = int(pos.sum())
     if n_pos == 0:
         return np.zeros((n, n), dtype=complex)
-    wp = np.maximum(w, 0.0)
-    a = q.T.reshape(n, d, d)                  # a[r] = [k, o] block of eigenvector r
-    a_pos = a[pos]
-    a_neg = a[~pos]
-    # T_rs = a_r a_s^H; pairs (positive, positive) once, (positive, non-positive) twice
-    # (T_sr = T_rs^H carries the same weight, and |vec(T^H)><vec(T^H)| is the transpose-conj).
-    t_pp = np.matmul(a_pos[:, None], a_pos.conj().transpose(0, 2, 1)[None]).reshape(-1, n)
-    jac = t_pp.T @ t_pp.conj()
-    if a_neg.shape[0]:
-        diff = w[pos][:, None] - w[~pos][None, :]
-        omega = wp[pos][:, None] / np.maximum(diff, 1e-300)
-        t_pn = np.matmul(a_pos[:, None], a_neg.conj().transpose(0, 2, 1)[None])
-        t_pn = (t_pn * np.sqrt(omega)[:, :, None, None]).reshape(-1, n)
-        t_np = t_pn.reshape(-1, d, d).transpose(0, 2, 1).conj().reshape(-1, n)
-        jac += t_pn.T @ t_pn.conj() + t_np.T @ t_np.conj()
+    q3 = q.reshape(d, d, n)                                    # [k, o, r]
+    a_pos = q3[:, :, pos].transpose(2, 0, 1).reshape(n_pos * d, d)   # [(r, k), o]
+    b_all = q3.conj().transpose(1, 2, 0).reshape(d, n * d)           # [o, (s, l)]
+    # one matrix product gives every T_rs[k, l] = Σ_o q[(k,o), r] conj(q[(l,o), s]), r positive
+    t = (a_pos @ b_all).reshape(n_pos, d, n, d).transpose(0, 2, 1, 3)   # [r, s, k, l]
+    weight = np.ones((n_pos, n))
+    neg = ~pos
+    if neg.any():
+        weight[:, neg] = w[pos][:, None] / (w[pos][:, None] - w[neg][None, :])
+    tw = (t * np.sqrt(weight)[:, :, None, None]).reshape(n_pos * n, n)
+    jac = tw.T @ tw.conj()
+    if neg.any():
+        # the (non-positive, positive) pairs: T_sr = T_rs^H with the same weight
+        mirror = (t[:, neg] * np.sqrt(weight[:, neg])[:, :, None, None]).transpose(0, 1, 3, 2).conj()
+        mirror = mirror.reshape(-1, n)
+        jac += mirror.T @ mirror.conj()
     return jac
+
+
+def _newton_apply(w: np.ndarray, q: np.ndarray, d: int, v: np.ndarray) -> np.ndarray:
+    """The generalised Jacobian applied to a d × d matrix V, without forming it:
+    Tr_out[Q (Ω ∘ (Q† (V⊗I) Q)) Q†], using only the columns of positive eigenvalues."""
+    n = d * d
+    pos = w > 0
+    if not pos.any():
+        return np.zeros((d, d), dtype=complex)
+    qp = q[:, pos]
+    hq = (v @ q.reshape(d, d * n)).reshape(n, n)               # (V ⊗ I) Q
+    m = qp.conj().T @ hq                                       # [pos, all]
+    omega = np.ones((int(pos.sum()), n))
+    neg = ~pos
+    if neg.any():
+        omega[:, neg] = w[pos][:, None] / (w[pos][:, None] - w[neg][None, :])
+    k = omega * m
+    half = qp @ k @ q.conj().T                                 # pairs (pos, any)
+    k_pp = k[:, pos]
+    full = half + half.conj().T - qp @ k_pp @ qp.conj().T      # add (any, pos), count (pos, pos) once
+    return _partial_trace_out(full, d)
+
+
+def _newton_step(w, q, d, grad, mu, matrix_free: bool) -> np.ndarray:
+    """Solve (Jacobian + μ) ΔY = ∇θ, directly or by conjugate gradients."""
+    if not matrix_free:
+        jac = _newton_matrix(w, q, d)
+        return np.linalg.solve(jac + mu * np.eye(d * d), grad.reshape(-1)).reshape(d, d)
+    x = np.zeros_like(grad)
+    r = grad.copy()
+    p = r.copy()
+    rr = np.vdot(r, r).real
+    target = 1e-4 * np.sqrt(rr)
+    for _ in range(100):
+        ap = _newton_apply(w, q, d, p) + mu * p
+        alpha = rr / np.vdot(p, ap).real
+        x += alpha * p
+        r -= alpha * ap
+        rr_new = np.vdot(r, r).real
+        if np.sqrt(rr_new) <= target:
+            break
+        p = r + (rr_new / rr) * p
+        rr = rr_new
+    return x
+
+
+#: From this d on the Newton system is solved by conjugate gradients (the explicit
+#: d² × d² Jacobian would need O(d^8) work and memory).
+_MATRIX_FREE_DIM = 16
 
 
 def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
@@ -129,9 +179,8 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
     it = 0
     while res > tol and it < maxiter:
         it += 1
-        jac = _newton_matrix(w, q, d)
         mu = 1e-2 * min(1e-2, res) + 1e-14
-        step = np.linalg.solve(jac + mu * np.eye(d * d), grad.reshape(-1)).reshape(d, d)
+        step = _newton_step(w, q, d, grad, mu, matrix_free=d >= _MATRIX_FREE_DIM)
         step = 0.5 * (step + step.conj().T)
         slope = np.vdot(grad, step).real
         if slope <= 0:                                 # not an ascent direction: use the gradient
