@@ -66,3 +66,21 @@ def test_identifiability_complete_and_incomplete(make_experiment):
     ident2 = MeasurementModel(exp2).identifiability()
     assert ident2.prep_rank == 9 and not ident2.complete
     assert "YI" in ident2.missing_inputs or "IY" in ident2.missing_inputs
+
+
+@pytest.mark.parametrize("spec, prep", [("random:6:41", ("H", "V", "D", "A", "R", "L")),
+                                        ("random:2:42", ("H", "V", "D", "R"))])
+def test_qubitwise_maps_equal_the_pair_table(make_experiment, rng, monkeypatch, spec, prep):
+    # three qubits: the qubit-by-qubit contraction against the P × M table (both exact)
+    from gatescope import model as model_module
+    exp, choi = make_experiment(spec, n_qubits=3, shots=10, prep=prep)
+    structured = MeasurementModel(exp)
+    assert structured.structured
+    monkeypatch.setattr(model_module, "STRUCTURED_FROM_QUBITS", 99)
+    table = MeasurementModel(exp)
+    assert not table.structured
+    j = random_hermitian(rng, 64)
+    np.testing.assert_allclose(structured.forward(j), table.forward(j), atol=1e-12)
+    w = rng.normal(size=exp.n_rows)
+    np.testing.assert_allclose(structured.adjoint(w), table.adjoint(w), atol=1e-10)
+    assert np.vdot(structured.adjoint(w), j).real == pytest.approx(w @ structured.forward(j), rel=1e-10)

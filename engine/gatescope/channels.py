@@ -100,21 +100,57 @@ def chi_to_choi(chi: np.ndarray) -> np.ndarray:
     return v @ chi @ v.conj().T
 
 
+_P1 = pauli_basis(1)
+
+
+def _choi_qubit_axes(choi: np.ndarray, n: int) -> np.ndarray:
+    """J as a tensor with one axis of size 16 per qubit: (x_k, a_k, y_k, b_k) grouped."""
+    t = choi.reshape((2,) * (4 * n))                     # x1..xn a1..an y1..yn b1..bn
+    order = [ax for k in range(n) for ax in (k, n + k, 2 * n + k, 3 * n + k)]
+    return t.transpose(order).reshape((16,) * n)
+
+
+def _from_qubit_axes(t: np.ndarray, n: int) -> np.ndarray:
+    """Inverse of :func:`_choi_qubit_axes`."""
+    t = t.reshape((2,) * (4 * n))                        # x1 a1 y1 b1 x2 a2 ...
+    order = [4 * k + role for role in range(4) for k in range(n)]
+    d = 2 ** n
+    return t.transpose(order).reshape(d * d, d * d)
+
+
+def _apply_on_every_qubit(t: np.ndarray, op: np.ndarray, n: int) -> np.ndarray:
+    """Contract the same 16 × 16 matrix with every qubit axis (cost 16·n·d⁴)."""
+    for k in range(n):
+        t = np.moveaxis(np.tensordot(op, t, axes=([1], [k])), 0, k)
+    return t
+
+
+# per qubit: Q[(i, j), (x, a, y, b)] = P_j[x, y] P_i[b, a]  (R_ij = Tr[(P_j^T ⊗ P_i) J]/d)
+_TO_PTM = np.einsum("jxy,iba->ijxayb", _P1, _P1).reshape(16, 16)
+# per qubit: Q[(x, a, y, b), (i, j)] = P_j[y, x] P_i[a, b]  (J = Σ R_ij P_j^T ⊗ P_i / d)
+_FROM_PTM = np.einsum("jyx,iab->xaybij", _P1, _P1).reshape(16, 16)
+
+
 def choi_to_ptm(choi: np.ndarray) -> np.ndarray:
-    """R_ij = Tr(P_i Φ(P_j))/d = Tr[(P_j^T ⊗ P_i) J]/d, returned as float64."""
+    """R_ij = Tr(P_i Φ(P_j))/d = Tr[(P_j^T ⊗ P_i) J]/d, returned as float64.
+
+    Computed qubit by qubit (the Pauli basis is a tensor product), O(n·d⁴).
+    """
     d = dim_of_choi(choi)
-    basis = pauli_basis(n_qubits_of(d))
-    # Tr[(A ⊗ B) J] = Σ A[j,i] B[b,a] J[i,a,j,b] with A = P_j^T, B = P_i
-    r = np.einsum("jxy,iba,xayb->ij", basis, basis, _choi_tensor(choi), optimize=True) / d
-    return np.ascontiguousarray(r.real)
+    n = n_qubits_of(d)
+    t = _apply_on_every_qubit(_choi_qubit_axes(choi, n), _TO_PTM, n) / d
+    # axes (i_k, j_k) per qubit -> R[(i_1..i_n), (j_1..j_n)]
+    t = t.reshape((4, 4) * n).transpose([2 * k for k in range(n)] + [2 * k + 1 for k in range(n)])
+    return np.ascontiguousarray(t.reshape(d * d, d * d).real)
 
 
 def ptm_to_choi(ptm: np.ndarray) -> np.ndarray:
-    """J = (1/d) Σ_ij R_ij P_j^T ⊗ P_i."""
+    """J = (1/d) Σ_ij R_ij P_j^T ⊗ P_i, qubit by qubit."""
     d = int(round(np.sqrt(ptm.shape[0])))
-    basis = pauli_basis(n_qubits_of(d))
-    j4 = np.einsum("ij,jyx,iab->xayb", ptm, basis, basis, optimize=True) / d
-    return j4.reshape(d * d, d * d)
+    n = n_qubits_of(d)
+    t = np.asarray(ptm, dtype=complex).reshape((4,) * (2 * n))
+    t = t.transpose([ax for k in range(n) for ax in (k, n + k)]).reshape((16,) * n)
+    return _from_qubit_axes(_apply_on_every_qubit(t, _FROM_PTM, n) / d, n)
 
 
 def partial_trace_output(choi: np.ndarray) -> np.ndarray:

@@ -65,6 +65,11 @@ class Experiment:
     meas_labels: tuple[str, ...]
     prep_states: np.ndarray
     meas_effects: np.ndarray
+    #: single-qubit factors: prep_states[p] = ⊗_k single_prep_states[prep_parts[p, k]]
+    single_prep_states: np.ndarray
+    prep_parts: np.ndarray
+    single_meas_effects: np.ndarray
+    meas_parts: np.ndarray
     prep: tuple[str, ...]
     meas: tuple[str, ...]
     prep_index: np.ndarray
@@ -497,17 +502,27 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
     cols = {c: [] for c in header}
     prep_index, meas_index = [], []
 
+    single_index = {"prep": {}, "meas": {}}
+    part_rows = {"prep": [], "meas": []}
+
+    parsed = {"prep": {}, "meas": {}}            # label text -> parts (large files repeat labels)
+
     def setting(label, settings, mats, names, table, line, column):
-        try:
-            parts = tuple(split_label(label, n_qubits, known))
-        except ValueError as exc:
-            raise InputError(f"column '{column}': {exc}", file=file, line=line) from None
+        parts = parsed[column].get(label)
+        if parts is None:
+            try:
+                parts = tuple(split_label(label, n_qubits, known))
+            except ValueError as exc:
+                raise InputError(f"column '{column}': {exc}", file=file, line=line) from None
+            parsed[column][label] = parts
         idx = settings.get(parts)
         if idx is None:
             idx = len(mats)
             settings[parts] = idx
             mats.append(kron_all(table[p] for p in parts))
             names.append(" ".join(parts))
+            index = single_index[column]
+            part_rows[column].append([index.setdefault(p, len(index)) for p in parts])
         return idx
 
     n_rows = 0
@@ -557,7 +572,15 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         names = {}
         group_index = np.array([names.setdefault(g, len(names)) for g in cols["group"]], dtype=np.int64)
         group_names = tuple(names)
+    def singles(column, table):
+        names = sorted(single_index[column], key=single_index[column].get)
+        return _frozen(np.array([table[nm] for nm in names]))
+
     return dict(
+        single_prep_states=singles("prep", prep_1q),
+        prep_parts=_frozen(np.array(part_rows["prep"], dtype=np.int64)),
+        single_meas_effects=singles("meas", meas_1q),
+        meas_parts=_frozen(np.array(part_rows["meas"], dtype=np.int64)),
         prep_labels=tuple(prep_names), meas_labels=tuple(meas_names),
         prep_states=_frozen(np.array(prep_mats)), meas_effects=_frozen(np.array(meas_mats)),
         prep=tuple(cols["prep"]), meas=tuple(cols["meas"]),

@@ -24,9 +24,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .channels import _apply_on_every_qubit, _choi_qubit_axes, _from_qubit_axes
 from .conventions import pauli_basis, pauli_labels
 from .errors import GatescopeWarning
 from .experiment import Experiment
+
+
+#: From this many qubits the forward and adjoint maps contract qubit by qubit; below
+#: it one P × M table of all (prep, meas) pairs is cheaper.
+STRUCTURED_FROM_QUBITS = 3
 
 
 @dataclass(frozen=True, eq=False)
@@ -83,6 +89,48 @@ class MeasurementModel:
         self.fixed_intensities = (np.array([float(experiment.input_rate)])
                                   if self.trace_decreasing else None)
         self._pair_multiplicity = np.bincount(self.pair_index, minlength=self.n_preps * self.n_meas)
+        self.structured = self.n_qubits >= STRUCTURED_FROM_QUBITS
+        if self.structured:
+            self._setup_qubitwise(experiment)
+
+    # -- qubit-by-qubit contractions (three qubits and more) --------------
+    def _setup_qubitwise(self, exp: Experiment) -> None:
+        """Per-qubit operators for the product grid of single-qubit states.
+
+        With K single-qubit preparations and L single-qubit effects, the grid
+        holds every product (K^n × L^n); each row's pair is one grid cell.
+        One qubit at a time, C[(p, m), (x, a, y, b)] = ρ_p[x, y] E_m[b, a]
+        turns J into the grid table and its conjugate transpose turns grid
+        weights back into A*(w): cost O(n · (KL)^n · 16), no d⁴ × rows matrix.
+        """
+        n = self.n_qubits
+        rho = np.asarray(exp.single_prep_states)
+        eff = np.asarray(exp.single_meas_effects)
+        self._k, self._l = rho.shape[0], eff.shape[0]
+        self._to_grid = np.einsum("pxy,mba->pmxayb", rho, eff).reshape(self._k * self._l, 16)
+        self._from_grid = np.einsum("pyx,mab->xaybpm", rho, eff).reshape(16, self._k * self._l)
+        prep_grid = np.zeros(self.n_preps, dtype=np.int64)
+        meas_grid = np.zeros(self.n_meas, dtype=np.int64)
+        for k in range(n):                                # qubit 1 most significant
+            prep_grid = prep_grid * self._k + exp.prep_parts[:, k]
+            meas_grid = meas_grid * self._l + exp.meas_parts[:, k]
+        self._grid_index = (prep_grid[exp.prep_index] * self._l ** n + meas_grid[exp.meas_index])
+        self._grid_size = (self._k * self._l) ** n
+
+    def _grid_table(self, choi: np.ndarray) -> np.ndarray:
+        n = self.n_qubits
+        t = _apply_on_every_qubit(_choi_qubit_axes(choi, n), self._to_grid, n)
+        # axes (p_k, m_k) per qubit -> [p_1..p_n, m_1..m_n]
+        t = t.reshape((self._k, self._l) * n)
+        t = t.transpose([2 * k for k in range(n)] + [2 * k + 1 for k in range(n)])
+        return t.reshape(-1).real
+
+    def _grid_adjoint(self, weights: np.ndarray) -> np.ndarray:
+        n = self.n_qubits
+        w = np.bincount(self._grid_index, weights=weights, minlength=self._grid_size)
+        w = w.reshape((self._k,) * n + (self._l,) * n)
+        w = w.transpose([ax for k in range(n) for ax in (k, n + k)]).reshape((self._k * self._l,) * n)
+        return _from_qubit_axes(_apply_on_every_qubit(w.astype(complex), self._from_grid, n), n)
 
     # -- the linear map --------------------------------------------------
     def table(self, choi: np.ndarray) -> np.ndarray:
@@ -93,6 +141,8 @@ class MeasurementModel:
 
     def forward(self, choi: np.ndarray) -> np.ndarray:
         """p_k = Tr[(ρ_k^T ⊗ E_k) J] for every row k."""
+        if self.structured:
+            return self._grid_table(choi)[self._grid_index]
         return self.table(choi).reshape(-1)[self.pair_index]
 
     def adjoint(self, weights: np.ndarray) -> np.ndarray:
@@ -100,6 +150,8 @@ class MeasurementModel:
 
         It satisfies Σ_k w_k p_k(J) = Tr[A*(w) J] for every Hermitian J.
         """
+        if self.structured:
+            return self._grid_adjoint(weights)
         d = self.dim
         table = np.bincount(self.pair_index, weights=weights,
                             minlength=self.n_preps * self.n_meas).reshape(self.n_preps, self.n_meas)

@@ -67,27 +67,28 @@ def _product_labels(single, n_qubits):
 def simulate_counts(channel: Channel, *, shots: float, prep_set=LABEL_SETS["pauli6"],
                     meas_set=LABEL_SETS["pauli6"], seed: int | None = None,
                     right_circular: str = "H-iV"):
-    """Rows (prep label, meas label, expected, counts) of a simulated run."""
+    """Rows (prep label, meas label, expected, counts) of a simulated run.
+
+    Rows are every preparation (SET^n, qubit 1 first) with every analyser
+    projector; probabilities come from one table R·J'·Fᵀ over all pairs
+    (see :mod:`gatescope.model`).
+    """
     n = channel.n_qubits
     d = 2 ** n
     vectors = builtin_states(right_circular)
     rng = np.random.default_rng(seed)
-    j4 = channel.choi.reshape(d, d, d, d)
     preps = _product_labels(prep_set, n)
     meass = _product_labels(meas_set, n)
-    prep_parts = list(itertools.product(prep_set, repeat=n))
-    meas_parts = list(itertools.product(meas_set, repeat=n))
-    rows = []
-    for plab, pparts in zip(preps, prep_parts):
-        rho = kron_all(density(vectors[s]) for s in pparts)
-        out = np.einsum("ij,iajb->ab", rho, j4)            # Φ(ρ)
-        for mlab, mparts in zip(meass, meas_parts):
-            eff = kron_all(density(vectors[s]) for s in mparts)
-            p = max(float(np.trace(eff @ out).real), 0.0)
-            rows.append((plab, mlab, shots * p))
-    expected = np.array([r[2] for r in rows])
+    rho = np.array([kron_all(density(vectors[s]) for s in parts)
+                    for parts in itertools.product(prep_set, repeat=n)])
+    eff = np.array([kron_all(density(vectors[s]) for s in parts)
+                    for parts in itertools.product(meas_set, repeat=n)])
+    jp = channel.choi.reshape(d, d, d, d).transpose(0, 2, 1, 3).reshape(d * d, d * d)
+    table = (rho.reshape(len(preps), -1) @ jp @ eff.transpose(0, 2, 1).reshape(len(meass), -1).T).real
+    expected = shots * np.maximum(table, 0.0).reshape(-1)
     counts = rng.poisson(expected)
-    return [(r[0], r[1], e, int(c)) for r, e, c in zip(rows, expected, counts)]
+    labels = [(p, m) for p in preps for m in meass]
+    return [(p, m, e, int(c)) for (p, m), e, c in zip(labels, expected, counts)]
 
 
 def write_experiment(outdir: Path, channel: Channel, rows, *, title: str,
