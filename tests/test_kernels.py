@@ -113,3 +113,11 @@ def test_projection_with_conjugate_gradients_matches_direct(rng, monkeypatch):
     monkeypatch.setattr(projection, "_MATRIX_FREE_DIM", 8)
     iterative = projection.project_cptp_numpy(x)
     np.testing.assert_allclose(iterative.choi, direct.choi, atol=1e-10)
+
+
+def test_hermitian_solve_matches_numpy(rng):
+    for n in (1, 4, 16):
+        g = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
+        a = g @ g.conj().T + 0.1 * np.eye(n)
+        b = rng.normal(size=n) + 1j * rng.normal(size=n)
+        np.testing.assert_allclose(kernels.hermitian_solve(a, b), np.linalg.solve(a, b), rtol=1e-9, atol=1e-11)

@@ -241,10 +241,48 @@ def _newton_matrix_kernel(w, q, d):
 
 
 @njit(cache=True)
+def hermitian_solve(a, b):
+    """Solve A x = b for Hermitian positive-definite A by Cholesky (A = L L†).
+
+    Written out instead of calling np.linalg.solve, whose compiled LAPACK
+    wrapper costs seconds of JIT time on first use. Twin: numpy.linalg.solve.
+    """
+    n = a.shape[0]
+    low = np.zeros((n, n), dtype=np.complex128)
+    for j in range(n):
+        acc = a[j, j].real
+        for k in range(j):
+            acc -= (low[j, k] * np.conj(low[j, k])).real
+        if acc <= 0.0:
+            acc = 1e-300
+        ljj = np.sqrt(acc)
+        low[j, j] = ljj
+        for i in range(j + 1, n):
+            v = a[i, j]
+            for k in range(j):
+                v -= low[i, k] * np.conj(low[j, k])
+            low[i, j] = v / ljj
+    y = np.zeros(n, dtype=np.complex128)
+    for i in range(n):
+        v = b[i]
+        for k in range(i):
+            v -= low[i, k] * y[k]
+        y[i] = v / low[i, i]
+    x = np.zeros(n, dtype=np.complex128)
+    for i in range(n - 1, -1, -1):
+        v = y[i]
+        for k in range(i + 1, n):
+            v -= np.conj(low[k, i]) * x[k]
+        x[i] = v / low[i, i].real
+    return x
+
+
+@njit(cache=True)
 def project_cptp_kernel(x, y0, tol, maxiter):
     """Dual semismooth Newton projection onto CPTP maps (see gatescope.projection).
 
-    Returns (J, Y, iterations, ‖Tr_out J − I‖_F) before the final congruence.
+    Returns (J, Y, iterations, r) with J after the final congruence
+    (:func:`tp_congruence`) and r = ‖Tr_out J − I‖_F before it.
     """
     n = x.shape[0]
     d = int(np.rint(np.sqrt(n)))
@@ -257,7 +295,7 @@ def project_cptp_kernel(x, y0, tol, maxiter):
         it += 1
         jac = _newton_matrix_kernel(w, q, d)
         mu = 1e-2 * min(1e-2, res) + 1e-14
-        step = np.linalg.solve(jac + mu * eye_n, grad.reshape(n)).reshape(d, d)
+        step = hermitian_solve(jac + mu * eye_n, grad.reshape(n).copy()).reshape(d, d)
         step = 0.5 * (step + step.conj().T)
         slope = np.sum(np.conj(grad) * step).real
         if slope <= 0.0:
@@ -272,7 +310,7 @@ def project_cptp_kernel(x, y0, tol, maxiter):
             s *= 0.5
         y = y + s * step
         theta, w, q, j, grad, res = theta_new, w_new, q_new, j_new, grad_new, res_new
-    return j, y, it, res
+    return tp_congruence(j, d), y, it, res
 
 
 @njit(cache=True)
