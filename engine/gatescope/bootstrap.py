@@ -20,17 +20,20 @@ process that runs it, so the same seed gives bit-identical figures for any
 number of workers. Without a seed one is drawn from the operating system's
 entropy (63 bits) and returned, so it can be recorded.
 
-Parallel runs use a process pool (``concurrent.futures``) with the
-``forkserver`` start method where the platform has it, else ``spawn``:
-never a plain ``fork`` of a parent that may already run BLAS or numba
-threads. Each worker receives the model once (pool initializer), then
-chunks of resample indices, about eight chunks per worker so that the last
-chunks balance the load while the per-task overhead stays small. Workers
-run single-threaded (``OMP_NUM_THREADS``, ``OPENBLAS_NUM_THREADS``,
-``MKL_NUM_THREADS``, ``NUMBA_NUM_THREADS`` set to 1 when they start, and
-``numba.set_num_threads(1)``) so W workers use W cores. With one worker,
-or inside a daemonic process that may not start children, the resamples
-run in the calling process.
+Parallel runs use a process pool (``concurrent.futures``). Its workers are
+forked from the calling process when that is safe (`_fork_is_safe`: Linux,
+no other Python thread, numba's threading layer not started; OpenBLAS
+handles a fork itself), which starts them in about 0.1 s; otherwise they
+come from the ``forkserver`` (or, where there is none, ``spawn``), which
+imports the package and loads the numba cache in every worker, 1–4 s. Each
+worker receives the model once (pool initializer), then chunks of resample
+indices, about eight chunks per worker so that the last chunks balance the
+load while the per-task overhead stays small. Workers run single-threaded
+(``OMP_NUM_THREADS``, ``OPENBLAS_NUM_THREADS``, ``MKL_NUM_THREADS``,
+``NUMBA_NUM_THREADS`` set to 1 before they start, ``numba.set_num_threads(1)``
+and every loaded OpenBLAS told to use one thread) so W workers use W cores.
+With one worker, or inside a daemonic process that may not start children,
+the resamples run in the calling process, with its own thread settings.
 
 Failures. A refit that reports ``converged = False`` is a failure; it is
 counted (``Bootstrap.failures``, and per resample in
@@ -53,20 +56,31 @@ and the point estimate θ̂, with Q the empirical quantile of θ*:
 * ``bc`` — bias-corrected percentile: z₀ = Φ⁻¹(#{θ* < θ̂}/B) and the
   interval [Q(Φ(2z₀ + z_{α/2})), Q(Φ(2z₀ + z_{1−α/2}))] (Efron, *The
   Jackknife, the Bootstrap and Other Resampling Plans*, SIAM 1982, ch. 10;
-  the BCa interval of Efron, JASA 82, 171 (1987) with zero acceleration).
+  the BCa interval of Efron, JASA 82, 171 (1987) with zero acceleration);
+* ``normal`` — θ̂ ± z_{1−α/2}·s*, s* the standard deviation of θ* (the
+  standard normal interval, Efron & Tibshirani 1993, ch. 13): it uses the
+  bootstrap for the spread only, not for the shape or the bias.
 
-The default is ``bc``. Near a pure process, which is where good gates
-live, the constrained estimators are biased: the estimate of the process
-fidelity lies below the truth, and a refit of resamples drawn around the
-estimate lies below the estimate by about as much again (Schwemmer et al.,
-PRL 114, 080403 (2015)). The percentile interval inherits that shift
-twice and misses the truth from above; the basic interval undoes the shift
-but reflects the skewed distribution the wrong way and can leave the
-physical range (a fidelity above 1). The bias-corrected percentile
-interval measures the shift by z₀, re-centres the quantiles on the point
-estimate, and stays a set of quantiles of physical estimates, so it never
-leaves the physical range. benchmarks/README.md ("Bootstrap coverage")
-has the coverage measured for all three.
+Every interval is then intersected with the range the true figure can take
+(`parameter_range`: [0, 1] for a fidelity), which cannot lower its coverage.
+
+The default is ``normal``, chosen on the coverage measured in
+benchmarks/README.md ("Bootstrap coverage"): for 2-qubit gates, full rank
+and near unitary, at two count levels, the bootstrap estimates the *spread*
+of the process fidelity well (the mean s* matches the actual spread of the
+estimates over repetitions), but not its *bias* or shape. Near the boundary
+of the physical set the estimate lies closer to the boundary than the truth,
+so refits around it exaggerate the bias of ``mle`` (bootstrap bias a few
+tenths of s* against a true bias near zero) and understate the large bias of
+``pls`` near a pure process. Intervals that use the bootstrap's bias — the
+percentile interval (which carries it twice), ``basic`` and ``bc`` — then
+cover less than nominal with ``mle``; ``normal`` came closest to 95% for
+``mle`` and for ``pls`` at full rank. No construction rescues ``pls`` near
+a pure process (there its bias is several times its spread; ``basic``
+covers best, still well below 95%, and ``bc`` collapses onto the top
+resamples, a falsely narrow interval, because z₀ saturates); for that case
+`run_bootstrap` raises a `GatescopeWarning` whenever the bootstrap bias of
+a figure exceeds its spread.
 """
 
 from __future__ import annotations
@@ -81,7 +95,6 @@ import time
 import warnings
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from contextlib import contextmanager
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import ndtr, ndtri
@@ -95,8 +108,8 @@ from .model import MeasurementModel
 from .results import Bootstrap
 
 KINDS = ("parametric", "nonparametric")
-INTERVALS = ("percentile", "basic", "bc")
-DEFAULT_INTERVAL = "bc"
+INTERVALS = ("percentile", "basic", "bc", "normal")
+DEFAULT_INTERVAL = "normal"
 FAILURE_WARNING_FRACTION = 0.01
 CHUNKS_PER_WORKER = 8
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
@@ -132,7 +145,25 @@ def resample_counts(means: np.ndarray, seed_sequence: np.random.SeedSequence) ->
 # Intervals
 # --------------------------------------------------------------------------
 
-def interval(values, point: float, level: float = 0.95, method: str = DEFAULT_INTERVAL):
+def parameter_range(name: str, dim: int):
+    """The values the true figure ``name`` can take for a CPTP process on ``dim`` dimensions.
+
+    ``None`` for a figure without a known range. Fidelities, the trace,
+    the unitarity and the concurrence lie in [0, 1]; the purity Tr J²/d² in
+    [1/d², 1]; the smallest eigenvalue of a Choi matrix (trace d, d²
+    eigenvalues) in [0, 1/d]; a diamond distance in [0, 2].
+    """
+    unit = (0.0, 1.0)
+    ranges = {"process_fidelity": unit, "average_gate_fidelity": unit, "trace": unit,
+              "purity": (1.0 / dim**2, 1.0), "min_eigenvalue": (0.0, 1.0 / dim),
+              "unitarity": unit, "nearest_unitary_fidelity": unit,
+              "process_fidelity_local_phases": unit, "truth_table_fidelity": unit,
+              "concurrence": unit, "diamond_distance": (0.0, 2.0)}
+    return ranges.get(name)
+
+
+def interval(values, point: float, level: float = 0.95, method: str = DEFAULT_INTERVAL,
+             bounds=None):
     """Bootstrap confidence interval (low, high) of one figure.
 
     Parameters
@@ -143,9 +174,13 @@ def interval(values, point: float, level: float = 0.95, method: str = DEFAULT_IN
         The figure of the point estimate θ̂.
     level : float
         Confidence level 1 − α, a fraction in (0, 1).
-    method : {"percentile", "basic", "bc"}
+    method : {"percentile", "basic", "bc", "normal"}
         See the module docstring; quantiles are numpy's default (linear
         interpolation between order statistics).
+    bounds : (float, float), optional
+        The range the true value can take (`parameter_range`); the interval
+        is intersected with it. An interval wholly outside collapses onto
+        the nearer bound.
 
     Returns
     -------
@@ -165,6 +200,9 @@ def interval(values, point: float, level: float = 0.95, method: str = DEFAULT_IN
     elif method == "basic":
         qlo, qhi = np.quantile(v, [alpha / 2, 1 - alpha / 2])
         lo, hi = 2.0 * point - qhi, 2.0 * point - qlo
+    elif method == "normal":
+        half = ndtri(1 - alpha / 2) * (np.std(v, ddof=1) if v.size > 1 else math.nan)
+        lo, hi = point - half, point + half
     else:
         below = np.count_nonzero(v < point) + 0.5 * np.count_nonzero(v == point)
         # keep z0 finite when θ̂ lies outside the bootstrap values: clip at half a sample
@@ -173,6 +211,8 @@ def interval(values, point: float, level: float = 0.95, method: str = DEFAULT_IN
         a1 = ndtr(2.0 * z0 + ndtri(alpha / 2))
         a2 = ndtr(2.0 * z0 + ndtri(1 - alpha / 2))
         lo, hi = np.quantile(v, [a1, a2])
+    if bounds is not None:
+        lo, hi = np.clip([lo, hi], bounds[0], bounds[1])
     return (float(lo), float(hi))
 
 
@@ -180,14 +220,17 @@ def attach_intervals(result, boot: Bootstrap, ci_level: float) -> None:
     """Set ``result.figures[name].ci`` and ``.level`` from ``boot``; set ``result.bootstrap``.
 
     The interval construction is ``boot.interval``; the point value is the
-    figure of ``result`` itself.
+    figure of ``result`` itself; every interval is intersected with the
+    range the true figure can take (`parameter_range`).
     """
     _check_level(ci_level, key="ci_level")
+    dim = int(round(np.sqrt(np.asarray(result.choi).shape[0])))
     for k, name in enumerate(boot.names):
         fig = result.figures.get(name)
         if fig is None:
             continue
-        fig.ci = interval(boot.figures[:, k], fig.value, ci_level, boot.interval)
+        fig.ci = interval(boot.figures[:, k], fig.value, ci_level, boot.interval,
+                          parameter_range(name, dim))
         fig.level = float(ci_level)
     result.bootstrap = boot
 
@@ -458,6 +501,26 @@ def failure_message(failures: int, errors: int, samples: int) -> str | None:
                    "(see Bootstrap.converged)")
 
 
+def biased_figures(names, figures: np.ndarray, point_values) -> list[tuple[str, float, float]]:
+    """(name, bootstrap bias, spread) of every figure whose bias exceeds its spread.
+
+    Bias is mean(θ*) − θ̂ and spread the standard deviation s* over the
+    resamples that produced an estimate; spreads at rounding level (figures
+    fixed by the constraints, such as the trace) are ignored.
+    """
+    out = []
+    for k, name in enumerate(names):
+        v = figures[:, k]
+        v = v[np.isfinite(v)]
+        if v.size < 2:
+            continue
+        spread = float(np.std(v, ddof=1))
+        bias = float(np.mean(v) - point_values[k])
+        if spread > 1e-12 and abs(bias) > spread:
+            out.append((name, bias, spread))
+    return out
+
+
 def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
                   kind: str = "parametric", seed: int | None = None, workers: int | None = None,
                   method: str | None = None, options: dict | None = None,
@@ -484,7 +547,7 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
         Estimator options (``tol``, ``maxiter``, ...), as for the point fit.
     progress : bool
         A tqdm bar on stderr, only when stderr is a terminal.
-    interval : {"bc", "percentile", "basic"}
+    interval : {"normal", "percentile", "basic", "bc"}
         The construction `attach_intervals` will use (stored in the result).
 
     Returns
@@ -509,7 +572,8 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     seed = draw_seed() if seed is None else _check_int(seed, "seed", 0)
 
     t0 = time.perf_counter()
-    names = tuple(compute_figures(point.choi, target))
+    point_figures = compute_figures(point.choi, target)
+    names = tuple(point_figures)
     point_choi = np.asarray(point.choi, dtype=complex)
     state = {"model": model, "means": resample_means(model, point, kind), "start": point_choi,
              "target": target, "method": method, "options": options, "names": names}
@@ -574,6 +638,15 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
         if errors:
             message += f" (first error: {errors[0]})"
         warnings.warn(message, GatescopeWarning, stacklevel=2)
+    biased = biased_figures(names, figures, [point_figures[n] for n in names])
+    if biased:
+        listed = "; ".join(f"{n} (bias {b:+.2g}, spread {sp:.2g})" for n, b, sp in biased)
+        advice = (" the mle estimator is much less biased near pure processes" if method != "mle"
+                  else " more counts reduce it")
+        warnings.warn(f"the bootstrap shows a bias larger than the spread for {listed}: the "
+                      f"estimate sits at the boundary of the physical set or the estimator is "
+                      f"strongly biased here, and the intervals of these figures may not reach "
+                      f"their level;{advice}", GatescopeWarning, stacklevel=2)
     boot = Bootstrap(figures=figures, names=names, kind=kind, seed=seed, samples=samples,
                      failures=failures, interval=interval, converged=converged, errors=n_errors,
                      choi_std=acc.std("choi"), chi_std=acc.std("chi"), ptm_std=acc.std("ptm").real,
@@ -582,4 +655,5 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
 
 
 __all__ = ["KINDS", "INTERVALS", "DEFAULT_INTERVAL", "run_bootstrap", "attach_intervals",
-           "interval", "resample_means", "resample_counts", "draw_seed", "failure_message"]
+           "interval", "parameter_range", "biased_figures", "resample_means", "resample_counts",
+           "draw_seed", "failure_message"]

@@ -43,6 +43,8 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
     f.add_argument("--quiet", action="store_true", help="no progress bar")
+    f.add_argument("--diamond", action="store_true",
+                   help="also compute the diamond distance to the target (needs the sdp extra, cvxpy)")
 
     s = sub.add_parser("show", help="print a summary of a result file")
     s.add_argument("result", help="result.h5")
@@ -62,6 +64,22 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--title", default=None)
     m.add_argument("-o", "--output", required=True, metavar="DIR")
 
+    pl = sub.add_parser(
+        "plan", help="write the run sheet: wave-plate angles of every (prep, meas) pair",
+        description="The run sheet of a complete product experiment: one row per (prep, meas) pair "
+                    "with the half- and quarter-wave plate angles of every qubit, in degrees from H "
+                    "in [0, 180) (preparation: H, half-wave, quarter-wave; analysis: quarter-wave, "
+                    "half-wave, H polariser). It lists optical settings only; your local "
+                    "laser-safety rules apply.")
+    pl.add_argument("--qubits", type=int, required=True, metavar="N", help="number of qubits")
+    pl.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    pl.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    pl.add_argument("--right-circular", default="H-iV", metavar="H-iV|H+iV",
+                    help="which state R is (default H-iV)")
+    pl.add_argument("--seconds", type=float, default=None, metavar="T",
+                    help="integration time per row: adds a seconds column and prints the total")
+    pl.add_argument("-o", "--output", required=True, metavar="SHEET.csv")
+
     sub.add_parser("demo", help="the whole job on the bundled data")
     return p
 
@@ -80,7 +98,7 @@ def main(argv=None) -> int:
     warnings.simplefilter("always", GatescopeWarning)
     command_line = "gatescope " + " ".join(sys.argv[1:] if argv is None else argv)
     try:
-        return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate,
+        return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
                 "demo": cmd_demo}[args.command](args, command_line)
     except InputError as exc:
         print(f"gatescope: error: {exc}", file=sys.stderr)
@@ -113,7 +131,7 @@ def cmd_fit(args, command_line) -> int:
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
     result = fit(exp, args.method, bootstrap=args.bootstrap, bootstrap_kind=args.bootstrap_kind,
                  ci_level=args.ci_level, seed=args.seed, workers=args.workers,
-                 progress=not args.quiet, command_line=command_line)
+                 progress=not args.quiet, command_line=command_line, diamond=args.diamond)
     result.save(out)
     print(out)
     return 0
@@ -137,6 +155,21 @@ def cmd_simulate(args, command_line) -> int:
                           seed=args.seed, n_qubits=args.qubits, title=args.title,
                           command_line=command_line)
     print(path)
+    return 0
+
+
+def cmd_plan(args, command_line) -> int:
+    from .plan import format_duration, run_sheet, write_run_sheet
+
+    sheet = run_sheet(args.qubits, args.prep, args.meas, right_circular=args.right_circular,
+                      seconds=args.seconds)
+    path = write_run_sheet(args.output, sheet)
+    print(path)
+    print(f"{len(sheet.rows)} rows; plate angles in degrees from H, in [0, 180)")
+    if sheet.total_seconds is not None:
+        print(f"total integration time {format_duration(sheet.total_seconds)}, "
+              "not counting plate changes")
+    print("the sheet lists optical settings only: follow your laboratory's laser-safety rules")
     return 0
 
 

@@ -14,17 +14,54 @@ For a Choi matrix J on d dimensions and a unitary target U:
 * ``min_eigenvalue`` the smallest eigenvalue of J itself (negative for an
   unphysical linear-inversion estimate).
 
+and, from issue 5,
+
+* ``unitarity`` u = Tr(R_u† R_u)/(d² − 1), R_u the unital block (rows and
+  columns of the non-identity Paulis) of the Pauli transfer matrix
+  (Wallman, Granade, Harper & Flammia, New J. Phys. 17, 113020 (2015)); 1
+  for a unitary, (1 − p)² for a depolarising channel. For a trace-decreasing
+  estimate the same block formula is applied to the unnormalised map;
+* ``nearest_unitary_fidelity`` max_U F_pro(J, U) over all unitaries, the
+  process fidelity of the estimate to the unitary closest to it; that
+  unitary is returned in the details as ``nearest_unitary``
+  (:func:`nearest_unitary`);
+* ``process_fidelity_local_phases`` the process fidelity to the target after
+  the best single-qubit Z rotations before and after it
+  (:func:`local_phase_fidelity`); the phases are in the details;
+* ``truth_table_fidelity`` for a target that maps computational basis states
+  to basis states (up to phases): the mean over basis inputs of the
+  probability of the target's output basis state
+  (:func:`truth_table_fidelity`); absent for other targets;
+* ``concurrence`` for a two-qubit target: the concurrence (Wootters, Phys.
+  Rev. Lett. 80, 2245 (1998)) of the estimate's output for the product
+  six-state input the target entangles most (:func:`entangling_input`);
+  absent when no such input is entangled by the target;
+* ``diamond_distance`` ‖Φ_J − Φ_U‖◇ (between 0 and 2) by the semidefinite
+  program of Watrous (:func:`diamond_distance`), only on request
+  (``diamond=True``: it needs cvxpy, and loading it alone takes about a
+  second).
+
 Target figures are absent when the experiment names no target.
 """
 
 from __future__ import annotations
 
+import itertools
+import warnings
+from functools import lru_cache
+
 import numpy as np
 
-from .channels import choi_from_unitary, dim_of_choi
+from .channels import (apply_channel, choi_from_unitary, choi_to_ptm, dim_of_choi,
+                       operator_vector, partial_trace_output)
+from .conventions import builtin_states, kron_all, n_qubits_of
+from .errors import GatescopeWarning
 
-FIGURE_NAMES = ("process_fidelity", "average_gate_fidelity", "purity", "trace", "min_eigenvalue")
-TARGET_FIGURES = ("process_fidelity", "average_gate_fidelity")
+FIGURE_NAMES = ("process_fidelity", "average_gate_fidelity", "purity", "trace", "min_eigenvalue",
+                "unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
+                "truth_table_fidelity", "concurrence", "diamond_distance")
+TARGET_FIGURES = ("process_fidelity", "average_gate_fidelity", "process_fidelity_local_phases",
+                  "truth_table_fidelity", "concurrence", "diamond_distance")
 
 
 def process_fidelity(choi: np.ndarray, unitary: np.ndarray) -> float:
@@ -56,17 +93,445 @@ def min_eigenvalue(choi: np.ndarray) -> float:
     return float(np.linalg.eigvalsh(0.5 * (choi + choi.conj().T))[0])
 
 
-def compute_figures(choi: np.ndarray, target: np.ndarray | None) -> dict[str, float]:
-    """All figures of merit, in `FIGURE_NAMES` order (target ones only with a target)."""
+# --------------------------------------------------------------------------
+# Unitarity and the nearest unitary
+# --------------------------------------------------------------------------
+
+def unitarity(choi: np.ndarray) -> float:
+    """u = Tr(R_u† R_u)/(d² − 1), R_u = PTM without its identity row and column.
+
+    Wallman, Granade, Harper & Flammia, New J. Phys. 17, 113020 (2015), for
+    trace-preserving maps: 1 exactly for unitary channels, (1 − p)² for
+    ρ ↦ (1 − p)ρ + p I/d.
+    """
+    d = dim_of_choi(choi)
+    block = choi_to_ptm(choi)[1:, 1:]
+    return float(np.sum(block * block) / (d * d - 1))
+
+
+def _polar_unitary(m: np.ndarray) -> np.ndarray:
+    w, _, vh = np.linalg.svd(m)
+    return w @ vh
+
+
+def _choi_value(choi: np.ndarray, u: np.ndarray) -> float:
+    v = operator_vector(u)
+    return float(np.vdot(v, choi @ v).real)
+
+
+def _fix_global_phase(u: np.ndarray, reference: np.ndarray | None) -> np.ndarray:
+    """Global phase making Tr(reference† U) real positive, or else the largest entry."""
+    d = u.shape[0]
+    if reference is not None:
+        overlap = np.vdot(reference, u)
+        if abs(overlap) > 1e-6 * d:
+            return u * (abs(overlap) / overlap)
+    flat = u.reshape(-1)
+    big = np.flatnonzero(np.abs(flat) >= np.abs(flat).max() - 1e-9)[0]
+    return u * (abs(flat[big]) / flat[big])
+
+
+def nearest_unitary(choi: np.ndarray, target: np.ndarray | None = None, *,
+                    tol: float = 1e-11, maxiter: int = 2000) -> tuple[np.ndarray, float]:
+    """The unitary U maximising <<U|J|U>>, and its process fidelity <<U|J|U>>/d² to J.
+
+    Starts from the polar factor of the leading Kraus operator of J (the
+    eigenvector of J with the largest eigenvalue, reshaped), of the second
+    one when its eigenvalue exceeds a quarter of the first, and, when
+    given, of the target, then iterates U ← polar(G), G the gradient
+    matrix with |G>> = J|U>>: because U ↦ <<U|J|U>> is convex for J ⪰ 0,
+    f(U') ≥ f(U) + 2 Re<<G|U' − U>> ≥ f(U) when U' is the polar factor of G
+    (the unitary maximising the linear term), so every step climbs. Each
+    start stops when a step changes U by less than ``tol`` (Frobenius norm)
+    or after ``maxiter`` steps. The problem is not concave, so this is the
+    best local maximum from these starts: for an estimate close to a
+    unitary (the case of interest) the leading Kraus operator starts in the
+    right basin, for one far from every unitary it may miss the global
+    maximum by a little. The best of the starts is returned; its global
+    phase is fixed so that Tr(target† U) is real and positive (with no
+    usable target: the largest entry, first in row-major order, is real and
+    positive).
+    """
+    d = dim_of_choi(choi)
+    J = 0.5 * (choi + choi.conj().T)
+    w, vecs = np.linalg.eigh(J)
+    # the second Kraus operator only when it is not negligible beside the first
+    second = w[-2] > 0.25 * w[-1]
+    starts = [_polar_unitary(vecs[:, -1 - k].reshape(d, d).T) for k in range(1 + second)]
+    if target is not None:
+        starts.append(np.asarray(target, dtype=complex))
+    best_u, best_f = None, -np.inf
+    for u in starts:
+        f = _choi_value(J, u)
+        for _ in range(maxiter):
+            g = (J @ operator_vector(u)).reshape(d, d).T
+            u_next = _polar_unitary(g)
+            f_next = _choi_value(J, u_next)
+            if f_next < f:                    # rounding: never step down
+                break
+            u, f, step = u_next, f_next, np.linalg.norm(u_next - u)
+            if step <= tol:
+                break
+        if f > best_f:
+            best_u, best_f = u, f
+    return _fix_global_phase(best_u, target), best_f / d**2
+
+
+# --------------------------------------------------------------------------
+# Local Z phases
+# --------------------------------------------------------------------------
+
+def _z_signs(n_qubits: int) -> np.ndarray:
+    """z[x, k] = ±1, the eigenvalue of Z on qubit k (qubit 1 most significant) of |x>."""
+    d = 2 ** n_qubits
+    bits = (np.arange(d)[:, None] >> (n_qubits - 1 - np.arange(n_qubits))[None, :]) & 1
+    return (1 - 2 * bits).astype(float)
+
+
+def z_rotations(phases) -> np.ndarray:
+    """⊗_k Rz(φ_k), Rz(φ) = diag(e^{−iφ/2}, e^{iφ/2}), qubit 1 leftmost (diagonal matrix)."""
+    phases = np.asarray(phases, dtype=float)
+    return np.diag(np.exp(-0.5j * (_z_signs(phases.size) @ phases)))
+
+
+def _phase_null_space(target: np.ndarray, z: np.ndarray) -> np.ndarray:
+    """Directions (δa, δb) with (⊗Rz(δb))·U·(⊗Rz(δa)) = U: Σ δa_k U Z_k U† + Σ δb_k Z_k = 0."""
+    n = z.shape[1]
+    cols = []
+    for k in range(n):
+        zk = np.diag(z[:, k])
+        cols.append((target @ zk @ target.conj().T).reshape(-1))
+    for k in range(n):
+        cols.append(np.diag(z[:, k]).astype(complex).reshape(-1))
+    m = np.array(cols).T
+    m = np.vstack([m.real, m.imag])
+    _, s, vh = np.linalg.svd(m)
+    rank = int(np.sum(s > 1e-9 * max(s[0], 1.0)))
+    return vh[rank:].T                                   # (2n, nullity)
+
+
+def _wrap_phase(x: np.ndarray) -> np.ndarray:
+    """Into [−π, π)."""
+    return (np.asarray(x) + np.pi) % (2 * np.pi) - np.pi
+
+
+def _newton_ascent(parts, p, *, maxiter: int = 100, gtol: float = 1e-13):
+    """Maximise f from p by Newton steps on |Hessian| (curvature of the wrong sign
+    reflected, flat directions damped) with backtracking; returns (f, p)."""
+    f, g, h = parts(p)
+    for _ in range(maxiter):
+        if np.max(np.abs(g)) <= gtol:
+            break
+        w, vecs = np.linalg.eigh(h)
+        floor = 1e-6 * max(1.0, float(np.max(np.abs(w))))
+        step = vecs @ ((vecs.T @ g) / np.maximum(np.abs(w), floor))
+        t = 1.0
+        for _ in range(40):
+            f_new, g_new, h_new = parts(p + t * step)
+            if f_new >= f:
+                break
+            t *= 0.5
+        else:
+            break                                   # no ascent left at rounding level
+        converged = f_new - f <= 1e-16 * max(1.0, abs(f)) and t * np.max(np.abs(step)) < 1e-12
+        p, f, g, h = p + t * step, f_new, g_new, h_new
+        if converged:
+            break
+    return f, p
+
+
+def local_phase_fidelity(choi: np.ndarray, target: np.ndarray, *, starts: int = 4,
+                         seed: int = 0) -> tuple[float, np.ndarray, np.ndarray]:
+    """max over a, b of F_pro(J, (⊗Rz(b_k)) · U · (⊗Rz(a_k))), and the maximising a, b.
+
+    ``a`` are the Z rotations on each qubit before the target ("before",
+    applied to the input), ``b`` those after it, in radians, each wrapped
+    into [−π, π); Rz(φ) = diag(e^{−iφ/2}, e^{iφ/2}) (CONTRACT §2 rz).
+
+    With |V>> = e^{iθ}∘|U>> and θ = M·(a, b) linear in the phases, F =
+    Σ_pq A_pq/d² with A_pq = conj(v_p) J_pq v_q; its gradient in θ is
+    2 Im(s)/d² and its Hessian 2 Re(A − diag(s))/d², s_p = Σ_q A_pq. The
+    maximisation is Newton's method on these from the same deterministic
+    starts every time (zero phases and ``starts − 1`` draws from
+    ``numpy.random.default_rng(seed)``), keeping the best.
+
+    Ambiguity: rotations that pass through the target give the same
+    channel — for a qubit whose Z the target leaves unchanged (both qubits
+    of CZ, the control of CNOT), or a Z that it moves to another qubit
+    (SWAP), only the combination matters. Of all equivalent phases the one
+    with the smallest rotations *before* the gate is reported (so a CZ's
+    local phases are all "after", a = 0). Discrete coincidences (for
+    example a π rotation before CNOT's target equals π rotations after on
+    both qubits) are resolved by taking, among the starts that reach the
+    best fidelity to 1e−9, the phases of least norm.
+    """
+    d = dim_of_choi(choi)
+    n = n_qubits_of(d)
+    J = 0.5 * (choi + choi.conj().T)
+    target = np.asarray(target, dtype=complex)
+    u = operator_vector(target)                     # u[i*d + x] = U[x, i]
+    z = _z_signs(n)
+    # θ[(i, x)] = −½ Σ_k (a_k z_k(i) + b_k z_k(x)): input i, output x
+    m = -0.5 * np.concatenate([np.repeat(z, d, axis=0), np.tile(z, (d, 1))], axis=1)
+
+    def parts(p):
+        v = np.exp(1j * (m @ p)) * u
+        jv = J @ v
+        s = v.conj() * jv
+        b = v[:, None] * m
+        hess = 2.0 * ((b.conj().T @ (J @ b)).real - m.T @ (s.real[:, None] * m))
+        return s.sum().real / d**2, (m.T @ (2.0 * s.imag)) / d**2, hess / d**2
+
+    null = _phase_null_space(target, z)
+    rng = np.random.default_rng(seed)
+    points = [np.zeros(2 * n)] + [rng.uniform(-np.pi, np.pi, 2 * n) for _ in range(starts - 1)]
+    found = []
+    for p0 in points:
+        _, p = _newton_ascent(parts, p0)
+        if null.shape[1]:
+            # shift along the flat directions to the least rotation before the gate
+            c, *_ = np.linalg.lstsq(null[:n], -p[:n], rcond=None)
+            p = p + null @ c
+        p = _wrap_phase(p)
+        found.append((parts(p)[0], p))
+    best = max(f for f, _ in found)
+    f, p = min(((f, p) for f, p in found if f >= best - 1e-9), key=lambda fp: np.linalg.norm(fp[1]))
+    return float(f), p[:n].copy(), p[n:].copy()
+
+
+# --------------------------------------------------------------------------
+# Classical truth table and entanglement
+# --------------------------------------------------------------------------
+
+def basis_permutation(target: np.ndarray, tol: float = 1e-9) -> np.ndarray | None:
+    """π with U|i> ∝ |π(i)> for every basis state i, or None when U is not of that kind."""
+    mags = np.abs(np.asarray(target))
+    perm = np.argmax(mags, axis=0)
+    ok = np.allclose(mags[perm, np.arange(mags.shape[1])], 1.0, atol=tol) and \
+        len(set(perm.tolist())) == mags.shape[1]
+    return perm if ok else None
+
+
+def truth_table_fidelity(choi: np.ndarray, target: np.ndarray) -> float | None:
+    """(1/d) Σ_i <π(i)|Φ(|i><i|)|π(i)> / Tr Φ(|i><i|), where U|i> ∝ |π(i)>.
+
+    The mean, over the d computational-basis inputs i, of the probability
+    that the estimate's output, measured in the computational basis, is the
+    basis state the target maps i to (the probability is conditioned on
+    the output, i.e. divided by Tr Φ(|i><i|), which is 1 for a
+    trace-preserving estimate). Defined only for targets that map basis
+    states to basis states up to phases (I, X, CNOT, CZ, SWAP, iSWAP, ...);
+    None otherwise.
+    """
+    perm = basis_permutation(target)
+    if perm is None:
+        return None
+    d = dim_of_choi(choi)
+    J4 = choi.reshape(d, d, d, d)                     # J4[i, a, i, a] = <a|Φ(|i><i|)|a>
+    diag = np.real(np.einsum("iaia->ia", J4))
+    return float(np.mean(diag[np.arange(d), perm] / diag.sum(axis=1)))
+
+
+_Y2 = np.array([[0, 0, 0, -1], [0, 0, 1, 0], [0, 1, 0, 0], [-1, 0, 0, 0]], dtype=complex)   # Y ⊗ Y
+
+
+def concurrence(rho: np.ndarray) -> float:
+    """Wootters' concurrence of a two-qubit density matrix (normalised here).
+
+    C = max(0, λ1 − λ2 − λ3 − λ4), λ the decreasing square roots of the
+    eigenvalues of √ρ ρ̃ √ρ, ρ̃ = (Y⊗Y) ρ* (Y⊗Y) (Wootters, Phys. Rev. Lett.
+    80, 2245 (1998)).
+    """
+    rho = 0.5 * (rho + rho.conj().T)
+    rho = rho / np.trace(rho).real
+    w, v = np.linalg.eigh(rho)
+    root = (v * np.sqrt(np.clip(w, 0.0, None))) @ v.conj().T
+    tilde = _Y2 @ rho.conj() @ _Y2
+    m = root @ tilde @ root
+    lam = np.sqrt(np.clip(np.linalg.eigvalsh(0.5 * (m + m.conj().T)), 0.0, None))[::-1]
+    return float(max(0.0, lam[0] - lam[1] - lam[2] - lam[3]))
+
+
+#: Single-qubit inputs searched by `entangling_input`; the circular ones by their
+#: handedness-free names, so the stored label means the same state in every experiment.
+ENTANGLING_SEARCH = ("H", "V", "D", "A", "+i", "-i")
+
+
+@lru_cache(maxsize=32)
+def _entangling_input_cached(key: bytes, d: int):
+    target = np.frombuffer(key, dtype=complex).reshape(d, d)
+    states = builtin_states()
+    best = None
+    for parts in itertools.product(ENTANGLING_SEARCH, repeat=2):
+        psi = kron_all([states[p][:, None] for p in parts])[:, 0]
+        out = target @ psi
+        c = 2.0 * abs(out[0] * out[3] - out[1] * out[2])   # pure two-qubit state (Wootters 1998)
+        if best is None or c > best[2] + 1e-9:
+            best = (" ".join(parts), psi, c)
+    return best
+
+
+def entangling_input(target: np.ndarray):
+    """The product six-state input whose ideal output U|ψ> has the largest concurrence.
+
+    Searches the 36 inputs ``A ⊗ B``, A and B in `ENTANGLING_SEARCH` (qubit 1
+    first, in that order; ties go to the first). Returns (label, ket,
+    ideal concurrence), or None for a target that is not two-qubit or
+    entangles none of them (ideal concurrence below 1e−6).
+    """
+    target = np.ascontiguousarray(target, dtype=complex)
+    if target.shape != (4, 4):
+        return None
+    best = _entangling_input_cached(target.tobytes(), 4)
+    return best if best[2] > 1e-6 else None
+
+
+# --------------------------------------------------------------------------
+# Diamond distance (semidefinite program, needs cvxpy)
+# --------------------------------------------------------------------------
+
+def diamond_distance(choi: np.ndarray, other: np.ndarray, *, eps: float = 1e-9) -> dict:
+    """‖Φ − Ψ‖◇ for the Choi matrix J of Φ and a unitary (or a Choi matrix) Ψ.
+
+    The semidefinite program of Watrous (J. Watrous, "Simpler semidefinite
+    programs for completely bounded norms", Chicago J. Theor. Comput. Sci.
+    2013, article 8; arXiv:1207.5726, 2012 — from memory), solved with
+    cvxpy. With Δ = J − J_Ψ in our ordering (input factor first):
+
+        ‖Φ − Ψ‖◇ = max 2 Re Tr(Δ W) − Re Tr(σ Tr_out Δ)
+                   over 0 ⪯ W ⪯ σ ⊗ I, σ ⪰ 0, Tr σ = 1.
+
+    It follows from ‖(Φ − Ψ) ⊗ id‖ being attained on a pure input (the maps
+    preserve Hermiticity), ‖Y‖₁ = max_{0⪯P⪯I} 2 Tr(PY) − Tr Y, and
+    W = (√σ ⊗ I) P (√σ ⊗ I). When both maps preserve the trace, Tr_out Δ = 0
+    and it is Watrous' program for the difference of two channels; for a
+    trace-decreasing estimate the second term stays.
+
+    Solver: SCS (a first-order conic solver; ``eps`` its absolute and
+    relative tolerance) when both maps preserve the trace, and from three
+    qubits on in any case (an interior-point solver runs out of memory
+    there); Clarabel for a trace-decreasing estimate on one or two qubits,
+    where SCS needs thousands of iterations.
+
+    Returns
+    -------
+    dict with ``value`` (between 0 and 2 for channels), ``status`` (the
+    solver's), ``solver`` and ``program`` ("trace-preserving" or
+    "trace-decreasing").
+
+    Raises
+    ------
+    ImportError
+        When cvxpy is not installed (the ``sdp`` extra).
+    """
+    import cvxpy as cp
+
+    d = dim_of_choi(choi)
+    other = np.asarray(other, dtype=complex)
+    other_choi = choi_from_unitary(other) if other.shape == (d, d) else other
+    delta = np.asarray(choi, dtype=complex) - other_choi
+    delta = 0.5 * (delta + delta.conj().T)
+    eye = np.eye(d)
+    tp = all(np.allclose(partial_trace_output(c), eye, atol=1e-8) for c in (choi, other_choi))
+    w = cp.Variable((d * d, d * d), hermitian=True)
+    sigma = cp.Variable((d, d), hermitian=True)
+    objective = 2 * cp.real(cp.trace(delta @ w))
+    if not tp:
+        loss = partial_trace_output(delta)
+        objective = objective - cp.real(cp.trace(0.5 * (loss + loss.conj().T) @ sigma))
+    constraints = [w >> 0, sigma >> 0, cp.real(cp.trace(sigma)) == 1, cp.kron(sigma, eye) - w >> 0]
+    problem = cp.Problem(cp.Maximize(objective), constraints)
+    if tp or d > 4:
+        solver = "SCS"
+        problem.solve(solver="SCS", eps_abs=eps, eps_rel=eps, max_iters=100_000)
+    else:
+        solver = "CLARABEL"
+        problem.solve(solver="CLARABEL")
+    return {"value": float(problem.value) if problem.value is not None else float("nan"),
+            "status": str(problem.status), "solver": solver,
+            "program": "trace-preserving" if tp else "trace-decreasing"}
+
+
+def _cvxpy_available() -> bool:
+    try:
+        import cvxpy  # noqa: F401
+    except ImportError:
+        return False
+    return True
+
+
+# --------------------------------------------------------------------------
+# All figures
+# --------------------------------------------------------------------------
+
+def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: bool = False,
+                    details: dict | None = None) -> dict[str, float]:
+    """All figures of merit, in `FIGURE_NAMES` order (target ones only with a target).
+
+    Parameters
+    ----------
+    choi : (d², d²) array
+    target : (d, d) unitary or None
+    diamond : bool
+        Also compute ``diamond_distance`` (needs cvxpy; without it a
+        `GatescopeWarning` says it was skipped).
+    details : dict, optional
+        Filled with what is not a single number: ``nearest_unitary``
+        (d × d complex), ``local_phases_before`` and ``local_phases_after``
+        (radians, one per qubit), ``concurrence_input`` (label of the
+        product input, e.g. "D H") and ``concurrence_ideal`` (its ideal
+        output's concurrence), ``diamond_status``, ``diamond_solver``,
+        ``diamond_program``.
+    """
     out = {}
+    extra = {} if details is None else details
     if target is not None:
         out["process_fidelity"] = process_fidelity(choi, target)
         out["average_gate_fidelity"] = average_gate_fidelity(choi, target)
     out["purity"] = purity(choi)
     out["trace"] = trace(choi)
     out["min_eigenvalue"] = min_eigenvalue(choi)
+    out["unitarity"] = unitarity(choi)
+    u_near, f_near = nearest_unitary(choi, target)
+    out["nearest_unitary_fidelity"] = f_near
+    extra["nearest_unitary"] = u_near
+    if target is None:
+        return out
+    f_loc, before, after = local_phase_fidelity(choi, target)
+    out["process_fidelity_local_phases"] = f_loc
+    extra["local_phases_before"] = before
+    extra["local_phases_after"] = after
+    tt = truth_table_fidelity(choi, target)
+    if tt is not None:
+        out["truth_table_fidelity"] = tt
+    ent = entangling_input(target)
+    if ent is not None:
+        label, psi, ideal = ent
+        out["concurrence"] = concurrence(apply_channel(choi, np.outer(psi, psi.conj())))
+        extra["concurrence_input"] = label
+        extra["concurrence_ideal"] = float(ideal)
+    if diamond:
+        if not _cvxpy_available():
+            warnings.warn("diamond distance skipped: it needs cvxpy, the 'sdp' extra "
+                          "(pip install 'gatescope[sdp]')", GatescopeWarning, stacklevel=2)
+        else:
+            dn = diamond_distance(choi, target)
+            if dn["status"] not in ("optimal", "optimal_inaccurate"):
+                warnings.warn(f"diamond distance skipped: the solver ended with status "
+                              f"{dn['status']!r}", GatescopeWarning, stacklevel=2)
+            else:
+                if dn["status"] != "optimal":
+                    warnings.warn(f"diamond distance: the solver reports {dn['status']!r}",
+                                  GatescopeWarning, stacklevel=2)
+                out["diamond_distance"] = dn["value"]
+                extra["diamond_status"] = dn["status"]
+                extra["diamond_solver"] = dn["solver"]
+                extra["diamond_program"] = dn["program"]
     return out
 
 
-__all__ = ["FIGURE_NAMES", "compute_figures", "process_fidelity", "average_gate_fidelity",
-           "purity", "trace", "min_eigenvalue", "choi_from_unitary"]
+__all__ = ["FIGURE_NAMES", "TARGET_FIGURES", "compute_figures", "process_fidelity",
+           "average_gate_fidelity", "purity", "trace", "min_eigenvalue", "unitarity",
+           "nearest_unitary", "local_phase_fidelity", "z_rotations", "truth_table_fidelity",
+           "basis_permutation", "concurrence", "entangling_input", "diamond_distance",
+           "choi_from_unitary"]

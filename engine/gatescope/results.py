@@ -22,6 +22,8 @@ from .fileio import atomic_path
 
 FORMAT = "gatescope.result"
 FORMAT_VERSION = 1
+#: Both goodness-of-fit p-values below this: the model does not describe the data.
+POOR_FIT_P = 1e-3
 
 
 @dataclass
@@ -46,7 +48,10 @@ class Diagnostics:
     Pearson residuals are (n − ν)/√ν; deviance residuals
     sign(n − ν)·√(2[n log(n/ν) − (n − ν)]). ``dof`` is the number of rows
     minus the process parameters the data determine minus the number of
-    fitted intensities.
+    fitted intensities. ``chi2_p_value`` and ``deviance_p_value`` are
+    P(χ²_dof ≥ statistic) (NaN when dof ≤ 0); ``outlier_rows`` the indices
+    (into the CSV's data rows, first row 0) of rows with |Pearson residual|
+    > 4 or with counts where the model expects none.
     """
 
     expected_counts: np.ndarray
@@ -55,6 +60,26 @@ class Diagnostics:
     chi2: float
     deviance: float
     dof: int
+    chi2_p_value: float = float("nan")
+    deviance_p_value: float = float("nan")
+    outlier_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    @property
+    def p_value(self) -> float:
+        """The larger of the two p-values (NaN when neither is defined)."""
+        p = [x for x in (self.chi2_p_value, self.deviance_p_value) if not np.isnan(x)]
+        return max(p) if p else float("nan")
+
+    @property
+    def poor_fit(self) -> bool:
+        """Both the Pearson and the deviance test reject the model at `POOR_FIT_P`.
+
+        Requiring both keeps false alarms rare: for a well-described gate
+        close to a unitary the estimate sits on the boundary of the
+        physical set, which pushes both statistics somewhat above their χ²
+        reference (the p-values are then smaller than nominal).
+        """
+        return bool(self.p_value < POOR_FIT_P)
 
 
 @dataclass
@@ -70,7 +95,7 @@ class Bootstrap:
     seed : the seed of ``numpy.random.SeedSequence`` the resamples were spawned from
     samples : B
     failures : refits that did not converge (including those that raised)
-    interval : construction of the ``ci`` of the figures ("bc", "percentile", "basic")
+    interval : construction of the ``ci`` of the figures (`gatescope.bootstrap.INTERVALS`)
     converged : (B,) bool, per resample
     errors : refits that raised a numerical error (left out of intervals and stds)
     choi_std, chi_std : complex arrays, element-wise standard deviations over
@@ -117,6 +142,10 @@ class Result:
     prep_states, meas_effects : the model's density matrices and effects
     target : the target unitary or None; target_name its name
     bootstrap : Bootstrap or None
+    figure_details : dict of what belongs to the figures but is not one
+        number (`gatescope.figures.compute_figures`): arrays such as
+        ``nearest_unitary``, ``local_phases_before``/``_after``, and strings
+        or numbers such as ``concurrence_input``; stored in /figures_extra
     """
 
     choi: np.ndarray
@@ -142,6 +171,7 @@ class Result:
     target_name: str | None = None
     bootstrap: Bootstrap | None = None
     created_utc: str = field(default_factory=lambda: _dt.datetime.now(_dt.timezone.utc).isoformat())
+    figure_details: dict = field(default_factory=dict)
 
     def save(self, path) -> Path:
         """Write the CONTRACT §5 layout to ``path`` atomically; returns the path."""
@@ -198,6 +228,12 @@ def _write(f: h5py.File, r: Result) -> None:
             ds.attrs["ci_low"] = float(fig.ci[0])
             ds.attrs["ci_high"] = float(fig.ci[1])
             ds.attrs["ci_level"] = float(fig.level)
+    extra = f.create_group("figures_extra")
+    for name, value in r.figure_details.items():
+        if isinstance(value, np.ndarray):
+            extra.create_dataset(name, data=value)
+        else:
+            extra.attrs[name] = value
 
     if r.bootstrap is not None:
         b = f.create_group("bootstrap")
@@ -232,6 +268,9 @@ def _write(f: h5py.File, r: Result) -> None:
     dg.attrs["chi2"] = float(d.chi2)
     dg.attrs["deviance"] = float(d.deviance)
     dg.attrs["dof"] = int(d.dof)
+    dg.attrs["chi2_p_value"] = float(d.chi2_p_value)
+    dg.attrs["deviance_p_value"] = float(d.deviance_p_value)
+    dg.create_dataset("outlier_rows", data=np.asarray(d.outlier_rows, dtype=np.int64))
 
 
 def _attr(obj, key, default=None):
@@ -308,7 +347,16 @@ def load_result(path) -> Result:
         dg = f["diagnostics"]
         diagnostics = Diagnostics(dg["expected_counts"][()], dg["pearson_residuals"][()],
                                   dg["deviance_residuals"][()], float(_attr(dg, "chi2")),
-                                  float(_attr(dg, "deviance")), int(_attr(dg, "dof")))
+                                  float(_attr(dg, "deviance")), int(_attr(dg, "dof")),
+                                  float(_attr(dg, "chi2_p_value", np.nan)),
+                                  float(_attr(dg, "deviance_p_value", np.nan)),
+                                  dg["outlier_rows"][()] if "outlier_rows" in dg
+                                  else np.zeros(0, dtype=np.int64))
+        details = {}
+        if "figures_extra" in f:
+            extra = f["figures_extra"]
+            details = {name: extra[name][()] for name in extra}
+            details.update({key: _attr(extra, key) for key in extra.attrs})
         prov = {k: _attr(f["provenance"], k) for k in f["provenance"].attrs}
         return Result(
             choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()], figures=figures,
@@ -321,5 +369,5 @@ def load_result(path) -> Result:
             csv_sha256=_attr(f["input/counts"], "sha256"), counts_columns=counts,
             prep_states=f["model/prep_states"][()], meas_effects=f["model/meas_effects"][()],
             target=target, target_name=target_name, bootstrap=boot,
-            created_utc=_attr(f, "created_utc"),
+            created_utc=_attr(f, "created_utc"), figure_details=details,
         )

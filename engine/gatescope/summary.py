@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy.stats import chi2 as _chi2
 
-from .results import Result
+from .results import POOR_FIT_P, Result
 
 LABELS = {
     "process_fidelity": "process fidelity",
@@ -13,7 +12,16 @@ LABELS = {
     "purity": "purity",
     "trace": "trace (Tr J / d)",
     "min_eigenvalue": "min eigenvalue of J",
+    "unitarity": "unitarity",
+    "nearest_unitary_fidelity": "fidelity to nearest unitary",
+    "process_fidelity_local_phases": "process fid., local Z phases",
+    "truth_table_fidelity": "truth-table fidelity",
+    "concurrence": "concurrence of output",
+    "diamond_distance": "diamond distance to target",
 }
+
+#: Outlier rows listed by `show` (the rest are counted).
+MAX_OUTLIERS_SHOWN = 20
 
 
 def _num(x: float) -> str:
@@ -49,7 +57,8 @@ def summary(result: Result) -> str:
     lines.append("")
     lines.append("figures of merit")
     for name, fig in r.figures.items():
-        lines.append(f"  {LABELS.get(name, name):24s} {_fmt_figure(fig)}")
+        lines.append(f"  {LABELS.get(name, name):30s} {_fmt_figure(fig)}")
+    lines.extend(_figure_details(r))
     if r.bootstrap is not None:
         b = r.bootstrap
         refit = f" refitted with {b.method}" if b.method else ""
@@ -62,10 +71,7 @@ def summary(result: Result) -> str:
                  f"{r.iterations} iterations, {r.seconds:.3f} s")
     lines.append(f"  stop reason: {r.stop_reason}")
     lines.append(f"  log-likelihood {r.log_likelihood:.6f}")
-    dg = r.diagnostics
-    p = float(_chi2.sf(dg.chi2, dg.dof)) if dg.dof > 0 else float("nan")
-    lines.append(f"  Pearson chi2 {dg.chi2:.2f} on {dg.dof} degrees of freedom (p = {p:.3g}); "
-                 f"deviance {dg.deviance:.2f}")
+    lines.extend(_goodness_of_fit(r))
     pr = r.provenance
     lines.append("")
     lines.append("provenance")
@@ -75,3 +81,57 @@ def summary(result: Result) -> str:
     lines.append(f"  command: {pr.get('command_line', '')}")
     lines.append(f"  input sha256: experiment {r.toml_sha256[:12]}…, counts {r.csv_sha256[:12]}…")
     return "\n".join(lines)
+
+
+def _degrees(phases) -> str:
+    return "(" + ", ".join(f"{np.degrees(x):+.2f}°" for x in np.asarray(phases).ravel()) + ")"
+
+
+def _figure_details(r: Result) -> list[str]:
+    """The non-scalar parts of the figures: phases, the concurrence input, the nearest unitary."""
+    det = r.figure_details
+    out = []
+    if "local_phases_before" in det:
+        out.append(f"    local Z phases per qubit: before the gate {_degrees(det['local_phases_before'])}, "
+                   f"after {_degrees(det['local_phases_after'])}")
+    if "concurrence_input" in det:
+        out.append(f"    concurrence for the input {det['concurrence_input']} "
+                   f"(ideal output: {_num(float(det.get('concurrence_ideal', np.nan)))})")
+    if "diamond_distance" in r.figures and "diamond_solver" in det:
+        out.append(f"    diamond distance by semidefinite program ({det['diamond_solver']}, "
+                   f"{det.get('diamond_status', '?')}), not bootstrapped")
+    elif r.target is not None and "diamond_distance" not in r.figures:
+        out.append("    diamond distance not computed (fit with --diamond; needs cvxpy)")
+    u = det.get("nearest_unitary")
+    if u is not None and u.shape[0] <= 4:
+        out.append("    nearest unitary (rows):")
+        for row in u:
+            out.append("      " + "  ".join(f"{z.real:+.3f}{z.imag:+.3f}j" for z in row))
+    return out
+
+
+def _goodness_of_fit(r: Result) -> list[str]:
+    dg = r.diagnostics
+    out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance {dg.deviance:.2f} "
+           f"(p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
+    if r.method not in ("mle", "truth"):
+        out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these p-values "
+                   "are lower than for the model itself; refit with mle to test the model)")
+    elif dg.poor_fit:
+        out.append(f"  WARNING: p < {POOR_FIT_P:g}, the model does not describe the data: check for "
+                   "miscalibrated optics, drift of the source, or a wrong background")
+    rows = np.asarray(dg.outlier_rows, dtype=int)
+    if rows.size:
+        out.append(f"  {rows.size} row(s) with |Pearson residual| > 4 (CSV data row, first = 1):")
+        out.append(f"    {'row':>6s}  {'prep':10s} {'meas':10s} {'counts':>9s} {'expected':>11s} "
+                   f"{'residual':>9s}")
+        order = rows[np.argsort(-np.abs(np.nan_to_num(dg.pearson_residuals[rows], nan=np.inf)),
+                                kind="stable")]
+        cols = r.counts_columns
+        for k in order[:MAX_OUTLIERS_SHOWN]:
+            out.append(f"    {k + 1:6d}  {str(cols['prep'][k]):10s} {str(cols['meas'][k]):10s} "
+                       f"{int(cols['counts'][k]):9d} {dg.expected_counts[k]:11.2f} "
+                       f"{dg.pearson_residuals[k]:+9.2f}")
+        if rows.size > MAX_OUTLIERS_SHOWN:
+            out.append(f"    ... and {rows.size - MAX_OUTLIERS_SHOWN} more (all in /diagnostics/outlier_rows)")
+    return out
