@@ -380,3 +380,28 @@ def test_cli_fit_writes_intervals_and_show_displays_them(make_experiment, tmp_pa
     assert f"{fid.ci[0]:.5f}" in line and f"{fid.ci[1]:.5f}" in line and "95%" in line
     assert f"+{fid.ci[1] - fid.value:.5f}" in line and f"−{fid.value - fid.ci[0]:.5f}" in line
     assert "20 parametric resamples" in text
+
+
+def test_bad_bootstrap_options_fail_before_the_fit(make_experiment, monkeypatch):
+    # a bad confidence level is reported at once, naming the option, before any fitting
+    import gatescope.api as api
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    called = []
+    monkeypatch.setattr(api, "estimate", lambda *a, **k: called.append(1))
+    with pytest.raises(gs.InputError, match="ci_level"):
+        gs.fit(exp, "pls", bootstrap=10, ci_level=1.5)
+    with pytest.raises(gs.InputError, match="interval"):
+        gs.fit(exp, "pls", bootstrap=10, interval="magic")
+    assert not called
+
+
+def test_interval_choice_reaches_the_result(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    res = gs.fit(exp, "pls", bootstrap=20, seed=3, workers=1, interval="percentile")
+    assert res.bootstrap.interval == "percentile"
+    lo, hi = res.figures["process_fidelity"].ci
+    values = res.bootstrap.figures[:, res.bootstrap.names.index("process_fidelity")]
+    # percentile interval: the 2.5% and 97.5% quantiles of the resampled values (Efron &
+    # Tibshirani 1993, §13.3), clipped to [0, 1]
+    assert lo == pytest.approx(max(0.0, np.quantile(values, 0.025)), abs=1e-12)
+    assert hi == pytest.approx(min(1.0, np.quantile(values, 0.975)), abs=1e-12)

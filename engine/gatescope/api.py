@@ -153,7 +153,7 @@ def build_result(exp: Experiment, model: MeasurementModel, fit: Fit, *, n_determ
 def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         bootstrap_kind: str = "parametric", ci_level: float = 0.95, seed: int | None = None,
         workers: int | None = None, progress: bool = False, command_line: str | None = None,
-        diamond: bool = False, **options) -> Result:
+        diamond: bool = False, interval: str | None = None, **options) -> Result:
     """Reconstruct the process of an experiment and compute its figures of merit.
 
     Parameters
@@ -173,6 +173,10 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         Processes for the bootstrap (default: the machine's cores).
     progress : bool
         Show a progress bar on stderr (only when it is a terminal).
+    interval : {"normal", "percentile", "basic", "bc"}, optional
+        Construction of the bootstrap intervals (default
+        `gatescope.bootstrap.DEFAULT_INTERVAL`, "normal"; see
+        :mod:`gatescope.bootstrap` and benchmarks/README.md for why).
     diamond : bool
         Also compute the diamond distance to the target by a semidefinite
         program (needs cvxpy, the ``sdp`` extra; skipped with a warning
@@ -189,6 +193,12 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     """
     if method not in METHODS:
         raise ValueError(f"unknown method {method!r}; known: {', '.join(METHODS)}")
+    if bootstrap:
+        # check the bootstrap's options before the fit, not after all its resamples
+        from .bootstrap import DEFAULT_INTERVAL, check_options
+        interval = DEFAULT_INTERVAL if interval is None else interval
+        check_options(samples=bootstrap, kind=bootstrap_kind, ci_level=ci_level,
+                      workers=workers, interval=interval)
     started = time.time()
     t0 = time.perf_counter()
     model = MeasurementModel(experiment)
@@ -199,7 +209,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         from .bootstrap import run_bootstrap
         boot, seed = run_bootstrap(model, point, experiment.target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
-                                   method=method, options=options, progress=progress)
+                                   method=method, options=options, progress=progress,
+                                   interval=interval)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.perf_counter() - t0)
     result = build_result(experiment, model, point, n_determined=ident.rank, prov=prov,

@@ -521,6 +521,22 @@ def biased_figures(names, figures: np.ndarray, point_values) -> list[tuple[str, 
     return out
 
 
+def check_options(*, samples, kind: str = "parametric", workers=None,
+                  interval: str = DEFAULT_INTERVAL, ci_level=None) -> tuple[int, int]:
+    """Validate the bootstrap's options (InputError naming the option); returns
+    (samples, workers) with the default worker count filled in."""
+    samples = _check_int(samples, "bootstrap", 2)
+    if kind not in KINDS:
+        raise InputError(f"unknown kind {kind!r}; known: {', '.join(KINDS)}", key="bootstrap_kind")
+    if interval not in INTERVALS:
+        raise InputError(f"unknown interval {interval!r}; known: {', '.join(INTERVALS)}",
+                         key="interval")
+    if ci_level is not None:
+        _check_level(ci_level, key="ci_level")
+    workers = (os.cpu_count() or 1) if workers is None else _check_int(workers, "workers", 1)
+    return samples, workers
+
+
 def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
                   kind: str = "parametric", seed: int | None = None, workers: int | None = None,
                   method: str | None = None, options: dict | None = None,
@@ -555,13 +571,8 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     (Bootstrap, int)
         The resampled figures and summaries, and the seed used.
     """
-    samples = _check_int(samples, "bootstrap", 2)
-    if kind not in KINDS:
-        raise InputError(f"unknown kind {kind!r}; known: {', '.join(KINDS)}", key="bootstrap_kind")
-    if interval not in INTERVALS:
-        raise InputError(f"unknown interval {interval!r}; known: {', '.join(INTERVALS)}",
-                         key="interval")
-    workers = (os.cpu_count() or 1) if workers is None else _check_int(workers, "workers", 1)
+    samples, workers = check_options(samples=samples, kind=kind, workers=workers,
+                                     interval=interval)
     method = point.method if method is None else method
     if method not in METHODS:
         raise InputError(f"unknown method {method!r}; known: {', '.join(METHODS)}", key="method")
@@ -654,6 +665,6 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     return boot, seed
 
 
-__all__ = ["KINDS", "INTERVALS", "DEFAULT_INTERVAL", "run_bootstrap", "attach_intervals",
+__all__ = ["KINDS", "INTERVALS", "DEFAULT_INTERVAL", "check_options", "run_bootstrap", "attach_intervals",
            "interval", "parameter_range", "biased_figures", "resample_means", "resample_counts",
            "draw_seed", "failure_message"]

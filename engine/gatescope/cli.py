@@ -40,6 +40,8 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--bootstrap", type=int, default=0, metavar="B", help="number of resamples for error bars")
     f.add_argument("--bootstrap-kind", choices=("parametric", "nonparametric"), default="parametric")
     f.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL", help="confidence level (fraction)")
+    f.add_argument("--interval", choices=("normal", "percentile", "basic", "bc"), default="normal",
+                   help="bootstrap interval construction (default normal: estimate ± z·bootstrap spread)")
     f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
     f.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -130,7 +132,7 @@ def cmd_fit(args, command_line) -> int:
     exp = read_experiment(args.experiment)
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
     result = fit(exp, args.method, bootstrap=args.bootstrap, bootstrap_kind=args.bootstrap_kind,
-                 ci_level=args.ci_level, seed=args.seed, workers=args.workers,
+                 ci_level=args.ci_level, interval=args.interval, seed=args.seed, workers=args.workers,
                  progress=not args.quiet, command_line=command_line, diamond=args.diamond)
     result.save(out)
     print(out)
