@@ -390,13 +390,11 @@ def _fork_is_safe() -> bool:
     return getattr(parallel, "_is_initialized", True) is False
 
 
-def _limit_blas_threads() -> None:
-    """Ask every OpenBLAS loaded in this process to use one thread (best effort).
+def _openblas_functions(names):
+    """For every OpenBLAS loaded in this process, its first function among ``names``.
 
-    The environment variables only act on libraries loaded after they are
-    set; a forked worker inherits libraries already loaded, so it calls each
-    library's own setter. numpy and scipy wheels may each bring their own
-    OpenBLAS, with prefixed symbol names.
+    numpy and scipy wheels may each bring their own OpenBLAS, with prefixed
+    symbol names; libraries are found through /proc/self/maps (best effort).
     """
     import ctypes
 
@@ -404,20 +402,35 @@ def _limit_blas_threads() -> None:
         with open("/proc/self/maps") as fh:
             paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
     except OSError:
-        return
+        return []
+    found = []
     for path in sorted(paths):
         try:
             lib = ctypes.CDLL(path)
         except OSError:
             continue
-        for symbol in ("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
-                       "scipy_openblas_set_num_threads", "openblas_set_num_threads64_"):
-            setter = getattr(lib, symbol, None)
-            if setter is not None:
-                setter.argtypes = [ctypes.c_int]
-                setter.restype = None
-                setter(1)
+        for symbol in names:
+            function = getattr(lib, symbol, None)
+            if function is not None:
+                found.append(function)
                 break
+    return found
+
+
+def _limit_blas_threads() -> None:
+    """Ask every OpenBLAS loaded in this process to use one thread (best effort).
+
+    The environment variables only act on libraries loaded after they are
+    set; a forked worker inherits libraries already loaded, so it calls each
+    library's own setter.
+    """
+    import ctypes
+
+    for setter in _openblas_functions(("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
+                                       "scipy_openblas_set_num_threads", "openblas_set_num_threads64_")):
+        setter.argtypes = [ctypes.c_int]
+        setter.restype = None
+        setter(1)
 
 
 def _blas_thread_counts() -> list[int]:
@@ -425,11 +438,11 @@ def _blas_thread_counts() -> list[int]:
     import ctypes
 
     counts = []
-    try:
-        with open("/proc/self/maps") as fh:
-            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
-    except OSError:
-        return counts
+    for getter in _openblas_functions(("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
+                                       "scipy_openblas_get_num_threads", "openblas_get_num_threads64_")):
+        getter.restype = ctypes.c_int
+        counts.append(int(getter()))
+    return counts
     for path in sorted(paths):
         try:
             lib = ctypes.CDLL(path)

@@ -138,28 +138,9 @@ _MATRIX_FREE_DIM = 16
 
 def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
                        maxiter: int = 100) -> Projection:
-    """Euclidean (Frobenius) projection onto CPTP maps, in NumPy (twin of the kernel).
-
-    Same parameters and result as :func:`project_cptp`.
-
-    Parameters
-    ----------
-    x : (d², d²) complex array
-        Matrix to project; its Hermitian part is used.
-    multiplier : (d, d) complex array, optional
-        Warm start for the dual variable (``Projection.multiplier`` of a
-        previous, nearby call).
-    tol : float
-        Stop when ‖Tr_out J − I‖_F ≤ tol.
-    maxiter : int
-        Maximum number of Newton iterations.
-
-    Returns
-    -------
-    Projection
-        ``choi`` is positive semidefinite (eigenvalues ≥ −1e−12·‖x‖) and trace
-        preserving to rounding error.
-    """
+    """Euclidean (Frobenius) projection onto CPTP maps, in NumPy: the twin of the
+    compiled kernel and the path used from d = 8 on. Same parameters and result as
+    :func:`project_cptp`."""
     n = x.shape[0]
     d = int(round(np.sqrt(n)))
     x4 = (0.5 * (x + x.conj().T)).reshape(d, d, d, d)
