@@ -183,6 +183,24 @@ class Result:
 
 
 _STR = h5py.string_dtype("utf-8")
+_COMPRESS_FROM = 4096          # elements; smaller datasets stay contiguous and uncompressed
+
+
+def _put(group, name: str, data):
+    """Create a dataset, gzip-compressed when large (per-row arrays of big experiments).
+
+    Text columns are stored as fixed-length UTF-8, which compresses (a
+    variable-length string heap does not).
+    """
+    data = np.asarray(data)
+    if data.dtype.kind in "OUS":
+        encoded = [str(v).encode("utf-8") for v in data.reshape(-1)]
+        width = max((len(e) for e in encoded), default=1) or 1
+        data = np.array(encoded, dtype=h5py.string_dtype("utf-8", width)).reshape(data.shape)
+    if data.size >= _COMPRESS_FROM and data.ndim >= 1:
+        return group.create_dataset(name, data=data, compression="gzip", compression_opts=4,
+                                    shuffle=True)
+    return group.create_dataset(name, data=data)
 
 
 def _write(f: h5py.File, r: Result) -> None:
@@ -197,14 +215,11 @@ def _write(f: h5py.File, r: Result) -> None:
     counts.attrs["sha256"] = r.csv_sha256
     for name, values in r.counts_columns.items():
         values = np.asarray(values)
-        if values.dtype.kind in "OUS":
-            counts.create_dataset(name, data=np.array(values, dtype=object), dtype=_STR)
-        else:
-            counts.create_dataset(name, data=values)
+        _put(counts, name, values)
 
     model = f.create_group("model")
-    model.create_dataset("prep_states", data=np.asarray(r.prep_states, dtype=np.complex128))
-    model.create_dataset("meas_effects", data=np.asarray(r.meas_effects, dtype=np.complex128))
+    _put(model, "prep_states", np.asarray(r.prep_states, dtype=np.complex128))
+    _put(model, "meas_effects", np.asarray(r.meas_effects, dtype=np.complex128))
     if r.target is not None:
         t = model.create_dataset("target_unitary", data=np.asarray(r.target, dtype=np.complex128))
         t.attrs["name"] = r.target_name or ""
@@ -262,9 +277,9 @@ def _write(f: h5py.File, r: Result) -> None:
 
     dg = f.create_group("diagnostics")
     d = r.diagnostics
-    dg.create_dataset("expected_counts", data=np.asarray(d.expected_counts, dtype=np.float64))
-    dg.create_dataset("pearson_residuals", data=np.asarray(d.pearson_residuals, dtype=np.float64))
-    dg.create_dataset("deviance_residuals", data=np.asarray(d.deviance_residuals, dtype=np.float64))
+    _put(dg, "expected_counts", np.asarray(d.expected_counts, dtype=np.float64))
+    _put(dg, "pearson_residuals", np.asarray(d.pearson_residuals, dtype=np.float64))
+    _put(dg, "deviance_residuals", np.asarray(d.deviance_residuals, dtype=np.float64))
     dg.attrs["chi2"] = float(d.chi2)
     dg.attrs["deviance"] = float(d.deviance)
     dg.attrs["dof"] = int(d.dof)
