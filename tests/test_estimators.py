@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from gatescope import GatescopeWarning, read_experiment
-from gatescope.channels import choi_from_unitary, partial_trace_output
+from gatescope.channels import partial_trace_output
 from gatescope.conventions import named_gate
 from gatescope.estimators import ESTIMATORS, estimate
 from gatescope.figures import process_fidelity

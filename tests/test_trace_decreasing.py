@@ -100,6 +100,5 @@ def test_cptni_projection_against_cvxpy(d):
 
 def test_cptni_projection_leaves_tni_points_alone(rng):
     # a point already in the set is its own projection (projection theorem)
-    d = 2
     choi = 0.6 * build_channel("H", [("amplitude-damping", 0.3)], 1)
     np.testing.assert_allclose(project_cptni(choi).choi, choi, atol=1e-12)

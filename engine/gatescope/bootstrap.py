@@ -443,19 +443,6 @@ def _blas_thread_counts() -> list[int]:
         getter.restype = ctypes.c_int
         counts.append(int(getter()))
     return counts
-    for path in sorted(paths):
-        try:
-            lib = ctypes.CDLL(path)
-        except OSError:
-            continue
-        for symbol in ("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
-                       "scipy_openblas_get_num_threads", "openblas_get_num_threads64_"):
-            getter = getattr(lib, symbol, None)
-            if getter is not None:
-                getter.restype = ctypes.c_int
-                counts.append(int(getter()))
-                break
-    return counts
 
 
 def _worker_threads() -> dict:

@@ -23,7 +23,6 @@ from functools import lru_cache
 
 import numpy as np
 
-from .errors import InputError
 
 SQRT_HALF = 1.0 / np.sqrt(2.0)
 
