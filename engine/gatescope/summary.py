@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import tomllib
+
 import numpy as np
 
 from .results import POOR_FIT_P, Result
@@ -38,6 +40,8 @@ def _fmt_figure(fig) -> str:
     if fig.ci is None:
         return _num(fig.value)
     lo, hi = fig.ci
+    if abs(hi - lo) < 5e-13:           # fixed by a constraint (e.g. trace of a TP map)
+        return f"{_num(fig.value)}  (no spread) at {100 * fig.level:g}%"
     # value with the distances to the interval ends, then the interval itself
     return (f"{_num(fig.value)} {_signed(hi - fig.value)} {_signed(lo - fig.value)}  "
             f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%")
@@ -47,8 +51,10 @@ def summary(result: Result) -> str:
     """Figures (with intervals), fit status, goodness of fit and provenance as text."""
     r = result
     lines = []
-    toml_title = next((ln.split("=", 1)[1].strip().strip('"') for ln in r.experiment_toml.splitlines()
-                       if ln.strip().startswith("title") and "=" in ln), "")
+    try:
+        toml_title = str(tomllib.loads(r.experiment_toml).get("title", ""))
+    except tomllib.TOMLDecodeError:     # a file written by hand elsewhere; the title is cosmetic
+        toml_title = ""
     d = int(round(np.sqrt(r.choi.shape[0])))
     n = int(round(np.log2(d)))
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
