@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kernels
+from .channels import partial_trace_output
 
 
 @dataclass
@@ -40,10 +41,6 @@ class Projection:
     iterations: int
     tp_residual: float          # ‖Tr_out J − I‖_F before the final congruence
     converged: bool
-
-
-def _partial_trace_out(m: np.ndarray, d: int) -> np.ndarray:
-    return np.einsum("iaja->ij", m.reshape(d, d, d, d))
 
 
 def _positive_part(z: np.ndarray):
@@ -105,7 +102,7 @@ def _newton_apply(w: np.ndarray, q: np.ndarray, d: int, v: np.ndarray) -> np.nda
     half = qp @ k @ q.conj().T                                 # pairs (pos, any)
     k_pp = k[:, pos]
     full = half + half.conj().T - qp @ k_pp @ qp.conj().T      # add (any, pos), count (pos, pos) once
-    return _partial_trace_out(full, d)
+    return partial_trace_output(full)
 
 
 def _newton_step(w, q, d, grad, mu, matrix_free: bool) -> np.ndarray:
@@ -152,7 +149,7 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
         z = (x4 + y[:, None, :, None] * eye[None, :, None, :]).reshape(n, n)
         j, w, q = _positive_part(z)
         theta = np.trace(y).real - 0.5 * np.dot(np.maximum(w, 0.0), np.maximum(w, 0.0))
-        grad = eye - _partial_trace_out(j, d)
+        grad = eye - partial_trace_output(j)
         return theta, j, w, q, grad
 
     theta, j, w, q, grad = dual(y)
@@ -184,7 +181,7 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
 def _finish(j, y, it, res, tol, d) -> Projection:
     """Final congruence (exact trace preservation) and the result record."""
     eye = np.eye(d)
-    tr_out = _partial_trace_out(j, d)
+    tr_out = partial_trace_output(j)
     tw, tv = np.linalg.eigh(0.5 * (tr_out + tr_out.conj().T))
     if tw.min() > 0.5:
         m = (tv / np.sqrt(tw)) @ tv.conj().T
@@ -239,9 +236,7 @@ def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: fl
 # --------------------------------------------------------------------------
 
 def _project_psd(m: np.ndarray) -> np.ndarray:
-    w, q = np.linalg.eigh(0.5 * (m + m.conj().T))
-    pos = w > 0
-    return (q[:, pos] * w[pos]) @ q[:, pos].conj().T
+    return _positive_part(0.5 * (m + m.conj().T))[0]
 
 
 def _project_trace_nonincreasing(m: np.ndarray, d: int) -> np.ndarray:
@@ -250,7 +245,7 @@ def _project_trace_nonincreasing(m: np.ndarray, d: int) -> np.ndarray:
     Tr_out has Tr_out(Tr_out)* = d·id, so the projection moves J by
     −(1/d)·[Tr_out J − I]_+ ⊗ I, [·]_+ the positive part.
     """
-    t = _partial_trace_out(m, d)
+    t = partial_trace_output(m)
     w, q = np.linalg.eigh(0.5 * (t + t.conj().T) - np.eye(d))
     excess = (q[:, w > 0] * w[w > 0]) @ q[:, w > 0].conj().T
     return m - np.kron(excess, np.eye(d)) / d
@@ -289,7 +284,7 @@ def project_cptni(x: np.ndarray, *, tol: float = 1e-12, maxiter: int = 20000) ->
         if change <= tol * max(1.0, np.linalg.norm(j)):
             break
     j = _project_psd(j)
-    t = _partial_trace_out(j, d)
+    t = partial_trace_output(j)
     tau, v = np.linalg.eigh(0.5 * (t + t.conj().T))
     if tau.max() > 1.0:
         m = (v * np.minimum(1.0, 1.0 / np.sqrt(np.maximum(tau, 1e-300)))) @ v.conj().T
