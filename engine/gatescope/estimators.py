@@ -252,7 +252,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         if ev.finite:
             break
     x_prev = x
-    ev_x = ev
+    ev_x = ev_prev = ev
     momentum = 1.0
     step = 1.0 / max(lik.total_counts, 1.0)   # refined by backtracking at the first iteration
     residual = np.inf
@@ -267,7 +267,9 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         beta = (momentum - 1.0) / new_momentum
         if beta > 0:
             y = x + beta * (x - x_prev)
-            ev_y = lik.evaluate(y)
+            # the forward map is linear: extrapolate the probabilities as well
+            ev_y = lik.evaluate(y, (1.0 + beta) * ev_x.probabilities
+                                - beta * ev_prev.probabilities)
             if not ev_y.finite:
                 y, ev_y, beta, new_momentum = x, ev_x, 0.0, 1.0
         else:
@@ -299,7 +301,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         if change < 0:
             # function-value restart: drop the momentum, retry from x
             momentum = 1.0
-            x_prev = x
+            x_prev, ev_prev = x, ev_x
             restarts += 1
             if beta == 0.0:
                 # A plain projected-gradient step that passed the ascent test yet lowered ℓ:
@@ -309,7 +311,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
                                else "the line search cannot increase the likelihood")
                 break
             continue
-        x_prev, x, ev_x = x, cand, ev_c
+        x_prev, ev_prev, x, ev_x = x, ev_x, cand, ev_c
         momentum = new_momentum
         if change <= tol and residual <= opt_tol:
             converged = True

@@ -196,48 +196,64 @@ def _dual_point(x, y, d):
 
 @njit(cache=True)
 def _newton_matrix_kernel(w, q, d):
-    """Σ_rs Ω_rs t_rs t_rs^H, t_rs = vec(Tr_out |q_r><q_s|) (twin: projection._newton_matrix)."""
+    """Σ_rs Ω_rs t_rs t_rs^H, t_rs = vec(Tr_out |q_r><q_s|), in the three parts of its
+    twin `projection._newton_matrix`: positive pairs through the projector Π = Q₊Q₊†,
+    (positive, non-positive) pairs explicitly, their mirror pairs by an index swap."""
     n = d * d
     n_pos = 0
     for r in range(n):
         if w[r] > 0.0:
             n_pos += 1
     n_neg = n - n_pos
+    jac = np.zeros((n, n), dtype=np.complex128)
     if n_pos == 0:
-        return np.zeros((n, n), dtype=np.complex128)
-    # b[o, l*n + s] = conj(q[l*d + o, s]), so that (a_r @ b)[k, l*n + s] = T_rs[k, l]
-    b = np.empty((d, d * n), dtype=np.complex128)
-    for o in range(d):
-        for l in range(d):
-            for s_ in range(n):
-                b[o, l * n + s_] = np.conj(q[l * d + o, s_])
-    rows = n_pos * n + n_pos * n_neg
-    tw = np.empty((rows, n), dtype=np.complex128)
-    a = np.empty((d, d), dtype=np.complex128)
+        return jac
+    proj = np.zeros((n, n), dtype=np.complex128)
+    for r in range(n):
+        if w[r] > 0.0:
+            for a in range(n):
+                qa = q[a, r]
+                for b in range(n):
+                    proj[a, b] += qa * np.conj(q[b, r])
+    # pm[(i,j),(a,b)] = Π[(i,a),(j,b)]; (pm pm†)[(i,j),(k,l)] is the positive-pair part at [(i,k),(j,l)]
+    pm = np.empty((n, n), dtype=np.complex128)
+    for i in range(d):
+        for j in range(d):
+            for a in range(d):
+                for b in range(d):
+                    pm[i * d + j, a * d + b] = proj[i * d + a, j * d + b]
+    pp = pm @ np.ascontiguousarray(np.conj(pm).T)
+    for i in range(d):
+        for j in range(d):
+            for k in range(d):
+                for l in range(d):
+                    jac[i * d + k, j * d + l] = pp[i * d + j, k * d + l]
+    if n_neg == 0:
+        return jac
+    tw = np.empty((n_pos * n_neg, n), dtype=np.complex128)
     row = 0
-    row_mirror = n_pos * n
     for r in range(n):
         if w[r] <= 0.0:
             continue
-        for k in range(d):
-            for o in range(d):
-                a[k, o] = q[k * d + o, r]
-        t = a @ b                                   # [k, l*n + s]
         for s_ in range(n):
             if w[s_] > 0.0:
-                weight = 1.0
-            else:
-                weight = np.sqrt(w[r] / (w[r] - w[s_]))
+                continue
+            weight = np.sqrt(w[r] / (w[r] - w[s_]))
             for k in range(d):
                 for l in range(d):
-                    v = weight * t[k, l * n + s_]
-                    tw[row, k * d + l] = v
-                    if w[s_] <= 0.0:
-                        tw[row_mirror, l * d + k] = np.conj(v)   # vec(T_rs^H), the (s, r) pair
+                    acc = 0.0 + 0.0j
+                    for o in range(d):
+                        acc += q[k * d + o, r] * np.conj(q[l * d + o, s_])
+                    tw[row, k * d + l] = weight * acc
             row += 1
-            if w[s_] <= 0.0:
-                row_mirror += 1
-    return tw.T @ np.conj(tw)
+    cross = np.ascontiguousarray(tw.T) @ np.conj(tw)
+    for i in range(d):
+        for k in range(d):
+            for j in range(d):
+                for l in range(d):
+                    jac[i * d + k, j * d + l] += (cross[i * d + k, j * d + l]
+                                                  + np.conj(cross[k * d + i, l * d + j]))
+    return jac
 
 
 @njit(cache=True)

@@ -63,9 +63,12 @@ class PoissonLikelihood:
         return kernels.group_intensities(self.counts, m.exposure * probabilities, m.background,
                                          m.group_index, m.n_groups)
 
-    def evaluate(self, choi: np.ndarray) -> Evaluation:
+    def evaluate(self, choi: np.ndarray, probabilities: np.ndarray | None = None) -> Evaluation:
+        """ℓ at ``choi``. ``probabilities``, when given, must be ``model.forward(choi)``:
+        the forward map is linear, so a caller that extrapolates between two evaluated
+        points can combine their probabilities instead of mapping again."""
         m = self.model
-        p = m.forward(choi)
+        p = m.forward(choi) if probabilities is None else probabilities
         base = m.exposure * p
         lam = self.intensities(p)
         weights = np.empty_like(p)

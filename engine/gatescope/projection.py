@@ -58,29 +58,35 @@ def _newton_matrix(w: np.ndarray, q: np.ndarray, d: int) -> np.ndarray:
     t_rs = vec(T_rs), T_rs = Tr_out |q_r><q_s|, and Ω_rs the first divided
     difference of max(·, 0) at the eigenvalues (1 for two positive
     eigenvalues, 0 for two non-positive ones, λ_r/(λ_r − λ_s) across the
-    sign change). Only pairs with a positive eigenvalue contribute.
+    sign change).
+
+    It is computed in three parts. The pairs of positive eigenvalues (Ω = 1)
+    sum to Σ_ab Π[(i,a),(j,b)] conj(Π[(k,a),(l,b)]) at [(i,k),(j,l)], with
+    Π = Q₊Q₊† the projector on the positive eigenvectors: one d⁴ × d⁴
+    product. The pairs (r positive, s not) need their T_rs explicitly; the
+    pairs (s, r) follow from them, since T_sr = T_rs† turns their sum into
+    the same matrix with input and output indices swapped and conjugated.
     """
     n = d * d
     pos = w > 0
     n_pos = int(pos.sum())
     if n_pos == 0:
         return np.zeros((n, n), dtype=complex)
-    q3 = q.reshape(d, d, n)                                    # [k, o, r]
-    a_pos = q3[:, :, pos].transpose(2, 0, 1).reshape(n_pos * d, d)   # [(r, k), o]
-    b_all = q3.conj().transpose(1, 2, 0).reshape(d, n * d)           # [o, (s, l)]
-    # one matrix product gives every T_rs[k, l] = Σ_o q[(k,o), r] conj(q[(l,o), s]), r positive
-    t = (a_pos @ b_all).reshape(n_pos, d, n, d).transpose(0, 2, 1, 3)   # [r, s, k, l]
-    weight = np.ones((n_pos, n))
+    qp = q[:, pos]
+    proj = (qp @ qp.conj().T).reshape(d, d, d, d).transpose(0, 2, 1, 3).reshape(n, n)   # [(i,j),(a,b)]
+    jac = (proj @ proj.conj().T).reshape(d, d, d, d).transpose(0, 2, 1, 3).reshape(n, n)
     neg = ~pos
-    if neg.any():
-        weight[:, neg] = w[pos][:, None] / (w[pos][:, None] - w[neg][None, :])
-    tw = (t * np.sqrt(weight)[:, :, None, None]).reshape(n_pos * n, n)
-    jac = tw.T @ tw.conj()
-    if neg.any():
-        # the (non-positive, positive) pairs: T_sr = T_rs^H with the same weight
-        mirror = (t[:, neg] * np.sqrt(weight[:, neg])[:, :, None, None]).transpose(0, 1, 3, 2).conj()
-        mirror = mirror.reshape(-1, n)
-        jac += mirror.T @ mirror.conj()
+    n_neg = n - n_pos
+    if n_neg:
+        q3 = q.reshape(d, d, n)                                                   # [k, o, r]
+        a_pos = q3[:, :, pos].transpose(2, 0, 1).reshape(n_pos * d, d)           # [(r, k), o]
+        b_neg = q3[:, :, neg].conj().transpose(1, 2, 0).reshape(d, n_neg * d)    # [o, (s, l)]
+        t = (a_pos @ b_neg).reshape(n_pos, d, n_neg, d).transpose(0, 2, 1, 3)    # T_rs[k, l]
+        omega = w[pos][:, None] / (w[pos][:, None] - w[neg][None, :])
+        tw = (t * np.sqrt(omega)[:, :, None, None]).reshape(n_pos * n_neg, n)
+        cross = tw.T @ tw.conj()
+        mirror = cross.reshape(d, d, d, d).transpose(1, 0, 3, 2).conj().reshape(n, n)
+        jac = jac + cross + mirror
     return jac
 
 
