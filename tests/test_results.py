@@ -66,13 +66,17 @@ def cz_fit(tmp_path_factory):
 
 
 def write_full_1q(folder, spec="H+amplitude-damping:0.1", shots=800, seed=3):
-    """A one-qubit six-state run with seconds, background and efficiency columns."""
+    """A one-qubit six-state run with seconds, background and efficiency columns, its
+    counts drawn from the row model of CONTRACT §3 with those columns."""
     folder.mkdir(parents=True, exist_ok=True)
     channel = channel_from_spec(spec, 1)
     rows = simulate_counts(channel, shots=shots, seed=seed)
+    rng = np.random.default_rng(seed)
     lines = ["prep,meas,counts,seconds,background,efficiency"]
-    for k, (p, m, _, n) in enumerate(rows):
-        lines.append(f"{p},{m},{n},{1.0 + 0.5 * (k % 2)},{0.25 * (k % 3)},{0.9 + 0.05 * (k % 2)}")
+    for k, (p, m, expected, _) in enumerate(rows):
+        seconds, background, efficiency = 1.0 + 0.5 * (k % 2), 0.25 * (k % 3), 0.9 + 0.05 * (k % 2)
+        n = rng.poisson(expected * seconds * efficiency + background)
+        lines.append(f"{p},{m},{n},{seconds},{background},{efficiency}")
     (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     (folder / "experiment.toml").write_text(
         'title = "one qubit with every column"\nqubits = 1\ntarget = "H"\ncounts = "counts.csv"\n',

@@ -129,14 +129,19 @@ def _counts_columns(exp: Experiment) -> dict:
 
 
 def build_result(exp: Experiment, model: MeasurementModel, fit: Fit, *, n_determined: int,
-                 prov: dict, diamond: bool = False) -> Result:
+                 prov: dict, diamond: bool = False, computed: tuple | None = None) -> Result:
     """Assemble a `Result` (figures, diagnostics, conversions) from a fit.
 
     ``diamond`` adds the diamond distance to the target (needs cvxpy).
+    ``computed`` is ``(values, details)`` of `compute_figures` for this fit
+    when the caller already has them.
     """
-    details = {}
-    figures = {k: Figure(v) for k, v in
-               compute_figures(fit.choi, exp.target, diamond=diamond, details=details).items()}
+    if computed is None:
+        details = {}
+        computed = (compute_figures(fit.choi, exp.target, diamond=diamond, details=details),
+                    details)
+    values, details = computed
+    figures = {k: Figure(v) for k, v in values.items()}
     return Result(
         choi=fit.choi, chi=choi_to_chi(fit.choi), ptm=choi_to_ptm(fit.choi), figures=figures,
         method=fit.method, converged=fit.converged, iterations=fit.iterations,
@@ -204,17 +209,19 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     model = MeasurementModel(experiment)
     ident = model.warn_if_undetermined()
     point = estimate(model, method, **options)
+    details = {}
+    values = compute_figures(point.choi, experiment.target, diamond=diamond, details=details)
     boot = None
     if bootstrap:
         from .bootstrap import run_bootstrap
         boot, seed = run_bootstrap(model, point, experiment.target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
                                    method=method, options=options, progress=progress,
-                                   interval=interval)
+                                   interval=interval, point_figures=values)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.perf_counter() - t0)
     result = build_result(experiment, model, point, n_determined=ident.rank, prov=prov,
-                          diamond=diamond)
+                          diamond=diamond, computed=(values, details))
     if point.method == "mle":
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²
         # reference even for a model that fits: the test is for the ML estimate only

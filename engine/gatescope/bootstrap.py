@@ -540,7 +540,8 @@ def check_options(*, samples, kind: str = "parametric", workers=None,
 def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
                   kind: str = "parametric", seed: int | None = None, workers: int | None = None,
                   method: str | None = None, options: dict | None = None,
-                  progress: bool = False, interval: str = DEFAULT_INTERVAL):
+                  progress: bool = False, interval: str = DEFAULT_INTERVAL,
+                  point_figures: dict | None = None):
     """Resample the rows, refit every resample, and summarise the spread.
 
     Parameters
@@ -565,6 +566,9 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
         A tqdm bar on stderr, only when stderr is a terminal.
     interval : {"normal", "percentile", "basic", "bc"}
         The construction `attach_intervals` will use (stored in the result).
+    point_figures : dict, optional
+        ``compute_figures(point.choi, target)`` when the caller has it; every
+        figure in it but the diamond distance (not bootstrapped) is resampled.
 
     Returns
     -------
@@ -583,8 +587,9 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     seed = draw_seed() if seed is None else _check_int(seed, "seed", 0)
 
     t0 = time.perf_counter()
-    point_figures = compute_figures(point.choi, target)
-    names = tuple(point_figures)
+    if point_figures is None:
+        point_figures = compute_figures(point.choi, target)
+    names = tuple(name for name in point_figures if name != "diamond_distance")
     point_choi = np.asarray(point.choi, dtype=complex)
     state = {"model": model, "means": resample_means(model, point, kind), "start": point_choi,
              "target": target, "method": method, "options": options, "names": names}
