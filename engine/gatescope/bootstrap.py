@@ -80,7 +80,12 @@ a pure process (there its bias is several times its spread; ``basic``
 covers best, still well below 95%, and ``bc`` collapses onto the top
 resamples, a falsely narrow interval, because z₀ saturates); for that case
 `run_bootstrap` raises a `GatescopeWarning` whenever the bootstrap bias of
-a figure exceeds its spread.
+a figure exceeds its spread — except for ``mle`` with the ``normal``
+interval: near the boundary its refits can sit more than a spread below the
+estimate while the estimate itself is nearly unbiased (a CZ bench with
+backgrounds, F = 0.9610: estimate 0.9607, mean of the refits 0.9582, spread
+0.0015), and the normal interval, which ignores that bias, keeps its
+coverage.
 """
 
 from __future__ import annotations
@@ -654,7 +659,12 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
         if errors:
             message += f" (first error: {errors[0]})"
         warnings.warn(message, GatescopeWarning, stacklevel=2)
-    biased = biased_figures(names, figures, [point_figures[n] for n in names])
+    # Near the boundary the refits of an mle sit below it by more than their spread even
+    # when the estimate itself is nearly unbiased (the resampled world is purer than the
+    # real one); the normal interval does not use that bias and keeps its coverage
+    # (benchmarks/README.md, "Bootstrap coverage"), so the warning would mislead there.
+    biased = ([] if method == "mle" and interval == "normal"
+              else biased_figures(names, figures, [point_figures[n] for n in names]))
     if biased:
         listed = "; ".join(f"{n} (bias {b:+.2g}, spread {sp:.2g})" for n, b, sp in biased)
         advice = (" the mle estimator is much less biased near pure processes" if method != "mle"
