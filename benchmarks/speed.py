@@ -1,7 +1,8 @@
 """Speed of the estimators on full six-state data, against a generic convex solver.
 
     python benchmarks/speed.py [--qubits 1 2 3 4] [--threads 1] [--timeout 900]
-                               [--reference-3q] [--no-reference] [--no-jit] [--no-plot]
+                               [--reference-3q [--solvers-3q CLARABEL]] [--no-reference]
+                               [--no-jit] [--no-plot]
 
 For every qubit count n (full six-state sets: 6^n preparations × 6^n analyser
 projectors) and estimator (lin, pls, mle), one subprocess per case measures:
@@ -627,7 +628,8 @@ OpenMP, OpenBLAS and MKL threads in every subprocess; default 1),
 timed out and the run goes on), `--repeats R` (1–2 qubits, default 7),
 `--repeats-3q` (default 3), `--repeats-4q` (default 1), `--reference-3q`
 (cvxpy at 3 qubits too: at most 10 minutes per solver, several GB of
-memory), `--no-reference`, `--no-jit`, `--jit-qubits` (default 1 2 3),
+memory; `--solvers-3q CLARABEL` limits it to cvxpy's default conic solver),
+`--no-reference`, `--no-jit`, `--jit-qubits` (default 1 2 3),
 `--shots`, `--no-plot`, `--no-readme`, `--output`, and `--replot` (run
 nothing; rebuild the tables, this section and the plot from the JSON).
 
@@ -731,6 +733,8 @@ def main():
     ap.add_argument("--no-reference", action="store_true", help="skip cvxpy")
     ap.add_argument("--reference-3q", action="store_true",
                     help="also run cvxpy at 3 qubits (10 minutes per solver at most)")
+    ap.add_argument("--solvers-3q", nargs="+", default=list(SOLVERS), choices=SOLVERS,
+                    help="cvxpy solvers tried at 3 qubits (default: all)")
     ap.add_argument("--no-jit", action="store_true", help="skip the fresh-process JIT timing")
     ap.add_argument("--jit-qubits", type=int, nargs="+", default=[1, 2, 3],
                     help="qubit counts for the fresh-process timing (default 1 2 3)")
@@ -809,7 +813,7 @@ def main():
             if not args.no_reference and (n <= 2 or (n == 3 and args.reference_3q)):
                 limit = args.timeout if n <= 2 else min(args.timeout, REFERENCE_TIMEOUT_3Q)
                 refs = []
-                for solver in SOLVERS:
+                for solver in (SOLVERS if n <= 2 else args.solvers_3q):
                     res = run_worker("reference", toml, limit, env, solver=solver,
                                      solver_options=json.dumps(reference_options(solver, n)))
                     row = {"qubits": n, "rows": n_rows, "method": f"cvxpy/{solver}", **res}
