@@ -14,7 +14,11 @@ Zhao, Sun & Toh, SIAM J. Optim. 20, 1737 (2010) for the regularised
 Newton step; the dual formulation as in Boyd & Xiao, SIAM J. Matrix Anal.
 Appl. 27, 532 (2005)). Each iteration costs one Hermitian eigen-decomposition
 of size d² plus a d²-dimensional linear solve; a warm-started call (the
-multiplier of a nearby point) typically needs 1–3 iterations.
+multiplier of a nearby point) typically needs 1–3 iterations. After a step
+that cut the residual ‖∇θ‖ at least tenfold the next step reuses the same
+matrix (a chord step: the eigenvectors have barely moved, and building the
+matrix costs more than the eigen-decomposition at d ≥ 4); a step that
+gains less brings a fresh matrix.
 
 ``J(Y)`` is positive by construction. A final congruence
 ``J ← (M ⊗ I) J (M ⊗ I)``, ``M = (Tr_out J)^{-1/2}``, removes the last
@@ -111,11 +115,16 @@ def _newton_apply(w: np.ndarray, q: np.ndarray, d: int, v: np.ndarray) -> np.nda
     return partial_trace_output(full)
 
 
-def _newton_step(w, q, d, grad, mu, matrix_free: bool) -> np.ndarray:
-    """Solve (Jacobian + μ) ΔY = ∇θ, directly or by conjugate gradients."""
+def _newton_step(w, q, d, grad, mu, matrix_free: bool, jac=None):
+    """Solve (Jacobian + μ) ΔY = ∇θ, directly or by conjugate gradients.
+
+    Returns (ΔY, the regularised matrix or None). A matrix passed as ``jac``
+    (from the previous step) is used instead of a new one: a chord step.
+    """
     if not matrix_free:
-        jac = _newton_matrix(w, q, d)
-        return np.linalg.solve(jac + mu * np.eye(d * d), grad.reshape(-1)).reshape(d, d)
+        if jac is None:
+            jac = _newton_matrix(w, q, d) + mu * np.eye(d * d)
+        return np.linalg.solve(jac, grad.reshape(-1)).reshape(d, d), jac
     x = np.zeros_like(grad)
     r = grad.copy()
     p = r.copy()
@@ -131,8 +140,12 @@ def _newton_step(w, q, d, grad, mu, matrix_free: bool) -> np.ndarray:
             break
         p = r + (rr_new / rr) * p
         rr = rr_new
-    return x
+    return x, None
 
+
+#: A Newton step that cut the dual residual by this factor or better lets the next
+#: step reuse its matrix (a chord step: the eigenvectors have barely moved).
+_CHORD_RATE = 0.1
 
 #: From this d on the Newton system is solved by conjugate gradients (the explicit
 #: d² × d² Jacobian would need O(d^8) work and memory).
@@ -161,10 +174,12 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
     theta, j, w, q, grad = dual(y)
     res = np.linalg.norm(grad)
     it = 0
+    jac = None
     while res > tol and it < maxiter:
         it += 1
         mu = 1e-2 * min(1e-2, res) + 1e-14
-        step = _newton_step(w, q, d, grad, mu, matrix_free=d >= _MATRIX_FREE_DIM)
+        res_before = res
+        step, jac = _newton_step(w, q, d, grad, mu, matrix_free=d >= _MATRIX_FREE_DIM, jac=jac)
         step = 0.5 * (step + step.conj().T)
         slope = np.vdot(grad, step).real
         if slope <= 0:                                 # not an ascent direction: use the gradient
@@ -181,6 +196,8 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
         y = y + s * step
         theta, j, w, q, grad = cand
         res = res_new
+        if res > _CHORD_RATE * res_before:
+            jac = None                # the old matrix no longer pays: a new one next step
     return _finish(j, y, it, res, tol, d)
 
 
