@@ -587,60 +587,9 @@ def target_rows(report: dict) -> list:
     return rows
 
 
-SPEED_INTRO = """## Speed
-
-`python benchmarks/speed.py` times the three estimators (lin, pls, mle) on
-simulated full six-state data (6^n preparations × 6^n analyser projectors,
-1000 expected counts per preparation and analyser basis) for 1 to 4 qubits,
-next to a generic convex solver (cvxpy with Clarabel and with SCS) solving
-the same maximum-likelihood problem on the same data, and writes
-`results/speed.json`, the tables below and, when matplotlib is installed,
-`results/scaling.png` (time and peak memory against n, log scale). Every
-case runs in its own subprocess, with a time limit.
-
-Channels: 1 qubit `H+depolarizing:0.05+amplitude-damping:0.02`, 2 qubits
-`CZ+zz:0.1+depolarizing:0.03`, 3 qubits a Toffoli (qubits 1 and 2 control)
-and 4 qubits CNOT ⊗ CNOT, each followed by `zz:0.1` and `depolarizing:0.03`.
-
-- time: warm wall time (kernels compiled by a warm-up run first; from 3
-  qubits the MLE warm-up stops after 3 iterations), median of the repeats;
-- peak MB, process: the resident high-water mark (VmHWM) of that case's
-  process — interpreter, imports, reading the experiment and the warm-up
-  included; peak MB, timed fits: the high-water mark of the timed runs alone
-  (reset after the warm-up; it still contains the resident baseline);
-- projections: CPTP projections made (lin 0, pls 1);
-- log-likelihood: the Poisson log-likelihood of CONTRACT §5 at the estimate;
-  the cvxpy solutions are evaluated with the same function. −inf for a lin
-  estimate that predicts a negative rate where counts were seen;
-- distance to CPTP: max(−λ_min(J), ‖Tr_out J − I‖_F);
-- cvxpy: time of `problem.solve` (canonicalisation and solver); SCS at
-  eps 1e−9 (1e−6 at 3 qubits), Clarabel with its defaults (more static
-  regularisation at 3 qubits); "agrees" means |ℓ(ours) − ℓ(cvxpy)| ≤ 1e−6·|ℓ|.
-  Up to 2 qubits the problem is written with the dense rows × d⁴ map, at 3
-  qubits through sparse Pauli coefficients (see `reference_solver.py`);
-- a pass: one forward map, one adjoint map and one CPTP projection warm
-  started from the pls multiplier, at the MLE's starting point; "MLE / pass"
-  is the MLE time over the pass time.
-
-Options: `--qubits 1 2 3 4`, `--methods lin pls mle`, `--threads T` (numba,
-OpenMP, OpenBLAS and MKL threads in every subprocess; default 1),
-`--timeout S` (per subprocess, default 900 s; a case over it is recorded as
-timed out and the run goes on), `--repeats R` (1–2 qubits, default 7),
-`--repeats-3q` (default 3), `--repeats-4q` (default 1), `--reference-3q`
-(cvxpy at 3 qubits too: at most 10 minutes per solver, several GB of
-memory; `--solvers-3q CLARABEL` limits it to cvxpy's default conic solver),
-`--no-reference`, `--no-jit`, `--jit-qubits` (default 1 2 3),
-`--shots`, `--no-plot`, `--no-readme`, `--output`, and `--replot` (run
-nothing; rebuild the tables, this section and the plot from the JSON).
-
-The first-call table runs import + read + MLE in a fresh process with an
-empty numba cache (JIT compilation included), then again reusing that cache.
-
-The plot needs only numpy and matplotlib: where matplotlib is not installed,
-`python benchmarks/speed.py --replot --no-readme` run later from any Python
-that has both redraws `results/scaling.png` from `results/speed.json`.
-
-"""
+#: Heading written when benchmarks/README.md has no Speed section yet (the README
+#: itself explains the columns; this module's docstring lists the options).
+SPEED_INTRO = "## Speed\n\nWritten by `python benchmarks/speed.py`; see its docstring.\n\n"
 
 
 def update_readme(table: str, path: Path = README) -> None:
