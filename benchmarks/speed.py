@@ -690,6 +690,8 @@ def main():
     ap.add_argument("--no-plot", action="store_true")
     ap.add_argument("--no-readme", action="store_true", help="do not touch benchmarks/README.md")
     ap.add_argument("--output", type=Path, default=RESULTS / "speed.json")
+    ap.add_argument("--plot-also", type=Path, nargs="*", default=[], metavar="JSON",
+                    help="results of other runs (e.g. results/speed_4q.json) to draw in the plot")
     ap.add_argument("--replot", action="store_true",
                     help="run nothing: rebuild the table, README section and plot from --output")
     # internal: one case in a subprocess
@@ -804,7 +806,13 @@ def finish(report: dict, args) -> None:
         update_readme(table)
         print(f"written the Speed table into {README}")
     if not args.no_plot:
-        print(plot_scaling(report, args.output.parent / "scaling.png"))
+        plotted = dict(report)
+        for extra in args.plot_also:
+            # other runs (for example a separate four-qubit run) drawn in the same plot
+            other = json.loads(Path(extra).read_text())
+            plotted["runs"] = plotted["runs"] + other.get("runs", [])
+            plotted["passes"] = {**other.get("passes", {}), **plotted.get("passes", {})}
+        print(plot_scaling(plotted, args.output.parent / "scaling.png"))
 
 
 if __name__ == "__main__":

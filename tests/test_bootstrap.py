@@ -423,3 +423,12 @@ def test_interval_choice_reaches_the_result(make_experiment):
     # Tibshirani 1993, §13.3), clipped to [0, 1]
     assert lo == pytest.approx(max(0.0, np.quantile(values, 0.025)), abs=1e-12)
     assert hi == pytest.approx(min(1.0, np.quantile(values, 0.975)), abs=1e-12)
+
+
+@pytest.mark.parametrize("samples, workers", [(200, 2), (7, 3), (1, 4), (1000, 8)])
+def test_chunks_cover_every_resample_and_shrink_towards_the_end(samples, workers):
+    sizes = bs.chunk_sizes(samples, workers)
+    assert sum(sizes) == samples and min(sizes) >= 1
+    assert max(sizes) <= -(-samples // (workers * bs.CHUNKS_PER_WORKER))
+    assert sizes == sorted(sizes, reverse=True)
+    assert sizes[-1] == 1

@@ -27,8 +27,9 @@ handles a fork itself), which starts them in about 0.1 s; otherwise they
 come from the ``forkserver`` (or, where there is none, ``spawn``), which
 imports the package and loads the numba cache in every worker, 1–4 s. Each
 worker receives the model once (pool initializer), then chunks of resample
-indices, about eight chunks per worker so that the last chunks balance the
-load while the per-task overhead stays small. Workers run single-threaded
+indices (`chunk_sizes`): about eight chunks per worker, so that the
+per-task overhead stays small, then smaller and smaller ones, so that the
+workers finish together. Workers run single-threaded
 (``OMP_NUM_THREADS``, ``OPENBLAS_NUM_THREADS``, ``MKL_NUM_THREADS``,
 ``NUMBA_NUM_THREADS`` set to 1 before they start, ``numba.set_num_threads(1)``
 and every loaded OpenBLAS told to use one thread) so W workers use W cores.
@@ -542,6 +543,21 @@ def check_options(*, samples, kind: str = "parametric", workers=None,
     return samples, workers
 
 
+def chunk_sizes(samples: int, workers: int) -> list[int]:
+    """Resamples per task: at most B/(W·CHUNKS_PER_WORKER), and towards the end
+    1/(2W) of what is left (at least one), so that the last tasks are small and the
+    workers finish together (guided self-scheduling, Polychronopoulos & Kuck, IEEE
+    Trans. Comput. C-36, 1425 (1987))."""
+    cap = max(1, -(-samples // (workers * CHUNKS_PER_WORKER)))
+    sizes = []
+    left = samples
+    while left > 0:
+        size = min(cap, max(1, left // (2 * workers)))
+        sizes.append(size)
+        left -= size
+    return sizes
+
+
 def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
                   kind: str = "parametric", seed: int | None = None, workers: int | None = None,
                   method: str | None = None, options: dict | None = None,
@@ -615,9 +631,10 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
 
     if workers > 1 and mp.current_process().daemon:
         workers = 1                   # a daemonic process may not start a pool
-    n_chunks = min(samples, workers * CHUNKS_PER_WORKER)
-    size = -(-samples // n_chunks)
-    chunks = [(first, seeds[first:first + size]) for first in range(0, samples, size)]
+    chunks, first = [], 0
+    for size in chunk_sizes(samples, workers):
+        chunks.append((first, seeds[first:first + size]))
+        first += size
     workers = min(workers, len(chunks))
 
     show = bool(progress) and hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
