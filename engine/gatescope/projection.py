@@ -66,8 +66,8 @@ def _newton_matrix(w: np.ndarray, q: np.ndarray, d: int) -> np.ndarray:
 
     It is computed in three parts. The pairs of positive eigenvalues (Ω = 1)
     sum to Σ_ab Π[(i,a),(j,b)] conj(Π[(k,a),(l,b)]) at [(i,k),(j,l)], with
-    Π = Q₊Q₊† the projector on the positive eigenvectors: one d⁴ × d⁴
-    product. The pairs (r positive, s not) need their T_rs explicitly; the
+    Π = Q₊Q₊† the projector on the positive eigenvectors: one product of
+    two d² × d² matrices. The pairs (r positive, s not) need their T_rs explicitly; the
     pairs (s, r) follow from them, since T_sr = T_rs† turns their sum into
     the same matrix with input and output indices swapped and conjugated.
     """
