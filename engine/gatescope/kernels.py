@@ -294,8 +294,9 @@ def hermitian_solve(a, b):
 
 
 @njit(cache=True)
-def project_cptp_kernel(x, y0, tol, maxiter):
-    """Dual semismooth Newton projection onto CPTP maps (see gatescope.projection).
+def project_cptp_kernel(x, y0, tol, maxiter, chord_rate):
+    """Dual semismooth Newton projection onto CPTP maps (see gatescope.projection);
+    ``chord_rate`` is `projection._CHORD_RATE`, shared with the NumPy twin.
 
     Returns (J, Y, iterations, r) with J after the final congruence
     (:func:`tp_congruence`) and r = ‖Tr_out J − I‖_F before it.
@@ -330,8 +331,8 @@ def project_cptp_kernel(x, y0, tol, maxiter):
             s *= 0.5
         y = y + s * step
         theta, w, q, j, grad, res = theta_new, w_new, q_new, j_new, grad_new, res_new
-        # chord: keep the matrix while a step cuts the residual tenfold (twin: _CHORD_RATE)
-        fresh = res > 0.1 * res_before
+        # chord: keep the matrix while a step cuts the residual by chord_rate or better
+        fresh = res > chord_rate * res_before
     return tp_congruence(j, d), y, it, res
 
 

@@ -249,7 +249,8 @@ def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: fl
           else np.ascontiguousarray(multiplier, dtype=np.complex128))
     if d > _KERNEL_MAX_DIM:
         return project_cptp_numpy(xh, multiplier=y0, tol=tol, maxiter=maxiter)
-    j, y, it, res = kernels.project_cptp_kernel(xh, y0, float(tol), int(maxiter))
+    j, y, it, res = kernels.project_cptp_kernel(xh, y0, float(tol), int(maxiter),
+                                                _CHORD_RATE)
     return Projection(choi=j, multiplier=y, iterations=it, tp_residual=float(res),
                       converged=bool(res <= tol))
 
