@@ -3,7 +3,7 @@
 For each configuration (a channel SPEC and a count level) the script repeats
 simulate → fit → bootstrap and records, per repetition, the true process
 fidelity, the point estimate and the bootstrap values, so that the table
-applies every construction in `gatescope.bootstrap.INTERVALS`. The table
+applies every construction in `gatescope.intervals.INTERVALS`. The table
 reports, per configuration, the fraction of intervals that contain the
 truth (coverage, with its binomial standard error), the mean width, the
 mean bias of the point estimate, and the mean bootstrap standard error
@@ -42,10 +42,10 @@ from pathlib import Path  # noqa: E402
 import numpy as np  # noqa: E402
 
 import gatescope as gs  # noqa: E402
-from gatescope.bootstrap import INTERVALS, interval, parameter_range  # noqa: E402
-from gatescope.experiment import read_experiment  # noqa: E402
-from gatescope.figures import process_fidelity  # noqa: E402
-from gatescope.simulate import channel_from_spec, simulate_counts, write_experiment  # noqa: E402
+from gatescope.intervals import INTERVALS, interval, parameter_range  # noqa: E402
+from gatescope.reader import read_experiment  # noqa: E402
+from gatescope.merit import process_fidelity  # noqa: E402
+from gatescope.synth.simulate import channel_from_spec, simulate_counts, write_experiment  # noqa: E402
 
 DEFAULT_CHANNELS = ("CZ+depolarizing:0.2", "CZ+zz:0.2")
 FIELDS = ["method", "kind", "channel", "shots", "samples", "rep", "truth", "point",

@@ -77,7 +77,7 @@ def _pauli_design(exp, keep: np.ndarray):
 def _pauli_to_vec(n_qubits: int):
     """Sparse complex T (d⁴ × d⁴) with c = Re(T · vec_F(J)) the Pauli coefficients of J.
 
-    Row m holds P_m (the basis of the 2n qubits input ⊗ output, CONTRACT order)
+    Row m holds P_m (the basis of the 2n qubits input ⊗ output, the documented Pauli order)
     in C order, which pairs with cvxpy's column-major vec(J) to give
     Σ_ab P_m[b, a] J[a, b] = Tr(P_m J). A Pauli string has one non-zero per
     row: column a XOR (its X/Y mask), value the product of the phases.

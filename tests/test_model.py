@@ -1,14 +1,25 @@
-"""The measurement model: the structured map equals the dense design matrix."""
+"""The measurement model (gatescope.model): the structured maps equal the dense design
+matrix, and the identifiability check names what the data leave undetermined.
+"""
 
+from __future__ import annotations
+
+import re
+import warnings
+
+import gatescope as gs
 import numpy as np
 import pytest
-
-from gatescope.channels import random_channel
+from gatescope.synth.noise import random_channel
 from gatescope.model import MeasurementModel
 
 
+def _labels_named(message: str, n_qubits: int) -> set[str]:
+    return set(re.findall(rf"\b[IXYZ]{{{n_qubits}}}\b", message))
+
+
 def dense_design(exp):
-    """Row k of the dense design: vec((ρ_k^T ⊗ E_k)^T), so p = A · vec(J) (CONTRACT §3)."""
+    """Row k of the dense design: vec((ρ_k^T ⊗ E_k)^T), so p = A · vec(J) (docs/file-formats.md, "Input")."""
     return np.array([np.kron(exp.prep_states[i].T, exp.meas_effects[j]).T.reshape(-1)
                      for i, j in zip(exp.prep_index, exp.meas_index)])
 
@@ -16,6 +27,47 @@ def dense_design(exp):
 def random_hermitian(rng, n):
     g = rng.normal(size=(n, n)) + 1j * rng.normal(size=(n, n))
     return g + g.conj().T
+
+
+def test_too_few_preparations_warn_and_the_fit_still_runs(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.05", shots=500, seed=4, prep=("H", "V"))
+    assert exp.prep_states.shape[0] == 2
+    with pytest.warns(gs.GatescopeWarning) as record:
+        res = gs.fit(exp, "pls")
+    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
+    named = set().union(*(_labels_named(m, 1) for m in messages))
+    # H and V span I and Z only: the input components X and Y are undetermined
+    assert named == {"X", "Y"}, messages
+    assert any("undetermined" in m for m in messages)
+    assert res.choi.shape == (4, 4) and np.isfinite(res.figures["process_fidelity"].value)
+
+
+def test_too_few_preparations_two_qubits_name_the_missing_inputs(make_experiment):
+    exp, _ = make_experiment("CZ", shots=200, seed=4, prep=("H", "V"))
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        res = gs.fit(exp, "pls")
+    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
+    assert messages
+    named = set().union(*(_labels_named(m, 2) for m in messages))
+    assert named, messages
+    # every named input component contains X or Y; the diagonal ones (I, Z only) are determined
+    assert all(("X" in lab or "Y" in lab) for lab in named), named
+    assert not named & {"II", "IZ", "ZI", "ZZ"}
+    assert np.isfinite(res.log_likelihood)
+
+
+def test_too_few_analysers_warn_about_outputs(make_experiment):
+    exp, _ = make_experiment("H", shots=500, seed=4, meas=("H", "V"))
+    with pytest.warns(gs.GatescopeWarning, match="output"):
+        gs.fit(exp, "pls")
+
+
+def test_complete_data_do_not_warn(make_experiment):
+    exp, _ = make_experiment("H", shots=500, seed=4)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", gs.GatescopeWarning)
+        gs.fit(exp, "pls")
 
 
 @pytest.mark.parametrize("spec, n_qubits", [("random:3:7", 1), ("random:4:8", 2)])

@@ -1,6 +1,6 @@
 """gatescope: quantum process tomography from laboratory counts.
 
-The public API (CONTRACT §6)::
+The public API (README, "Python API")::
 
     import gatescope as gs
     exp = gs.read_experiment("experiment.toml")
@@ -8,16 +8,23 @@ The public API (CONTRACT §6)::
     res.save("result.h5")
     res2 = gs.load_result("result.h5")
 
-Conventions (Choi, chi, Pauli transfer matrix, labels, wave plates) are
-stated in :mod:`gatescope.conventions` and :mod:`gatescope.channels`.
+The modules at this level follow the data, one step each: `reader` →
+`model` → `likelihood` → `projection` → `estimators` → `merit` (figures of
+merit) → `intervals`, `bootstrap` → `diagnostics` → `result_file`,
+`result` → `pipeline`; `summary` and `cli` present it. Capabilities built
+on the pipeline live in subpackages that this level never imports
+(`synth`: simulation and the run sheet). Conventions (Choi, chi, Pauli
+transfer matrix, labels, wave plates) are stated in the README and in
+:mod:`gatescope.conventions` and :mod:`gatescope.channels`.
 """
 
 from importlib import metadata as _metadata
 
-from .api import fit
-from .errors import GatescopeWarning, InputError
-from .experiment import Experiment, read_experiment
-from .results import Figure, Result, load_result
+from .errors import GatescopeWarning, InputError, NumericalError
+from .intervals import Figure
+from .pipeline import fit
+from .reader import Experiment, read_experiment
+from .result import Result, load_result
 
 try:
     __version__ = _metadata.version("gatescope")
@@ -25,4 +32,4 @@ except _metadata.PackageNotFoundError:  # running from a source tree without ins
     __version__ = "0+unknown"
 
 __all__ = ["fit", "read_experiment", "load_result", "Experiment", "Result", "Figure",
-           "InputError", "GatescopeWarning", "__version__"]
+           "InputError", "NumericalError", "GatescopeWarning", "__version__"]

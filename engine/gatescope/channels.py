@@ -1,6 +1,6 @@
 """Representations of quantum channels and conversions between them.
 
-Conventions (CONTRACT §2), for a channel Φ on d = 2^n dimensions:
+Conventions (docs/conventions.md), for a channel Φ on d = 2^n dimensions:
 
 * Choi matrix ``J = Σ_ij |i><j| ⊗ Φ(|i><j|)``: input factor first, output
   second, ``Tr J = d``; trace preserving ⇔ ``Tr_out J = I_d``. In index
@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .conventions import kron_all, n_qubits_of, pauli_basis, named_gate, GATE_NAMES
+from .conventions import n_qubits_of, pauli_basis
 
 
 def dim_of_choi(choi: np.ndarray) -> int:
@@ -87,7 +87,7 @@ def _pauli_vectors(d: int) -> np.ndarray:
 
 
 def choi_to_chi(choi: np.ndarray) -> np.ndarray:
-    """χ_mn = <<P_m|J|P_n>>/d² (CONTRACT Pauli order)."""
+    """χ_mn = <<P_m|J|P_n>>/d² (Pauli order of `conventions.pauli_labels`)."""
     d = dim_of_choi(choi)
     v = _pauli_vectors(d)
     return v.conj().T @ choi @ v / d**2
@@ -103,22 +103,22 @@ def chi_to_choi(chi: np.ndarray) -> np.ndarray:
 _P1 = pauli_basis(1)
 
 
-def _choi_qubit_axes(choi: np.ndarray, n: int) -> np.ndarray:
+def choi_qubit_axes(choi: np.ndarray, n: int) -> np.ndarray:
     """J as a tensor with one axis of size 16 per qubit: (x_k, a_k, y_k, b_k) grouped."""
     t = choi.reshape((2,) * (4 * n))                     # x1..xn a1..an y1..yn b1..bn
     order = [ax for k in range(n) for ax in (k, n + k, 2 * n + k, 3 * n + k)]
     return t.transpose(order).reshape((16,) * n)
 
 
-def _from_qubit_axes(t: np.ndarray, n: int) -> np.ndarray:
-    """Inverse of :func:`_choi_qubit_axes`."""
+def from_qubit_axes(t: np.ndarray, n: int) -> np.ndarray:
+    """Inverse of :func:`choi_qubit_axes`."""
     t = t.reshape((2,) * (4 * n))                        # x1 a1 y1 b1 x2 a2 ...
     order = [4 * k + role for role in range(4) for k in range(n)]
     d = 2 ** n
     return t.transpose(order).reshape(d * d, d * d)
 
 
-def _apply_on_every_qubit(t: np.ndarray, op: np.ndarray, n: int) -> np.ndarray:
+def apply_on_every_qubit(t: np.ndarray, op: np.ndarray, n: int) -> np.ndarray:
     """Contract the same 16 × 16 matrix with every qubit axis (cost 16·n·d⁴)."""
     for k in range(n):
         t = np.moveaxis(np.tensordot(op, t, axes=([1], [k])), 0, k)
@@ -138,7 +138,7 @@ def choi_to_ptm(choi: np.ndarray) -> np.ndarray:
     """
     d = dim_of_choi(choi)
     n = n_qubits_of(d)
-    t = _apply_on_every_qubit(_choi_qubit_axes(choi, n), _TO_PTM, n) / d
+    t = apply_on_every_qubit(choi_qubit_axes(choi, n), _TO_PTM, n) / d
     # axes (i_k, j_k) per qubit -> R[(i_1..i_n), (j_1..j_n)]
     t = t.reshape((4, 4) * n).transpose([2 * k for k in range(n)] + [2 * k + 1 for k in range(n)])
     return np.ascontiguousarray(t.reshape(d * d, d * d).real)
@@ -150,7 +150,7 @@ def ptm_to_choi(ptm: np.ndarray) -> np.ndarray:
     n = n_qubits_of(d)
     t = np.asarray(ptm, dtype=complex).reshape((4,) * (2 * n))
     t = t.transpose([ax for k in range(n) for ax in (k, n + k)]).reshape((16,) * n)
-    return _from_qubit_axes(_apply_on_every_qubit(t, _FROM_PTM, n) / d, n)
+    return from_qubit_axes(apply_on_every_qubit(t, _FROM_PTM, n) / d, n)
 
 
 def partial_trace_output(choi: np.ndarray) -> np.ndarray:
@@ -166,143 +166,3 @@ def apply_channel(choi: np.ndarray, rho: np.ndarray) -> np.ndarray:
 def compose(first: np.ndarray, second: np.ndarray) -> np.ndarray:
     """Choi matrix of ρ ↦ second(first(ρ))."""
     return superop_to_choi(choi_to_superop(second) @ choi_to_superop(first))
-
-
-def hermitian_part(m: np.ndarray) -> np.ndarray:
-    return 0.5 * (m + m.conj().T)
-
-
-# --------------------------------------------------------------------------
-# Noise channels of CONTRACT §4 and channel specs
-# --------------------------------------------------------------------------
-
-def depolarizing(p: float, d: int) -> np.ndarray:
-    """Choi matrix of ρ ↦ (1−p)ρ + p Tr(ρ) I/d."""
-    return (1 - p) * choi_from_unitary(np.eye(d)) + p * np.eye(d * d) / d
-
-
-def _each_qubit(kraus_1q, n_qubits: int) -> np.ndarray:
-    """Choi matrix of a single-qubit channel applied to every qubit."""
-    ops = [kron_all(combo) for combo in _product(kraus_1q, n_qubits)]
-    return choi_from_kraus(ops)
-
-
-def _product(items, n):
-    import itertools
-    return itertools.product(items, repeat=n)
-
-
-def dephasing(p: float, n_qubits: int) -> np.ndarray:
-    """ρ ↦ (1−p)ρ + p ZρZ on every qubit."""
-    z = np.diag([1.0, -1.0]).astype(complex)
-    return _each_qubit([np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * z], n_qubits)
-
-
-def amplitude_damping(g: float, n_qubits: int) -> np.ndarray:
-    """Kraus pair [[1,0],[0,√(1−g)]], [[0,√g],[0,0]] on every qubit."""
-    k0 = np.array([[1, 0], [0, np.sqrt(1 - g)]], dtype=complex)
-    k1 = np.array([[0, np.sqrt(g)], [0, 0]], dtype=complex)
-    return _each_qubit([k0, k1], n_qubits)
-
-
-def zz_phase(phi: float, n_qubits: int) -> np.ndarray:
-    """exp(−i φ Z⊗Z/2) on each neighbouring pair (k, k+1), as a Choi matrix."""
-    d = 2 ** n_qubits
-    bits = (np.arange(d)[:, None] >> (n_qubits - 1 - np.arange(n_qubits))[None, :]) & 1
-    z = 1 - 2 * bits                                  # ±1 eigenvalue of Z_k
-    exponent = np.zeros(d)
-    for k in range(n_qubits - 1):
-        exponent += z[:, k] * z[:, k + 1]
-    return choi_from_unitary(np.diag(np.exp(-0.5j * phi * exponent)))
-
-
-NOISE_KINDS = ("depolarizing", "dephasing", "amplitude-damping", "zz")
-
-
-def noise_channel(kind: str, value: float, n_qubits: int) -> np.ndarray:
-    """Choi matrix of one CONTRACT §4 noise term."""
-    if kind == "zz":
-        return zz_phase(value, n_qubits)
-    if not 0.0 <= value <= 1.0:
-        raise ValueError(f"{kind} parameter must lie in [0, 1], got {value}")
-    if kind == "depolarizing":
-        return depolarizing(value, 2 ** n_qubits)
-    if kind == "dephasing":
-        return dephasing(value, n_qubits)
-    if kind == "amplitude-damping":
-        return amplitude_damping(value, n_qubits)
-    raise ValueError(f"unknown noise kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
-
-
-def random_channel(n_qubits: int, rank: int, seed: int | None = None) -> np.ndarray:
-    """A random CPTP channel whose Choi matrix has the given rank.
-
-    Built from a Haar-like random isometry V: C^d → C^d ⊗ C^rank (QR of a
-    complex Gaussian matrix), whose blocks are the Kraus operators.
-    """
-    d = 2 ** n_qubits
-    if not 1 <= rank <= d * d:
-        raise ValueError(f"rank must lie in 1..{d * d}, got {rank}")
-    rng = np.random.default_rng(seed)
-    g = rng.normal(size=(d * rank, d)) + 1j * rng.normal(size=(d * rank, d))
-    q, r = np.linalg.qr(g)
-    q = q * (np.diag(r) / np.abs(np.diag(r)))[None, :]
-    kraus = q.reshape(rank, d, d)
-    return choi_from_kraus(kraus)
-
-
-def parse_channel_spec(spec: str):
-    """Parse ``GATE[+KIND:P]...`` or ``random:RANK[:SEED]`` (CONTRACT §4).
-
-    Returns
-    -------
-    gate : str or None
-        The gate name (the target of the simulated experiment), None for a
-        random channel.
-    noise : list of (kind, value)
-    random : tuple (rank, seed) or None
-    """
-    text = spec.strip()
-    if text.startswith("random:"):
-        parts = text.split(":")
-        if len(parts) not in (2, 3):
-            raise ValueError(f"channel {spec!r}: expected random:RANK[:SEED]")
-        try:
-            rank = int(parts[1])
-            seed = int(parts[2]) if len(parts) == 3 else None
-        except ValueError:
-            raise ValueError(f"channel {spec!r}: RANK and SEED must be whole numbers") from None
-        return None, [], (rank, seed)
-    pieces = text.split("+")
-    gate = pieces[0]
-    if gate not in GATE_NAMES:
-        raise ValueError(f"channel {spec!r}: unknown gate {gate!r}; known gates: {', '.join(GATE_NAMES)}")
-    return gate, [parse_noise(p) for p in pieces[1:]], None
-
-
-def parse_noise(text: str) -> tuple[str, float]:
-    """Parse one ``KIND:P`` noise term."""
-    kind, sep, value = text.partition(":")
-    if not sep:
-        raise ValueError(f"noise {text!r}: expected KIND:P, e.g. depolarizing:0.02")
-    if kind not in NOISE_KINDS:
-        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
-    try:
-        p = float(value)
-    except ValueError:
-        raise ValueError(f"noise {text!r}: {value!r} is not a number") from None
-    if not np.isfinite(p):
-        raise ValueError(f"noise {text!r}: parameter must be finite")
-    return kind, p
-
-
-def build_channel(gate: str, noise, n_qubits: int | None = None) -> np.ndarray:
-    """Choi matrix of a named gate followed by the noise terms, in order."""
-    u = named_gate(gate)
-    n = n_qubits_of(u.shape[0])
-    if n_qubits is not None and n != n_qubits:
-        raise ValueError(f"gate {gate} acts on {n} qubit(s), not {n_qubits}")
-    choi = choi_from_unitary(u)
-    for kind, value in noise:
-        choi = compose(choi, noise_channel(kind, value, n))
-    return choi

@@ -1,4 +1,6 @@
-"""The `gatescope` command line (CONTRACT §4). Thin: it parses arguments,
+"""The `gatescope` command line (README, "Commands"). Thin: it parses
+arguments, checks them with the same functions the Python API uses
+(`gatescope.options`, taking every choice from the registry that owns it),
 calls the same public functions a notebook would, and turns `InputError`
 into exit status 2 (bad input or usage) — anything else unexpected is 1.
 """
@@ -10,6 +12,7 @@ import sys
 import warnings
 from pathlib import Path
 
+from . import options
 from .errors import GatescopeWarning, InputError
 
 DEMO_DATASET = "cz_bench_b"
@@ -27,7 +30,11 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from .bootstrap import KINDS
+    from .conventions import GATE_NAMES
     from .estimators import METHODS
+    from .intervals import DEFAULT_INTERVAL, INTERVALS
+    from .synth.noise import NOISE_KINDS
 
     p = _Parser(prog="gatescope", description="Quantum process tomography from laboratory counts.")
     p.add_argument("--version", action="store_true", help="print the version and exit")
@@ -38,10 +45,10 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("-o", "--output", help="result file (default: result.h5 beside the experiment)")
     f.add_argument("--method", choices=METHODS, default="mle", help="estimator (default mle)")
     f.add_argument("--bootstrap", type=int, default=0, metavar="B", help="number of resamples for error bars")
-    f.add_argument("--bootstrap-kind", choices=("parametric", "nonparametric"), default="parametric")
+    f.add_argument("--bootstrap-kind", choices=KINDS, default=KINDS[0])
     f.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL", help="confidence level (fraction)")
-    f.add_argument("--interval", choices=("normal", "percentile", "basic", "bc"), default="normal",
-                   help="bootstrap interval construction (default normal: estimate ± z·bootstrap spread)")
+    f.add_argument("--interval", choices=INTERVALS, default=DEFAULT_INTERVAL,
+                   help=f"bootstrap interval construction (default {DEFAULT_INTERVAL})")
     f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
     f.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -53,10 +60,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel")
     src = m.add_mutually_exclusive_group(required=True)
-    src.add_argument("--gate", help="a named gate (I X Y Z H S T CNOT CZ SWAP iSWAP sqrtSWAP)")
+    src.add_argument("--gate", help=f"a named gate ({' '.join(GATE_NAMES)})")
     src.add_argument("--channel", metavar="SPEC", help="GATE[+KIND:P]... or random:RANK[:SEED]")
     m.add_argument("--noise", action="append", default=[], metavar="KIND:P",
-                   help="depolarizing:p, dephasing:p, amplitude-damping:g or zz:phi (repeatable)")
+                   help=f"noise after the gate, KIND:P with KIND one of {', '.join(NOISE_KINDS)} "
+                        "(repeatable)")
     m.add_argument("--qubits", type=int, default=2, help="qubits of a random channel (default 2)")
     m.add_argument("--shots", type=float, default=1000.0, metavar="N",
                    help="expected counts per preparation and analyser basis (default 1000)")
@@ -115,20 +123,14 @@ def main(argv=None) -> int:
 
 # --------------------------------------------------------------------------
 
-def _check_options(args):
-    if args.bootstrap < 0:
-        raise InputError("must be 0 or more", key="--bootstrap")
-    if not 0 < args.ci_level < 1:
-        raise InputError("must be a fraction between 0 and 1, e.g. 0.95", key="--ci-level")
-    if args.workers is not None and args.workers < 1:
-        raise InputError("must be at least 1", key="--workers")
-
-
 def cmd_fit(args, command_line) -> int:
-    from .api import fit
-    from .experiment import read_experiment
+    from .pipeline import check_fit_options, fit
+    from .reader import read_experiment
 
-    _check_options(args)
+    check_fit_options(method=args.method, bootstrap=args.bootstrap,
+                      bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
+                      interval=args.interval, seed=args.seed, workers=args.workers,
+                      command_line=True)
     exp = read_experiment(args.experiment)
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
     result = fit(exp, args.method, bootstrap=args.bootstrap, bootstrap_kind=args.bootstrap_kind,
@@ -140,7 +142,7 @@ def cmd_fit(args, command_line) -> int:
 
 
 def cmd_show(args, command_line) -> int:
-    from .results import load_result
+    from .result import load_result
     from .summary import summary
 
     print(summary(load_result(args.result)))
@@ -148,20 +150,29 @@ def cmd_show(args, command_line) -> int:
 
 
 def cmd_simulate(args, command_line) -> int:
-    from .simulate import run_simulation
+    from .synth.noise import parse_noise
+    from .synth.simulate import run_simulation
 
-    spec = args.channel if args.channel else "+".join([args.gate] + list(args.noise))
-    if args.channel and args.noise:
-        spec = "+".join([args.channel] + list(args.noise))
+    if args.gate is not None:
+        from .conventions import GATE_NAMES
+
+        options.choice(args.gate, GATE_NAMES, "--gate", "gate")
+    for text in args.noise:
+        try:
+            parse_noise(text)
+        except ValueError as exc:
+            raise InputError(str(exc), key="--noise") from None
+    option = "--channel" if args.channel else "--gate"
+    spec = "+".join([args.channel or args.gate] + list(args.noise))
     path = run_simulation(spec, Path(args.output), shots=args.shots, prep=args.prep, meas=args.meas,
                           seed=args.seed, n_qubits=args.qubits, title=args.title,
-                          command_line=command_line)
+                          command_line=command_line, spec_option=option)
     print(path)
     return 0
 
 
 def cmd_plan(args, command_line) -> int:
-    from .plan import format_duration, run_sheet, write_run_sheet
+    from .synth.plan import format_duration, run_sheet, write_run_sheet
 
     sheet = run_sheet(args.qubits, args.prep, args.meas, right_circular=args.right_circular,
                       seconds=args.seconds)
@@ -186,11 +197,11 @@ def find_demo_data() -> Path | None:
 
 
 def cmd_demo(args, command_line) -> int:
-    from .api import fit
-    from .experiment import read_experiment
-    from .results import load_result
-    from .simulate import DEMO_RECIPE, run_simulation
+    from .pipeline import fit
+    from .reader import read_experiment
+    from .result import load_result
     from .summary import summary
+    from .synth.simulate import DEMO_RECIPE, run_simulation
 
     outdir = Path(DEMO_OUTPUT)
     source = find_demo_data()

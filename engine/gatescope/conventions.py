@@ -1,6 +1,6 @@
 """Conventions of gatescope: states, labels, Pauli order, gates, wave plates.
 
-Everything here follows CONTRACT §2 and is repeated in the README:
+Everything here is stated in docs/conventions.md (and summarised in the README):
 
 * Qubit 1 is the leftmost tensor factor and the most significant bit.
 * ``H`` = |0>, ``V`` = |1>, ``D`` = (H+V)/√2, ``A`` = (H−V)/√2,
@@ -135,7 +135,7 @@ def kron_all(matrices) -> np.ndarray:
 # --------------------------------------------------------------------------
 
 def pauli_labels(n_qubits: int) -> list[str]:
-    """Pauli strings in CONTRACT order: I<X<Y<Z, qubit 1 most significant."""
+    """Pauli strings in the documented order: I<X<Y<Z, qubit 1 most significant."""
     return ["".join(p) for p in itertools.product(PAULI_LETTERS, repeat=n_qubits)]
 
 
@@ -148,7 +148,7 @@ def _pauli_basis_cached(n_qubits: int) -> np.ndarray:
 
 
 def pauli_basis(n_qubits: int) -> np.ndarray:
-    """The d² Pauli operators as an array of shape (d², d, d), CONTRACT order.
+    """The d² Pauli operators as an array of shape (d², d, d), in `pauli_labels` order.
 
     The array is shared and read-only.
     """
@@ -196,7 +196,7 @@ GATE_NAMES = tuple(GATES)
 
 
 def named_gate(name: str) -> np.ndarray:
-    """The unitary of a named gate (CONTRACT §2); a copy the caller may edit."""
+    """The unitary of a named gate (docs/conventions.md); a copy the caller may edit."""
     try:
         return GATES[name].copy()
     except KeyError:

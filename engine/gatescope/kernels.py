@@ -5,7 +5,7 @@ The kernels take plain arrays only. Each ``name`` has a twin
 operations; the twin is the readable definition and the tests compare the
 two on random inputs. Both are single-threaded.
 
-Row model (CONTRACT §3): ``ν_k = λ_g · base_k + background_k`` where
+Row model (docs/file-formats.md, "Input"): ``ν_k = λ_g · base_k + background_k`` where
 ``base_k = seconds_k · efficiency_k · p_k`` and g = ``group_index[k]``.
 """
 
@@ -294,9 +294,12 @@ def hermitian_solve(a, b):
 
 
 @njit(cache=True)
-def project_cptp_kernel(x, y0, tol, maxiter, chord_rate):
+def project_cptp_kernel(x, y0, tol, maxiter, chord_rate, damping_scale, damping_cap,
+                        damping_floor, armijo, min_line_step, congruence_min):
     """Dual semismooth Newton projection onto CPTP maps (see gatescope.projection);
-    ``chord_rate`` is `projection._CHORD_RATE`, shared with the NumPy twin.
+    the constants after ``maxiter`` are those of `gatescope.projection`
+    (CHORD_RATE, DAMPING_SCALE, DAMPING_CAP, DAMPING_FLOOR, ARMIJO, MIN_LINE_STEP,
+    CONGRUENCE_MIN_EIGENVALUE), shared with the NumPy twin.
 
     Returns (J, Y, iterations, r) with J after the final congruence
     (:func:`tp_congruence`) and r = ‖Tr_out J − I‖_F before it.
@@ -313,7 +316,7 @@ def project_cptp_kernel(x, y0, tol, maxiter, chord_rate):
     while res > tol and it < maxiter:
         it += 1
         if fresh:
-            mu = 1e-2 * min(1e-2, res) + 1e-14
+            mu = damping_scale * min(damping_cap, res) + damping_floor
             jac = _newton_matrix_kernel(w, q, d) + mu * eye_n
         res_before = res
         step = hermitian_solve(jac, grad.reshape(n).copy()).reshape(d, d)
@@ -326,21 +329,22 @@ def project_cptp_kernel(x, y0, tol, maxiter, chord_rate):
         while True:
             theta_new, w_new, q_new, j_new, grad_new = _dual_point(x, y + s * step, d)
             res_new = np.sqrt(np.sum(np.abs(grad_new) ** 2))
-            if theta_new >= theta + 1e-4 * s * slope or res_new <= (1.0 - 1e-4 * s) * res or s < 1e-8:
+            if (theta_new >= theta + armijo * s * slope or res_new <= (1.0 - armijo * s) * res
+                    or s < min_line_step):
                 break
             s *= 0.5
         y = y + s * step
         theta, w, q, j, grad, res = theta_new, w_new, q_new, j_new, grad_new, res_new
         # chord: keep the matrix while a step cuts the residual by chord_rate or better
         fresh = res > chord_rate * res_before
-    return tp_congruence(j, d), y, it, res
+    return tp_congruence(j, d, congruence_min), y, it, res
 
 
 @njit(cache=True)
-def tp_congruence(j, d):
+def tp_congruence(j, d, min_eigenvalue):
     """(M⊗I) J (M⊗I)† with M = (Tr_out J)^{-1/2}: exact trace preservation, positivity kept.
 
-    Left unchanged when Tr_out J is far from I (smallest eigenvalue ≤ 0.5).
+    Left unchanged when Tr_out J is far from I (smallest eigenvalue ≤ ``min_eigenvalue``).
     """
     n = d * d
     t = np.zeros((d, d), dtype=np.complex128)
@@ -350,7 +354,7 @@ def tp_congruence(j, d):
                 t[i, k] += j[i * d + a, k * d + a]
     t = 0.5 * (t + t.conj().T)
     tw, tv = np.linalg.eigh(t)
-    if tw.min() <= 0.5:
+    if tw.min() <= min_eigenvalue:
         out = 0.5 * (j + j.conj().T)
         return out
     m = np.zeros((d, d), dtype=np.complex128)

@@ -1,6 +1,6 @@
 """Poisson likelihood of the rows, with the intensities profiled out.
 
-For a Choi matrix J the log-likelihood (CONTRACT §5)
+For a Choi matrix J the log-likelihood (docs/file-formats.md, "Result file")
 
     ℓ(J, λ) = Σ_k [n_k log ν_k − ν_k − log n_k!],
     ν_k = λ_g · seconds_k · efficiency_k · p_k(J) + background_k,

@@ -1,6 +1,6 @@
 """The measurement model: the linear map from a Choi matrix to every row.
 
-Row k probes the probability ``p_k = Tr[(ρ_k^T ⊗ E_k) J]`` (CONTRACT §3),
+Row k probes the probability ``p_k = Tr[(ρ_k^T ⊗ E_k) J]`` (docs/file-formats.md, "Input"),
 ρ_k the row's preparation density matrix and E_k its analyser effect. Its
 expected counts are ``ν_k = λ_g · seconds_k · efficiency_k · p_k +
 background_k``.
@@ -24,15 +24,26 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .channels import _apply_on_every_qubit, _choi_qubit_axes, _from_qubit_axes
+from .channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
 from .conventions import pauli_basis, pauli_labels
 from .errors import GatescopeWarning
-from .experiment import Experiment
+from .reader import Experiment
 
 
 #: From this many qubits the forward and adjoint maps contract qubit by qubit; below
 #: it one P × M table of all (prep, meas) pairs is cheaper.
 STRUCTURED_FROM_QUBITS = 3
+#: Singular values of the preparations' (or effects') Pauli vectors below this
+#: multiple of the rounding level (max(shape)·ε·s_max, numpy's matrix_rank default)
+#: count as zero: the states are given to a few digits, so exact rank tests would
+#: call a nearly dependent set complete.
+RANK_TOLERANCE_FACTOR = 100
+#: A Pauli component whose weight in the missing directions exceeds this is named
+#: as undetermined (the weights of one missing direction sum to 1).
+MISSING_WEIGHT = 0.5
+#: Above this many process parameters the rank of an incomplete (prep, meas) design
+#: is bounded instead of computed (the dense SVD would need rows × params memory).
+DENSE_RANK_MAX_PARAMETERS = 4096
 
 
 @dataclass(frozen=True, eq=False)
@@ -119,7 +130,7 @@ class MeasurementModel:
 
     def _grid_table(self, choi: np.ndarray) -> np.ndarray:
         n = self.n_qubits
-        t = _apply_on_every_qubit(_choi_qubit_axes(choi, n), self._to_grid, n)
+        t = apply_on_every_qubit(choi_qubit_axes(choi, n), self._to_grid, n)
         # axes (p_k, m_k) per qubit -> [p_1..p_n, m_1..m_n]
         t = t.reshape((self._k, self._l) * n)
         t = t.transpose([2 * k for k in range(n)] + [2 * k + 1 for k in range(n)])
@@ -130,7 +141,7 @@ class MeasurementModel:
         w = np.bincount(self._grid_index, weights=weights, minlength=self._grid_size)
         w = w.reshape((self._k,) * n + (self._l,) * n)
         w = w.transpose([ax for k in range(n) for ax in (k, n + k)]).reshape((self._k * self._l,) * n)
-        return _from_qubit_axes(_apply_on_every_qubit(w.astype(complex), self._from_grid, n), n)
+        return from_qubit_axes(apply_on_every_qubit(w.astype(complex), self._from_grid, n), n)
 
     # -- the linear map --------------------------------------------------
     def table(self, choi: np.ndarray) -> np.ndarray:
@@ -159,7 +170,7 @@ class MeasurementModel:
         return k.reshape(d, d, d, d).transpose(1, 2, 0, 3).reshape(d * d, d * d)
 
     def expected_counts(self, choi: np.ndarray, intensities: np.ndarray) -> np.ndarray:
-        """ν_k = λ_g · seconds · efficiency · p_k + background (CONTRACT §3)."""
+        """ν_k = λ_g · seconds · efficiency · p_k + background (docs/file-formats.md, "Input")."""
         return intensities[self.group_index] * self.exposure * self.forward(choi) + self.background
 
     # -- Pauli coordinates, used by linear inversion and identifiability --
@@ -194,7 +205,7 @@ class MeasurementModel:
         present = self.pairs_present() > 0
         if present.all():
             rank = prep_rank * meas_rank
-        elif n_params <= 4096:
+        elif n_params <= DENSE_RANK_MAX_PARAMETERS:
             # Rank of the design restricted to the pairs present, in PTM coordinates.
             p_idx, m_idx = np.nonzero(present)
             design = (e[m_idx, first:][:, :, None] * r[p_idx][:, None, :]).reshape(len(p_idx), -1)
@@ -230,13 +241,14 @@ class MeasurementModel:
 def _span(vectors: np.ndarray, labels) -> tuple[int, list[str]]:
     """Rank of the rows of ``vectors`` and the Pauli labels they miss."""
     _, s, vt = np.linalg.svd(vectors, full_matrices=True)
-    tol = max(vectors.shape) * np.finfo(float).eps * (s[0] if s.size else 1.0) * 100
+    tol = max(vectors.shape) * np.finfo(float).eps * (s[0] if s.size else 1.0) \
+        * RANK_TOLERANCE_FACTOR
     rank = int(np.sum(s > tol))
     null = vt[rank:]
     missing = []
     if null.size:
         weight = np.sum(null ** 2, axis=0)
-        missing = [labels[i] for i in np.argsort(-weight) if weight[i] > 0.5]
+        missing = [labels[i] for i in np.argsort(-weight) if weight[i] > MISSING_WEIGHT]
         if not missing:
             missing = [labels[i] for i in np.argsort(-weight)[: null.shape[0]]]
     return rank, missing

@@ -33,7 +33,37 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kernels
-from .channels import partial_trace_output
+from .channels import dim_of_choi, partial_trace_output
+
+# Constants of the dual Newton method, shared by the compiled kernel (which receives
+# them as arguments) and its NumPy twin.
+
+#: Regularisation μ = DAMPING_SCALE·min(DAMPING_CAP, ‖∇θ‖) + DAMPING_FLOOR added to the
+#: generalised Hessian (Zhao, Sun & Toh 2010): it vanishes with the residual, so the
+#: local convergence stays fast, and the floor keeps the system positive definite.
+DAMPING_SCALE = 1e-2
+DAMPING_CAP = 1e-2
+DAMPING_FLOOR = 1e-14
+#: Armijo constant of the dual line search: a step must gain this fraction of the
+#: predicted increase of θ, or cut the residual ‖∇θ‖ by this fraction of itself.
+ARMIJO = 1e-4
+#: The line search takes the step anyway once it has halved it below this length.
+MIN_LINE_STEP = 1e-8
+#: A Newton step that cut the dual residual by this factor or better lets the next
+#: step reuse its matrix (a chord step: the eigenvectors have barely moved).
+CHORD_RATE = 0.1
+#: Conjugate gradients (d ≥ `MATRIX_FREE_DIM`) stop at this residual relative to the
+#: right-hand side, or after CG_MAXITER iterations: an inexact Newton step is enough.
+CG_TOL = 1e-4
+CG_MAXITER = 100
+#: The final congruence (M⊗I) J (M⊗I), M = (Tr_out J)^{-1/2}, is applied only when the
+#: smallest eigenvalue of Tr_out J exceeds this: far from I it would distort J.
+CONGRUENCE_MIN_EIGENVALUE = 0.5
+#: From this d on the Newton system is solved by conjugate gradients (the explicit
+#: d² × d² Jacobian would need O(d^8) work and memory).
+MATRIX_FREE_DIM = 16
+#: Above this d the loops of the compiled Newton matrix lose to BLAS: use the NumPy twin.
+KERNEL_MAX_DIM = 4
 
 
 @dataclass
@@ -129,8 +159,8 @@ def _newton_step(w, q, d, grad, mu, matrix_free: bool, jac=None):
     r = grad.copy()
     p = r.copy()
     rr = np.vdot(r, r).real
-    target = 1e-4 * np.sqrt(rr)
-    for _ in range(100):
+    target = CG_TOL * np.sqrt(rr)
+    for _ in range(CG_MAXITER):
         ap = _newton_apply(w, q, d, p) + mu * p
         alpha = rr / np.vdot(p, ap).real
         x += alpha * p
@@ -143,22 +173,13 @@ def _newton_step(w, q, d, grad, mu, matrix_free: bool, jac=None):
     return x, None
 
 
-#: A Newton step that cut the dual residual by this factor or better lets the next
-#: step reuse its matrix (a chord step: the eigenvectors have barely moved).
-_CHORD_RATE = 0.1
-
-#: From this d on the Newton system is solved by conjugate gradients (the explicit
-#: d² × d² Jacobian would need O(d^8) work and memory).
-_MATRIX_FREE_DIM = 16
-
-
 def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
                        maxiter: int = 100) -> Projection:
     """Euclidean (Frobenius) projection onto CPTP maps, in NumPy: the twin of the
     compiled kernel and the path used from d = 8 on. Same parameters and result as
     :func:`project_cptp`."""
     n = x.shape[0]
-    d = int(round(np.sqrt(n)))
+    d = dim_of_choi(x)
     x4 = (0.5 * (x + x.conj().T)).reshape(d, d, d, d)
     eye = np.eye(d)
     y = np.zeros((d, d), dtype=complex) if multiplier is None else multiplier.astype(complex)
@@ -177,9 +198,9 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
     jac = None
     while res > tol and it < maxiter:
         it += 1
-        mu = 1e-2 * min(1e-2, res) + 1e-14
+        mu = DAMPING_SCALE * min(DAMPING_CAP, res) + DAMPING_FLOOR
         res_before = res
-        step, jac = _newton_step(w, q, d, grad, mu, matrix_free=d >= _MATRIX_FREE_DIM, jac=jac)
+        step, jac = _newton_step(w, q, d, grad, mu, matrix_free=d >= MATRIX_FREE_DIM, jac=jac)
         step = 0.5 * (step + step.conj().T)
         slope = np.vdot(grad, step).real
         if slope <= 0:                                 # not an ascent direction: use the gradient
@@ -190,13 +211,14 @@ def project_cptp_numpy(x: np.ndarray, *, multiplier: np.ndarray | None = None, t
             res_new = np.linalg.norm(cand[4])
             # Armijo on θ; near the solution θ's increase drowns in rounding, so a
             # decrease of the residual ‖∇θ‖ is accepted as well.
-            if cand[0] >= theta + 1e-4 * s * slope or res_new <= (1 - 1e-4 * s) * res or s < 1e-8:
+            if (cand[0] >= theta + ARMIJO * s * slope or res_new <= (1 - ARMIJO * s) * res
+                    or s < MIN_LINE_STEP):
                 break
             s *= 0.5
         y = y + s * step
         theta, j, w, q, grad = cand
         res = res_new
-        if res > _CHORD_RATE * res_before:
+        if res > CHORD_RATE * res_before:
             jac = None                # the old matrix no longer pays: a new one next step
     return _finish(j, y, it, res, tol, d)
 
@@ -206,17 +228,13 @@ def _finish(j, y, it, res, tol, d) -> Projection:
     eye = np.eye(d)
     tr_out = partial_trace_output(j)
     tw, tv = np.linalg.eigh(0.5 * (tr_out + tr_out.conj().T))
-    if tw.min() > 0.5:
+    if tw.min() > CONGRUENCE_MIN_EIGENVALUE:
         m = (tv / np.sqrt(tw)) @ tv.conj().T
         big = np.kron(m, eye)
         j = big @ j @ big.conj().T
     j = 0.5 * (j + j.conj().T)
     return Projection(choi=j, multiplier=y, iterations=it, tp_residual=float(res),
                       converged=bool(res <= tol))
-
-
-#: Above this d the loops of the compiled Newton matrix lose to BLAS: use the NumPy twin.
-_KERNEL_MAX_DIM = 4
 
 
 def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: float = 1e-12,
@@ -242,15 +260,15 @@ def project_cptp(x: np.ndarray, *, multiplier: np.ndarray | None = None, tol: fl
         error; ``tp_residual`` is the trace-preservation error the Newton
         iteration left before the final congruence removed it.
     """
-    n = x.shape[0]
-    d = int(round(np.sqrt(n)))
+    d = dim_of_choi(x)
     xh = np.ascontiguousarray(0.5 * (x + x.conj().T), dtype=np.complex128)
     y0 = (np.zeros((d, d), dtype=np.complex128) if multiplier is None
           else np.ascontiguousarray(multiplier, dtype=np.complex128))
-    if d > _KERNEL_MAX_DIM:
+    if d > KERNEL_MAX_DIM:
         return project_cptp_numpy(xh, multiplier=y0, tol=tol, maxiter=maxiter)
-    j, y, it, res = kernels.project_cptp_kernel(xh, y0, float(tol), int(maxiter),
-                                                _CHORD_RATE)
+    j, y, it, res = kernels.project_cptp_kernel(
+        xh, y0, float(tol), int(maxiter), CHORD_RATE, DAMPING_SCALE, DAMPING_CAP, DAMPING_FLOOR,
+        ARMIJO, MIN_LINE_STEP, CONGRUENCE_MIN_EIGENVALUE)
     return Projection(choi=j, multiplier=y, iterations=it, tp_residual=float(res),
                       converged=bool(res <= tol))
 
@@ -289,8 +307,7 @@ def project_cptni(x: np.ndarray, *, tol: float = 1e-12, maxiter: int = 20000) ->
 
     Returns a `Projection` (``multiplier`` is unused and None).
     """
-    n = x.shape[0]
-    d = int(round(np.sqrt(n)))
+    d = dim_of_choi(x)
     x = 0.5 * (x + x.conj().T)
     j = x
     p = np.zeros_like(x)
@@ -317,3 +334,12 @@ def project_cptni(x: np.ndarray, *, tol: float = 1e-12, maxiter: int = 20000) ->
     excess = max(0.0, float(tau.max()) - 1.0)
     return Projection(choi=0.5 * (j + j.conj().T), multiplier=None, iterations=it,
                       tp_residual=excess, converged=bool(change <= tol * max(1.0, np.linalg.norm(j))))
+
+
+def project_physical(model, x: np.ndarray, *, multiplier=None,
+                     tol: float = 1e-12, maxiter: int = 100):
+    """Euclidean projection onto the model's physical set: CPTP maps, or completely
+    positive trace non-increasing maps for ``trace = "decreasing"``."""
+    if model.trace_decreasing:
+        return project_cptni(x, tol=tol)
+    return project_cptp(x, multiplier=multiplier, tol=tol, maxiter=maxiter)

@@ -6,7 +6,10 @@ import tomllib
 
 import numpy as np
 
-from .results import POOR_FIT_P, Result
+from .channels import dim_of_choi
+from .conventions import n_qubits_of
+from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
+from .result import Result
 
 LABELS = {
     "process_fidelity": "process fidelity",
@@ -55,8 +58,7 @@ def summary(result: Result) -> str:
         toml_title = str(tomllib.loads(r.experiment_toml).get("title", ""))
     except tomllib.TOMLDecodeError:     # a file written by hand elsewhere; the title is cosmetic
         toml_title = ""
-    d = int(round(np.sqrt(r.choi.shape[0])))
-    n = int(round(np.log2(d)))
+    n = n_qubits_of(dim_of_choi(r.choi))
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
     lines.append(f"  qubits {n}, target {r.target_name or 'none'}, rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
@@ -72,12 +74,17 @@ def summary(result: Result) -> str:
         lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
                      f"seed {b.seed}; {b.failures} did not converge{errors})")
     lines.append("")
-    lines.append("fit")
-    lines.append(f"  method {r.method}, converged {'yes' if r.converged else 'NO'}, "
-                 f"{r.iterations} iterations, {r.seconds:.3f} s")
-    lines.append(f"  stop reason: {r.stop_reason}")
-    lines.append(f"  log-likelihood {r.log_likelihood:.6f}")
-    lines.extend(_goodness_of_fit(r))
+    if r.origin == "truth":
+        lines.append("true channel of a simulation (not a fit)")
+        lines.append(f"  {r.stop_reason}")
+        lines.append(f"  log-likelihood at the simulated counts {r.log_likelihood:.6f}")
+    else:
+        lines.append("fit")
+        lines.append(f"  method {r.method}, converged {'yes' if r.converged else 'NO'}, "
+                     f"{r.iterations} iterations, {r.seconds:.3f} s")
+        lines.append(f"  stop reason: {r.stop_reason}")
+        lines.append(f"  log-likelihood {r.log_likelihood:.6f}")
+        lines.extend(_goodness_of_fit(r))
     pr = r.provenance
     lines.append("")
     lines.append("provenance")
@@ -120,7 +127,7 @@ def _goodness_of_fit(r: Result) -> list[str]:
     dg = r.diagnostics
     out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance {dg.deviance:.2f} "
            f"(p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
-    if r.method not in ("mle", "truth"):
+    if r.method != "mle":
         out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these p-values "
                    "are lower than for the model itself; refit with mle to test the model)")
     elif dg.poor_fit:
@@ -128,7 +135,8 @@ def _goodness_of_fit(r: Result) -> list[str]:
                    "miscalibrated optics, drift of the source, or a wrong background")
     rows = np.asarray(dg.outlier_rows, dtype=int)
     if rows.size:
-        out.append(f"  {rows.size} row(s) with |Pearson residual| > 4 (CSV data row, first = 1):")
+        out.append(f"  {rows.size} row(s) with |Pearson residual| > {OUTLIER_RESIDUAL:g} "
+                   "(CSV data row, first = 1):")
         out.append(f"    {'row':>6s}  {'prep':10s} {'meas':10s} {'counts':>9s} {'expected':>11s} "
                    f"{'residual':>9s}")
         order = rows[np.argsort(-np.abs(np.nan_to_num(dg.pearson_residuals[rows], nan=np.inf)),

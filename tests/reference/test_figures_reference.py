@@ -1,4 +1,4 @@
-"""Figures of issue 5 against published closed forms and independent formulas, each
+"""Figures of merit against published closed forms and independent formulas, each
 with its source beside it."""
 
 from __future__ import annotations
@@ -8,9 +8,9 @@ import itertools
 
 import numpy as np
 import pytest
-
 from gatescope import channels as ch
-from gatescope import figures as fig
+from gatescope.synth import noise as synth_noise
+from gatescope import merit as fig
 from gatescope.conventions import GATES, rz
 
 needs_cvxpy = pytest.mark.skipif(importlib.util.find_spec("cvxpy") is None,
@@ -30,7 +30,7 @@ def random_unitary(d, seed):
 
 
 def kraus_channel(kraus):
-    """Choi matrix Σ_ij |i><j| ⊗ Φ(|i><j|) built entry by entry (CONTRACT §2), not from the package."""
+    """Choi matrix Σ_ij |i><j| ⊗ Φ(|i><j|) built entry by entry (docs/conventions.md), not from the package."""
     d = kraus[0].shape[1]
     J = np.zeros((d * d, d * d), dtype=complex)
     for i, j in itertools.product(range(d), repeat=2):
@@ -131,7 +131,7 @@ def test_diamond_of_a_trace_decreasing_map_matches_the_general_program(seed):
     # A random trace-decreasing map (a channel followed by loss that depends on the
     # output) against a random unitary.
     rng = np.random.default_rng(seed)
-    kraus = ch.kraus_from_choi(ch.random_channel(1, 2, seed))
+    kraus = ch.kraus_from_choi(synth_noise.random_channel(1, 2, seed))
     filt = np.diag(np.sqrt(rng.uniform(0.3, 0.9, 2)))
     J = kraus_channel([filt @ k for k in kraus])
     u = random_unitary(2, seed + 7)
@@ -147,8 +147,8 @@ def test_diamond_against_qutip_for_random_channels():
     # convention equals ours (REFERENCE-NOTES), so the superoperator comes from Kraus.
     qutip = pytest.importorskip("qutip")
     for seed in (1, 2):
-        a = ch.random_channel(1, 2, seed)
-        b = ch.random_channel(1, 3, seed + 10)
+        a = synth_noise.random_channel(1, 2, seed)
+        b = synth_noise.random_channel(1, 3, seed + 10)
         ka, kb = (ch.kraus_from_choi(x) for x in (a, b))
         sa = qutip.kraus_to_super([qutip.Qobj(k) for k in ka])
         sb = qutip.kraus_to_super([qutip.Qobj(k) for k in kb])

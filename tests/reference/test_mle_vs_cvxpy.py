@@ -22,13 +22,13 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scipy.special import gammaln
-
-from gatescope.channels import partial_trace_output, random_channel
+from gatescope.channels import partial_trace_output
+from gatescope.synth.noise import random_channel
 from gatescope.estimators import fit_mle
 from gatescope.likelihood import PoissonLikelihood
 from gatescope.model import MeasurementModel
 from gatescope.projection import project_cptp
+from scipy.special import gammaln
 
 cp = pytest.importorskip("cvxpy")
 
@@ -143,7 +143,7 @@ def check_mle_against_reference(exp, solvers, *, choi_tol=None):
     assert ours.log_likelihood >= ref_ll - 1e-6 * scale, (ours.log_likelihood, notes)
     # and the reference is a real optimum, not a failed solve that any answer beats
     assert ref_ll >= ours.log_likelihood - 1e-4 * scale, (ours.log_likelihood, notes)
-    # our reported log-likelihood is the CONTRACT §5 formula, recomputed here
+    # our reported log-likelihood is the formula of docs/file-formats.md, recomputed here
     assert ours.log_likelihood == pytest.approx(direct_log_likelihood(exp, ours.choi), rel=1e-12)
     assert ref_ll == pytest.approx(direct_log_likelihood(exp, ref_J), rel=1e-12)
     if choi_tol is not None:

@@ -23,9 +23,9 @@ import itertools
 
 import numpy as np
 import pytest
-
 from gatescope import channels as ch
-from gatescope import figures as fig
+from gatescope.synth import noise as synth_noise
+from gatescope import merit as fig
 from gatescope.conventions import GATES, pauli_labels, rz
 
 qutip = pytest.importorskip("qutip", minversion="5.0")
@@ -67,14 +67,14 @@ def y_signs(n: int) -> np.ndarray:
     return np.array([(-1.0) ** lab.count("Y") for lab in labels])
 
 
-# Single-qubit noise, written out as Kraus operators (CONTRACT §4 parameterisation).
+# Single-qubit noise, written out as Kraus operators (README, "Commands", parameterisation).
 def kraus_dephasing(p):
     # ρ ↦ (1−p)ρ + p ZρZ
     return [np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * np.diag([1.0, -1.0])]
 
 
 def kraus_amplitude_damping(g):
-    # the CONTRACT §4 pair, the textbook amplitude-damping Kraus operators
+    # the README's pair, the textbook amplitude-damping Kraus operators
     # (Nielsen & Chuang, Quantum Computation and Quantum Information, §8.3.5)
     return [np.array([[1, 0], [0, np.sqrt(1 - g)]]), np.array([[0, np.sqrt(g)], [0, 0]])]
 
@@ -112,7 +112,7 @@ RANDOM_CASES = [(1, 1, 11), (1, 2, 12), (1, 4, 13), (2, 1, 21), (2, 3, 22), (2, 
 
 
 def random_case(n, rank, seed):
-    return ch.random_channel(n, rank, seed=seed)
+    return synth_noise.random_channel(n, rank, seed=seed)
 
 
 # --------------------------------------------------------------------------
@@ -132,7 +132,7 @@ def test_choi_of_named_gate_equals_qutip_to_choi(name):
 @pytest.mark.parametrize("kind,value", [("dephasing", 0.13), ("amplitude-damping", 0.27),
                                         ("depolarizing", 0.31)])
 def test_noise_channels_equal_qutip_from_kraus(kind, value, n):
-    ours = ch.noise_channel(kind, value, n)
+    ours = synth_noise.noise_channel(kind, value, n)
     if kind == "dephasing":
         ref = q_each_qubit(kraus_dephasing(value), n)
     elif kind == "amplitude-damping":
@@ -143,16 +143,16 @@ def test_noise_channels_equal_qutip_from_kraus(kind, value, n):
 
 
 def test_zz_phase_equals_qutip_expm():
-    ours = ch.noise_channel("zz", 0.37, 2)
+    ours = synth_noise.noise_channel("zz", 0.37, 2)
     ref = qutip.to_choi(q_zz(0.37, 2)).full()
     np.testing.assert_allclose(ours, ref, rtol=0, atol=ATOL)
 
 
 def test_gate_followed_by_noise_in_order_equals_qutip_product():
-    # CONTRACT §4: noise acts after the gate, in the order given. With column
+    # README, "Commands": noise acts after the gate, in the order given. With column
     # stacking the superoperator of "A then B" is S_B · S_A.
     noise = [("zz", 0.2), ("amplitude-damping", 0.1), ("dephasing", 0.05), ("depolarizing", 0.03)]
-    ours = ch.build_channel("CZ", noise, 2)
+    ours = synth_noise.build_channel("CZ", noise, 2)
     s = q_unitary(GATES["CZ"], 2)
     s = q_zz(0.2, 2) * s
     s = q_each_qubit(kraus_amplitude_damping(0.1), 2) * s
@@ -222,9 +222,9 @@ def chi_cases():
     cases = [pytest.param(random_case(*c), c[0], id=f"random-{c[0]}q-rank{c[1]}") for c in RANDOM_CASES]
     for name in ("H", "S", "T", "Y", "CNOT", "iSWAP", "sqrtSWAP"):
         cases.append(pytest.param(ch.choi_from_unitary(GATES[name]), n_of_gate(name), id=name))
-    cases.append(pytest.param(ch.build_channel("CZ", [("amplitude-damping", 0.2), ("zz", 0.3)], 2), 2,
+    cases.append(pytest.param(synth_noise.build_channel("CZ", [("amplitude-damping", 0.2), ("zz", 0.3)], 2), 2,
                               id="CZ+noise"))
-    cases.append(pytest.param(ch.build_channel("S", [("amplitude-damping", 0.3)], 1), 1, id="S+ad"))
+    cases.append(pytest.param(synth_noise.build_channel("S", [("amplitude-damping", 0.3)], 1), 1, id="S+ad"))
     return cases
 
 
@@ -294,9 +294,9 @@ def fidelity_cases():
         target = "H" if n == 1 else "CNOT"
         cases.append(pytest.param(random_case(n, rank, seed), GATES[target], n,
                                   id=f"random-{n}q-rank{rank}-vs-{target}"))
-    cases.append(pytest.param(ch.build_channel("CZ", [("zz", 0.1), ("depolarizing", 0.05)], 2),
+    cases.append(pytest.param(synth_noise.build_channel("CZ", [("zz", 0.1), ("depolarizing", 0.05)], 2),
                               GATES["CZ"], 2, id="noisy-CZ"))
-    cases.append(pytest.param(ch.build_channel("T", [("amplitude-damping", 0.2)], 1), GATES["T"], 1,
+    cases.append(pytest.param(synth_noise.build_channel("T", [("amplitude-damping", 0.2)], 1), GATES["T"], 1,
                               id="damped-T"))
     cases.append(pytest.param(ch.choi_from_unitary(rz(0.3)), np.eye(2), 1, id="Rz-vs-I"))
     return cases

@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import itertools
 
+import gatescope as gs
 import numpy as np
 import pytest
-
-import gatescope as gs
 from gatescope import channels as ch
-from gatescope import figures as fig
+from gatescope.synth import noise as synth_noise
+from gatescope import merit as fig
 from gatescope.conventions import GATES, half_wave, quarter_wave, rz
 from gatescope.model import MeasurementModel
 
@@ -44,7 +44,7 @@ def test_chi_of_depolarizing_channel(p):
     # (1−p)ρ + p I/2 has χ = diag(1 − 3p/4, p/4, p/4, p/4) on (I, X, Y, Z):
     # Nielsen & Chuang, Quantum Computation and Quantum Information, §8.3
     # (the depolarizing channel written as (1−p)ρ + p/4 (ρ + XρX + YρY + ZρZ)).
-    chi = ch.choi_to_chi(ch.depolarizing(p, 2))
+    chi = ch.choi_to_chi(synth_noise.depolarizing(p, 2))
     expected = np.diag([1 - 3 * p / 4, p / 4, p / 4, p / 4])
     np.testing.assert_allclose(chi, expected, rtol=0, atol=1e-14)
 
@@ -160,8 +160,8 @@ def test_average_gate_fidelity_formula_against_a_two_design(n):
     np.testing.assert_allclose(moment, (np.eye(d * d) + swap) / (d * (d + 1)), atol=1e-14)
 
     target = GATES["H"] if n == 1 else GATES["CNOT"]
-    channels = [ch.random_channel(n, r, seed=40 + r) for r in (1, 2, 3)]
-    channels.append(ch.build_channel("H" if n == 1 else "CNOT", [("amplitude-damping", 0.15)], n))
+    channels = [synth_noise.random_channel(n, r, seed=40 + r) for r in (1, 2, 3)]
+    channels.append(synth_noise.build_channel("H" if n == 1 else "CNOT", [("amplitude-damping", 0.15)], n))
     for J in channels:
         design_avg = np.mean([np.vdot(target @ s, ch.apply_channel(J, np.outer(s, s.conj())) @ (target @ s)).real
                               for s in states])
@@ -189,7 +189,7 @@ def test_process_fidelity_cnot_followed_by_target_rz():
 
 
 # --------------------------------------------------------------------------
-# Wave plates (Jones calculus of CONTRACT §2) and dephasing
+# Wave plates (Jones calculus of docs/conventions.md) and dephasing
 # --------------------------------------------------------------------------
 
 def test_half_wave_plate_at_zero_is_pauli_z():
@@ -213,7 +213,7 @@ def test_half_wave_plate_at_22_5_turns_h_into_d():
 
 def test_quarter_wave_plate_at_45_turns_h_into_right_circular():
     # Common practice: a quarter-wave plate at 45° makes circular light from H;
-    # with the default handedness R = (H − iV)/√2 (CONTRACT §2) it is R.
+    # with the default handedness R = (H − iV)/√2 (docs/conventions.md) it is R.
     out = quarter_wave(np.radians(45.0)) @ KET["H"]
     assert same_ray(out, KET["R"])
     assert not same_ray(out, KET["L"])
@@ -260,10 +260,10 @@ def test_full_dephasing_removes_off_diagonal_terms():
     for n in (1, 2):
         d = 2 ** n
         rho = random_density(d, seed=n)
-        out = ch.apply_channel(ch.dephasing(0.5, n), rho)
+        out = ch.apply_channel(synth_noise.dephasing(0.5, n), rho)
         np.testing.assert_allclose(out, np.diag(np.diag(rho)), atol=1e-15)
         assert np.abs(rho - np.diag(np.diag(rho))).max() > 0.05     # there was something to remove
     # and partial dephasing scales the coherence by 1 − 2p
     rho = random_density(2, seed=7)
-    out = ch.apply_channel(ch.dephasing(0.2, 1), rho)
+    out = ch.apply_channel(synth_noise.dephasing(0.2, 1), rho)
     assert out[0, 1] == pytest.approx(0.6 * rho[0, 1], abs=1e-15)

@@ -1,14 +1,17 @@
-"""Lossy or postselected gates: trace = "decreasing" with a known input rate."""
+"""Lossy or postselected gates: trace = "decreasing" with a known input rate.
+"""
 
-import numpy as np
-import pytest
+from __future__ import annotations
 
 import gatescope as gs
-from gatescope.channels import build_channel, partial_trace_output
+import numpy as np
+import pytest
+from gatescope.channels import partial_trace_output
+from gatescope.synth.noise import build_channel
 from gatescope.estimators import estimate
 from gatescope.model import MeasurementModel
 from gatescope.projection import project_cptni
-from gatescope.simulate import Channel, simulate_counts
+from gatescope.synth.simulate import Channel, simulate_counts
 
 RATE = 9000.0   # counts per second a lossless gate would give in one complete analyser basis
 
@@ -38,7 +41,7 @@ def test_postselected_cz_success_one_ninth(tmp_path):
     # physical: completely positive and trace non-increasing
     assert np.linalg.eigvalsh(res.choi)[0] >= -1e-10
     assert np.linalg.eigvalsh(partial_trace_output(res.choi)).max() <= 1 + 1e-10
-    # F_avg for a trace-decreasing map uses Tr J/d (CONTRACT §2)
+    # F_avg for a trace-decreasing map uses Tr J/d (docs/conventions.md)
     f = res.figures
     d = 4
     assert f["average_gate_fidelity"].value == pytest.approx(

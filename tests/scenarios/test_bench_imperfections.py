@@ -9,17 +9,20 @@ it assumes ideal optics, the goodness-of-fit test says the model does not
 describe the data.
 """
 
-import numpy as np
-import pytest
+from __future__ import annotations
 
 import gatescope as gs
-from gatescope.channels import build_channel
+import numpy as np
+import pytest
+from gatescope.synth.noise import build_channel
 from gatescope.conventions import builtin_states
-from gatescope.figures import process_fidelity
+from gatescope.merit import process_fidelity
 from gatescope.model import MeasurementModel
-from gatescope.plan import plate_angles
+from gatescope.synth.plan import plate_angles
 
 LABELS = ("H", "V", "D", "A", "R", "L")
+
+
 # per label: (half-wave offset, quarter-wave offset, half retardance, quarter retardance), degrees
 OFFSETS = {"H": (0.6, -0.4, 182.0, 91.5), "V": (-0.5, 0.3, 181.0, 88.8),
            "D": (0.8, 0.5, 178.5, 92.0), "A": (-0.7, -0.6, 183.0, 90.7),

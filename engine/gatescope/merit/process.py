@@ -1,6 +1,7 @@
-"""Figures of merit of a process estimate (CONTRACT §2 and §5).
+"""Figures of merit of a process estimate against its target (and without one).
 
-For a Choi matrix J on d dimensions and a unitary target U:
+For a Choi matrix J on d dimensions (README, "Conventions") and a unitary
+target U:
 
 * ``process_fidelity`` F_pro = <<U|J|U>>/d² (squared, Choi-state
   convention; 1 for a perfect gate, equal to Tr(χ χ_U));
@@ -12,56 +13,19 @@ For a Choi matrix J on d dimensions and a unitary target U:
   Tr J²/d² for a trace-preserving J (1 for a unitary);
 * ``trace`` Tr J/d (1 for trace preserving);
 * ``min_eigenvalue`` the smallest eigenvalue of J itself (negative for an
-  unphysical linear-inversion estimate).
-
-and, from issue 5,
-
-* ``unitarity`` u = Tr(R_u† R_u)/(d² − 1), R_u the unital block (rows and
-  columns of the non-identity Paulis) of the Pauli transfer matrix
-  (Wallman, Granade, Harper & Flammia, New J. Phys. 17, 113020 (2015)); 1
-  for a unitary, (1 − p)² for a depolarising channel. For a trace-decreasing
-  estimate the same block formula is applied to the unnormalised map;
-* ``nearest_unitary_fidelity`` max_U F_pro(J, U) over all unitaries, the
-  process fidelity of the estimate to the unitary closest to it; that
-  unitary is returned in the details as ``nearest_unitary``
-  (:func:`nearest_unitary`);
-* ``process_fidelity_local_phases`` the process fidelity to the target after
-  the best single-qubit Z rotations before and after it
-  (:func:`local_phase_fidelity`); the phases are in the details;
-* ``truth_table_fidelity`` for a target that maps computational basis states
-  to basis states (up to phases): the mean over basis inputs of the
-  probability of the target's output basis state
-  (:func:`truth_table_fidelity`); absent for other targets;
-* ``concurrence`` for a two-qubit target: the concurrence (Wootters, Phys.
-  Rev. Lett. 80, 2245 (1998)) of the estimate's output for the product
-  six-state input the target entangles most (:func:`entangling_input`);
-  absent when no such input is entangled by the target;
-* ``diamond_distance`` ‖Φ_J − Φ_U‖◇ (between 0 and 2) by the semidefinite
-  program of Watrous (:func:`diamond_distance`), only on request
-  (``diamond=True``: it needs cvxpy, and loading it alone takes about a
-  second).
-
-Target figures are absent when the experiment names no target.
+  unphysical linear-inversion estimate);
+* ``unitarity`` (:func:`unitarity`), ``nearest_unitary_fidelity``
+  (:func:`nearest_unitary`), ``process_fidelity_local_phases``
+  (:func:`local_phase_fidelity`) and ``truth_table_fidelity``
+  (:func:`truth_table_fidelity`), each defined in its docstring.
 """
 
 from __future__ import annotations
 
-import itertools
-import warnings
-from functools import lru_cache
-
 import numpy as np
 
-from .channels import (apply_channel, choi_from_unitary, choi_to_ptm, dim_of_choi,
-                       operator_vector, partial_trace_output)
-from .conventions import builtin_states, kron_all, n_qubits_of
-from .errors import GatescopeWarning
-
-FIGURE_NAMES = ("process_fidelity", "average_gate_fidelity", "purity", "trace", "min_eigenvalue",
-                "unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
-                "truth_table_fidelity", "concurrence", "diamond_distance")
-TARGET_FIGURES = ("process_fidelity", "average_gate_fidelity", "process_fidelity_local_phases",
-                  "truth_table_fidelity", "concurrence", "diamond_distance")
+from ..channels import choi_to_ptm, dim_of_choi, operator_vector
+from ..conventions import n_qubits_of
 
 
 def process_fidelity(choi: np.ndarray, unitary: np.ndarray) -> float:
@@ -246,7 +210,7 @@ def local_phase_fidelity(choi: np.ndarray, target: np.ndarray, *, starts: int = 
 
     ``a`` are the Z rotations on each qubit before the target ("before",
     applied to the input), ``b`` those after it, in radians, each wrapped
-    into [−π, π); Rz(φ) = diag(e^{−iφ/2}, e^{iφ/2}) (CONTRACT §2 rz).
+    into [−π, π); Rz(φ) = diag(e^{−iφ/2}, e^{iφ/2}) (`conventions.rz`).
 
     With |V>> = e^{iθ}∘|U>> and θ = M·(a, b) linear in the phases, F =
     Σ_pq A_pq/d² with A_pq = conj(v_p) J_pq v_q; its gradient in θ is
@@ -330,208 +294,3 @@ def truth_table_fidelity(choi: np.ndarray, target: np.ndarray) -> float | None:
     J4 = choi.reshape(d, d, d, d)                     # J4[i, a, i, a] = <a|Φ(|i><i|)|a>
     diag = np.real(np.einsum("iaia->ia", J4))
     return float(np.mean(diag[np.arange(d), perm] / diag.sum(axis=1)))
-
-
-_Y2 = np.array([[0, 0, 0, -1], [0, 0, 1, 0], [0, 1, 0, 0], [-1, 0, 0, 0]], dtype=complex)   # Y ⊗ Y
-
-
-def concurrence(rho: np.ndarray) -> float:
-    """Wootters' concurrence of a two-qubit density matrix (normalised here).
-
-    C = max(0, λ1 − λ2 − λ3 − λ4), λ the decreasing square roots of the
-    eigenvalues of √ρ ρ̃ √ρ, ρ̃ = (Y⊗Y) ρ* (Y⊗Y) (Wootters, Phys. Rev. Lett.
-    80, 2245 (1998)).
-    """
-    rho = 0.5 * (rho + rho.conj().T)
-    rho = rho / np.trace(rho).real
-    w, v = np.linalg.eigh(rho)
-    root = (v * np.sqrt(np.clip(w, 0.0, None))) @ v.conj().T
-    tilde = _Y2 @ rho.conj() @ _Y2
-    m = root @ tilde @ root
-    lam = np.sqrt(np.clip(np.linalg.eigvalsh(0.5 * (m + m.conj().T)), 0.0, None))[::-1]
-    return float(max(0.0, lam[0] - lam[1] - lam[2] - lam[3]))
-
-
-#: Single-qubit inputs searched by `entangling_input`; the circular ones by their
-#: handedness-free names, so the stored label means the same state in every experiment.
-ENTANGLING_SEARCH = ("H", "V", "D", "A", "+i", "-i")
-
-
-@lru_cache(maxsize=32)
-def _entangling_input_cached(key: bytes, d: int):
-    target = np.frombuffer(key, dtype=complex).reshape(d, d)
-    states = builtin_states()
-    best = None
-    for parts in itertools.product(ENTANGLING_SEARCH, repeat=2):
-        psi = kron_all([states[p][:, None] for p in parts])[:, 0]
-        out = target @ psi
-        c = 2.0 * abs(out[0] * out[3] - out[1] * out[2])   # pure two-qubit state (Wootters 1998)
-        if best is None or c > best[2] + 1e-9:
-            best = (" ".join(parts), psi, c)
-    return best
-
-
-def entangling_input(target: np.ndarray):
-    """The product six-state input whose ideal output U|ψ> has the largest concurrence.
-
-    Searches the 36 inputs ``A ⊗ B``, A and B in `ENTANGLING_SEARCH` (qubit 1
-    first, in that order; ties go to the first). Returns (label, ket,
-    ideal concurrence), or None for a target that is not two-qubit or
-    entangles none of them (ideal concurrence below 1e−6).
-    """
-    target = np.ascontiguousarray(target, dtype=complex)
-    if target.shape != (4, 4):
-        return None
-    best = _entangling_input_cached(target.tobytes(), 4)
-    return best if best[2] > 1e-6 else None
-
-
-# --------------------------------------------------------------------------
-# Diamond distance (semidefinite program, needs cvxpy)
-# --------------------------------------------------------------------------
-
-def diamond_distance(choi: np.ndarray, other: np.ndarray, *, eps: float = 1e-9) -> dict:
-    """‖Φ − Ψ‖◇ for the Choi matrix J of Φ and a unitary (or a Choi matrix) Ψ.
-
-    The semidefinite program of Watrous (J. Watrous, "Simpler semidefinite
-    programs for completely bounded norms", Chicago J. Theor. Comput. Sci.
-    2013, article 8; arXiv:1207.5726, 2012 — from memory), solved with
-    cvxpy. With Δ = J − J_Ψ in our ordering (input factor first):
-
-        ‖Φ − Ψ‖◇ = max 2 Re Tr(Δ W) − Re Tr(σ Tr_out Δ)
-                   over 0 ⪯ W ⪯ σ ⊗ I, σ ⪰ 0, Tr σ = 1.
-
-    It follows from ‖(Φ − Ψ) ⊗ id‖ being attained on a pure input (the maps
-    preserve Hermiticity), ‖Y‖₁ = max_{0⪯P⪯I} 2 Tr(PY) − Tr Y, and
-    W = (√σ ⊗ I) P (√σ ⊗ I). When both maps preserve the trace, Tr_out Δ = 0
-    and it is Watrous' program for the difference of two channels; for a
-    trace-decreasing estimate the second term stays.
-
-    Solver: SCS (a first-order conic solver; ``eps`` its absolute and
-    relative tolerance) when both maps preserve the trace, and from three
-    qubits on in any case (an interior-point solver runs out of memory
-    there); Clarabel for a trace-decreasing estimate on one or two qubits,
-    where SCS needs thousands of iterations.
-
-    Returns
-    -------
-    dict with ``value`` (between 0 and 2 for channels), ``status`` (the
-    solver's), ``solver`` and ``program`` ("trace-preserving" or
-    "trace-decreasing").
-
-    Raises
-    ------
-    ImportError
-        When cvxpy is not installed (the ``sdp`` extra).
-    """
-    import cvxpy as cp
-
-    d = dim_of_choi(choi)
-    other = np.asarray(other, dtype=complex)
-    other_choi = choi_from_unitary(other) if other.shape == (d, d) else other
-    delta = np.asarray(choi, dtype=complex) - other_choi
-    delta = 0.5 * (delta + delta.conj().T)
-    eye = np.eye(d)
-    tp = all(np.allclose(partial_trace_output(c), eye, atol=1e-8) for c in (choi, other_choi))
-    w = cp.Variable((d * d, d * d), hermitian=True)
-    sigma = cp.Variable((d, d), hermitian=True)
-    objective = 2 * cp.real(cp.trace(delta @ w))
-    if not tp:
-        loss = partial_trace_output(delta)
-        objective = objective - cp.real(cp.trace(0.5 * (loss + loss.conj().T) @ sigma))
-    constraints = [w >> 0, sigma >> 0, cp.real(cp.trace(sigma)) == 1, cp.kron(sigma, eye) - w >> 0]
-    problem = cp.Problem(cp.Maximize(objective), constraints)
-    if tp or d > 4:
-        solver = "SCS"
-        problem.solve(solver="SCS", eps_abs=eps, eps_rel=eps, max_iters=100_000)
-    else:
-        solver = "CLARABEL"
-        problem.solve(solver="CLARABEL")
-    return {"value": float(problem.value) if problem.value is not None else float("nan"),
-            "status": str(problem.status), "solver": solver,
-            "program": "trace-preserving" if tp else "trace-decreasing"}
-
-
-def _cvxpy_available() -> bool:
-    try:
-        import cvxpy  # noqa: F401
-    except ImportError:
-        return False
-    return True
-
-
-# --------------------------------------------------------------------------
-# All figures
-# --------------------------------------------------------------------------
-
-def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: bool = False,
-                    details: dict | None = None) -> dict[str, float]:
-    """All figures of merit, in `FIGURE_NAMES` order (target ones only with a target).
-
-    Parameters
-    ----------
-    choi : (d², d²) array
-    target : (d, d) unitary or None
-    diamond : bool
-        Also compute ``diamond_distance`` (needs cvxpy; without it a
-        `GatescopeWarning` says it was skipped).
-    details : dict, optional
-        Filled with what is not a single number: ``nearest_unitary``
-        (d × d complex), ``local_phases_before`` and ``local_phases_after``
-        (radians, one per qubit), ``concurrence_input`` (label of the
-        product input, e.g. "D H") and ``concurrence_ideal`` (its ideal
-        output's concurrence), ``diamond_status``, ``diamond_solver``,
-        ``diamond_program``.
-    """
-    out = {}
-    extra = {} if details is None else details
-    if target is not None:
-        out["process_fidelity"] = process_fidelity(choi, target)
-        out["average_gate_fidelity"] = average_gate_fidelity(choi, target)
-    out["purity"] = purity(choi)
-    out["trace"] = trace(choi)
-    out["min_eigenvalue"] = min_eigenvalue(choi)
-    out["unitarity"] = unitarity(choi)
-    u_near, f_near = nearest_unitary(choi, target)
-    out["nearest_unitary_fidelity"] = f_near
-    extra["nearest_unitary"] = u_near
-    if target is None:
-        return out
-    f_loc, before, after = local_phase_fidelity(choi, target)
-    out["process_fidelity_local_phases"] = f_loc
-    extra["local_phases_before"] = before
-    extra["local_phases_after"] = after
-    tt = truth_table_fidelity(choi, target)
-    if tt is not None:
-        out["truth_table_fidelity"] = tt
-    ent = entangling_input(target)
-    if ent is not None:
-        label, psi, ideal = ent
-        out["concurrence"] = concurrence(apply_channel(choi, np.outer(psi, psi.conj())))
-        extra["concurrence_input"] = label
-        extra["concurrence_ideal"] = float(ideal)
-    if diamond:
-        if not _cvxpy_available():
-            warnings.warn("diamond distance skipped: it needs cvxpy, the 'sdp' extra "
-                          "(pip install 'gatescope[sdp]')", GatescopeWarning, stacklevel=2)
-        else:
-            dn = diamond_distance(choi, target)
-            if dn["status"] not in ("optimal", "optimal_inaccurate"):
-                warnings.warn(f"diamond distance skipped: the solver ended with status "
-                              f"{dn['status']!r}", GatescopeWarning, stacklevel=2)
-            else:
-                if dn["status"] != "optimal":
-                    warnings.warn(f"diamond distance: the solver reports {dn['status']!r}",
-                                  GatescopeWarning, stacklevel=2)
-                out["diamond_distance"] = dn["value"]
-                extra["diamond_status"] = dn["status"]
-                extra["diamond_solver"] = dn["solver"]
-                extra["diamond_program"] = dn["program"]
-    return out
-
-
-__all__ = ["FIGURE_NAMES", "TARGET_FIGURES", "compute_figures", "process_fidelity",
-           "average_gate_fidelity", "purity", "trace", "min_eigenvalue", "unitarity",
-           "nearest_unitary", "local_phase_fidelity", "z_rotations", "truth_table_fidelity",
-           "basis_permutation", "concurrence", "entangling_input", "diamond_distance",
-           "choi_from_unitary"]

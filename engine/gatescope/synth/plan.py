@@ -1,8 +1,8 @@
-"""The run sheet of an experiment (the `plan` command, CONTRACT §4).
+"""The run sheet of an experiment (the `plan` command).
 
 One row per (preparation, analyser projector) pair of a complete product
 set, with the wave-plate angles that set it on every qubit. The optics are
-those of CONTRACT §2: the preparation of each qubit is the source's H light
+those of docs/conventions.md: the preparation of each qubit is the source's H light
 through a half-wave plate, then a quarter-wave plate; the analysis is a
 quarter-wave plate, then a half-wave plate, then a polariser passing H. A
 plate with fast axis at θ from H is W(θ, δ) = Rot(−θ)·diag(e^{−iδ/2},
@@ -45,9 +45,9 @@ from pathlib import Path
 import numpy as np
 from scipy.optimize import minimize
 
-from .conventions import RIGHT_CIRCULAR_CHOICES, builtin_states, half_wave, quarter_wave
-from .errors import InputError
-from .fileio import atomic_write_text
+from ..conventions import RIGHT_CIRCULAR_CHOICES, builtin_states, half_wave, quarter_wave
+from ..errors import InputError
+from ..fileio import atomic_write_text
 
 ROLES = ("prep", "meas")
 GRID_STEP_DEG = 22.5
@@ -165,7 +165,7 @@ def _check_set(text, option: str) -> tuple[str, ...]:
 
 def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
               right_circular: str = "H-iV", seconds: float | None = None) -> RunSheet:
-    """The run sheet of a complete product experiment (CONTRACT §4).
+    """The run sheet of a complete product experiment (docs/file-formats.md, "Run sheet").
 
     Parameters
     ----------
@@ -174,7 +174,7 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
         ``pauli6`` (H V D A R L per qubit), ``pauli4`` (H V D R) or a comma
         list of built-in single-qubit labels, applied to every qubit.
     right_circular : {"H-iV", "H+iV"}
-        Which state ``R`` means (CONTRACT §3).
+        Which state ``R`` means (docs/conventions.md).
     seconds : float, optional
         Integration time of every row; adds the column ``seconds``.
 

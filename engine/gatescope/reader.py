@@ -3,7 +3,7 @@
 This is the only module that parses user text. Everything is checked here,
 once; every problem is an `InputError` naming the file, the line (CSV) or the
 key (TOML) and what is wrong. Past this point the numerical code trusts its
-arrays. The layout of both files is CONTRACT §3.
+arrays. The layout of both files is in docs/file-formats.md ("Input").
 """
 
 from __future__ import annotations
@@ -46,7 +46,7 @@ class Experiment:
 
     Rows are the CSV's data rows in file order. Row k was taken with the
     preparation ``prep_states[prep_index[k]]`` and the analyser effect
-    ``meas_effects[meas_index[k]]``; its model is CONTRACT §3:
+    ``meas_effects[meas_index[k]]``; its model is (docs/file-formats.md, "Input"):
     ``E[counts_k] = λ_g · seconds_k · efficiency_k · Tr[(ρ^T ⊗ E) J] +
     background_k`` with g = ``group_index[k]``.
     """
@@ -313,7 +313,7 @@ def read_experiment(path) -> Experiment:
     Parameters
     ----------
     path : str or Path
-        The experiment file (CONTRACT §3). Paths inside it are relative to it.
+        The experiment file (docs/file-formats.md, "Input"). Paths inside it are relative to it.
 
     Returns
     -------

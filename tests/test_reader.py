@@ -1,31 +1,18 @@
-"""The experiment reader (CONTRACT §3) and how the command line reports bad input."""
+"""The experiment reader (gatescope.reader; docs/file-formats.md, "Input") and how the
+command line reports bad input.
+"""
 
 from __future__ import annotations
 
-import re
 import subprocess
 import sys
-import warnings
 from pathlib import Path
 
+import gatescope as gs
 import numpy as np
 import pytest
-
-import gatescope as gs
 from gatescope import cli
-from gatescope.estimators import fit_mle
 from gatescope.model import MeasurementModel
-
-SQ = 1 / np.sqrt(2)
-KET = {
-    "H": np.array([1, 0], dtype=complex), "V": np.array([0, 1], dtype=complex),
-    "D": np.array([SQ, SQ], dtype=complex), "A": np.array([SQ, -SQ], dtype=complex),
-    "H-iV": np.array([SQ, -1j * SQ]), "H+iV": np.array([SQ, 1j * SQ]),
-}
-
-
-def proj(v):
-    return np.outer(v, np.conj(v))
 
 
 def write_case(folder: Path, toml: str, csv: str | None, csv_name: str = "counts.csv") -> Path:
@@ -46,7 +33,6 @@ def toml_2q(extra: str = "") -> str:
 
 
 GOOD_1Q = "prep,meas,counts\nH,H,90\nH,V,10\nD,D,80\n"
-GOOD_2Q = "prep,meas,counts\nHH,HH,90\nHD,HV,10\n"
 
 
 def case(id, toml, csv, *, file, line=None, key=None, words=()):
@@ -136,6 +122,61 @@ def check_message(err: gs.InputError, folder: Path, spec: dict) -> None:
         assert word in text, (word, text)
 
 
+def read(tmp_path, toml, csv):
+    return gs.read_experiment(write_case(tmp_path, toml, csv))
+
+
+SQ = 1 / np.sqrt(2)
+
+
+KET = {
+    "H": np.array([1, 0], dtype=complex), "V": np.array([0, 1], dtype=complex),
+    "D": np.array([SQ, SQ], dtype=complex), "A": np.array([SQ, -SQ], dtype=complex),
+    "H-iV": np.array([SQ, -1j * SQ]), "H+iV": np.array([SQ, 1j * SQ]),
+}
+
+
+def proj(v):
+    return np.outer(v, np.conj(v))
+
+
+def folder_listing(folder: Path) -> set[str]:
+    return {p.name for p in folder.rglob("*")}
+
+
+def run_fit_command(folder: Path, path: Path):
+    out = folder / "result.h5"
+    return subprocess.Popen([sys.executable, "-m", "gatescope", "fit", str(path), "-o", str(out), "--quiet"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=folder), out
+
+
+# One bad input of each family through a real process (about 1 s each); all of them
+# in the slow set below.
+SUBPROCESS_IDS = ("unknown-toml-key", "missing-qubits", "unknown-csv-column", "fractional-counts",
+                  "label-wrong-qubit-count", "target-not-unitary", "bloch-too-long")
+
+
+def _run_all(tmp_path, specs):
+    runs = []
+    for k, spec in enumerate(specs):
+        folder = tmp_path / f"case{k}"
+        path = write_case(folder, spec["toml"], spec["csv"])
+        before = folder_listing(folder)
+        proc, out = run_fit_command(folder, path)
+        runs.append((spec, folder, before, proc, out))
+    for spec, folder, before, proc, out in runs:
+        _, err = proc.communicate(timeout=120)
+        assert proc.returncode == 2, (spec, err)
+        assert expected_file(folder, spec["file"]).name in err, err
+        if spec["line"] is not None:
+            assert f"line {spec['line']}" in err
+        if spec["key"] is not None:
+            assert spec["key"] in err
+        assert "Traceback" not in err
+        assert not out.exists()
+        assert folder_listing(folder) == before
+
+
 @pytest.mark.parametrize("spec", BAD_INPUTS)
 def test_bad_input_is_an_input_error_naming_file_and_place(tmp_path, spec):
     path = write_case(tmp_path, spec["toml"], spec["csv"])
@@ -171,14 +212,6 @@ def test_unknown_keys_everywhere_name_their_line(tmp_path, toml, line, key):
     assert info.value.line == line, str(info.value)
 
 
-# --------------------------------------------------------------------------
-# What the reader accepts
-# --------------------------------------------------------------------------
-
-def read(tmp_path, toml, csv):
-    return gs.read_experiment(write_case(tmp_path, toml, csv))
-
-
 def test_twelve_point_zero_is_twelve(tmp_path):
     exp = read(tmp_path, toml_1q(), "prep,meas,counts\nH,H,12.0\nH,V,3\n")
     assert exp.counts.dtype == np.int64
@@ -200,20 +233,6 @@ def test_repeated_rows_are_separate_rows(tmp_path):
     assert exp.counts.tolist() == [5, 1, 7]
     assert exp.prep_index[0] == exp.prep_index[2] and exp.meas_index[0] == exp.meas_index[2]
     assert MeasurementModel(exp).pairs_present()[exp.prep_index[0], exp.meas_index[0]] == 2
-
-
-def test_repeated_rows_count_as_observations_in_the_fit(tmp_path, make_experiment):
-    # Every row of a complete one-qubit data set written twice: each row's
-    # log-likelihood term counts twice, the maximum stays where it was.
-    exp, _ = make_experiment("H+depolarizing:0.1", shots=400, seed=2)
-    lines = ["prep,meas,counts"] + [f"{p},{m},{n}" for p, m, n in zip(exp.prep, exp.meas, exp.counts)]
-    doubled = lines + lines[1:]
-    exp2 = read(tmp_path / "twice", toml_1q(), "\n".join(doubled) + "\n")
-    assert exp2.n_rows == 2 * exp.n_rows
-    once = fit_mle(MeasurementModel(exp))
-    twice = fit_mle(MeasurementModel(exp2))
-    assert twice.log_likelihood == pytest.approx(2 * once.log_likelihood, rel=1e-8)
-    np.testing.assert_allclose(twice.choi, once.choi, atol=1e-4)
 
 
 @pytest.mark.parametrize("label", ["HD", "H D", '"H,D"', "  H   D ", '"H, D"', '" H,D "'])
@@ -281,64 +300,6 @@ def test_custom_states_are_usable_as_labels(tmp_path):
     np.testing.assert_allclose(exp.meas_effects[0], np.kron(proj(KET["D"]), proj(KET["H"])), atol=1e-15)
 
 
-# --------------------------------------------------------------------------
-# Too few settings: a warning naming the undetermined part, and the fit runs
-# --------------------------------------------------------------------------
-
-def _labels_named(message: str, n_qubits: int) -> set[str]:
-    return set(re.findall(rf"\b[IXYZ]{{{n_qubits}}}\b", message))
-
-
-def test_too_few_preparations_warn_and_the_fit_still_runs(make_experiment):
-    exp, _ = make_experiment("H+depolarizing:0.05", shots=500, seed=4, prep=("H", "V"))
-    assert exp.prep_states.shape[0] == 2
-    with pytest.warns(gs.GatescopeWarning) as record:
-        res = gs.fit(exp, "pls")
-    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
-    named = set().union(*(_labels_named(m, 1) for m in messages))
-    # H and V span I and Z only: the input components X and Y are undetermined
-    assert named == {"X", "Y"}, messages
-    assert any("undetermined" in m for m in messages)
-    assert res.choi.shape == (4, 4) and np.isfinite(res.figures["process_fidelity"].value)
-
-
-def test_too_few_preparations_two_qubits_name_the_missing_inputs(make_experiment):
-    exp, _ = make_experiment("CZ", shots=200, seed=4, prep=("H", "V"))
-    with warnings.catch_warnings(record=True) as record:
-        warnings.simplefilter("always")
-        res = gs.fit(exp, "pls")
-    messages = [str(w.message) for w in record if issubclass(w.category, gs.GatescopeWarning)]
-    assert messages
-    named = set().union(*(_labels_named(m, 2) for m in messages))
-    assert named, messages
-    # every named input component contains X or Y; the diagonal ones (I, Z only) are determined
-    assert all(("X" in lab or "Y" in lab) for lab in named), named
-    assert not named & {"II", "IZ", "ZI", "ZZ"}
-    assert np.isfinite(res.log_likelihood)
-
-
-def test_too_few_analysers_warn_about_outputs(make_experiment):
-    exp, _ = make_experiment("H", shots=500, seed=4, meas=("H", "V"))
-    with pytest.warns(gs.GatescopeWarning, match="output"):
-        gs.fit(exp, "pls")
-
-
-def test_complete_data_do_not_warn(make_experiment):
-    exp, _ = make_experiment("H", shots=500, seed=4)
-    with warnings.catch_warnings():
-        warnings.simplefilter("error", gs.GatescopeWarning)
-        gs.fit(exp, "pls")
-
-
-# --------------------------------------------------------------------------
-# The command line on bad input: exit status 2, a message naming the file,
-# no result file
-# --------------------------------------------------------------------------
-
-def folder_listing(folder: Path) -> set[str]:
-    return {p.name for p in folder.rglob("*")}
-
-
 @pytest.mark.parametrize("spec", BAD_INPUTS)
 def test_fit_command_in_process_on_bad_input(tmp_path, capsys, spec):
     # cli.main is what `python -m gatescope` runs; this sweeps every bad input fast.
@@ -351,39 +312,6 @@ def test_fit_command_in_process_on_bad_input(tmp_path, capsys, spec):
     assert expected_file(tmp_path, spec["file"]).name in err
     assert not out.exists()
     assert folder_listing(tmp_path) == before
-
-
-def run_fit_command(folder: Path, path: Path):
-    out = folder / "result.h5"
-    return subprocess.Popen([sys.executable, "-m", "gatescope", "fit", str(path), "-o", str(out), "--quiet"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=folder), out
-
-
-# One bad input of each family through a real process (about 1 s each); all of them
-# in the slow set below.
-SUBPROCESS_IDS = ("unknown-toml-key", "missing-qubits", "unknown-csv-column", "fractional-counts",
-                  "label-wrong-qubit-count", "target-not-unitary", "bloch-too-long")
-
-
-def _run_all(tmp_path, specs):
-    runs = []
-    for k, spec in enumerate(specs):
-        folder = tmp_path / f"case{k}"
-        path = write_case(folder, spec["toml"], spec["csv"])
-        before = folder_listing(folder)
-        proc, out = run_fit_command(folder, path)
-        runs.append((spec, folder, before, proc, out))
-    for spec, folder, before, proc, out in runs:
-        _, err = proc.communicate(timeout=120)
-        assert proc.returncode == 2, (spec, err)
-        assert expected_file(folder, spec["file"]).name in err, err
-        if spec["line"] is not None:
-            assert f"line {spec['line']}" in err
-        if spec["key"] is not None:
-            assert spec["key"] in err
-        assert "Traceback" not in err
-        assert not out.exists()
-        assert folder_listing(folder) == before
 
 
 def test_fit_command_subprocess_on_bad_input(tmp_path):

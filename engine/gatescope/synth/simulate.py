@@ -4,8 +4,12 @@ A simulated experiment is a complete product set: every preparation label
 (the per-qubit SET to the power n) with every analyser projector. The
 expected counts of a row are ``shots · p_k``, so that ``shots`` is the
 expected number of counts per preparation and complete analyser basis,
-summed over that basis' outcomes (CONTRACT §4); counts are Poisson draws
-from ``numpy.random.default_rng(seed)``.
+summed over that basis' outcomes (README, "Commands"); counts are Poisson
+draws from ``numpy.random.default_rng(seed)``.
+
+The true channel is written beside the data as ``truth.h5``, a result file
+whose origin is "truth" (method ``truth``): the figures of merit of the
+true channel, no fit report and no goodness of fit.
 """
 
 from __future__ import annotations
@@ -13,14 +17,22 @@ from __future__ import annotations
 import csv
 import io
 import itertools
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .channels import build_channel, parse_channel_spec, random_channel
-from .conventions import LABEL_SETS, builtin_states, density, kron_all, named_gate
-from .fileio import atomic_write_text
+from ..conventions import LABEL_SETS, builtin_states, density, kron_all, named_gate
+from ..errors import InputError
+from ..fileio import atomic_write_text
+from ..likelihood import PoissonLikelihood
+from ..merit import compute_figures
+from ..model import MeasurementModel
+from ..provenance import provenance
+from ..reader import read_experiment
+from ..result import build_result
+from .noise import build_channel, parse_channel_spec, random_channel
 
 
 @dataclass(frozen=True)
@@ -34,7 +46,7 @@ class Channel:
 
 
 def channel_from_spec(spec: str, n_qubits: int = 2) -> Channel:
-    """Channel of a CONTRACT §4 SPEC string, e.g. ``CZ+depolarizing:0.02``.
+    """Channel of a SPEC string (`gatescope.synth.noise`), e.g. ``CZ+depolarizing:0.02``.
 
     ``n_qubits`` is used only by ``random:RANK[:SEED]``, which names no gate.
     """
@@ -128,25 +140,18 @@ DEMO_RECIPE = {
 
 def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str = "pauli6",
                    meas: str = "pauli6", seed: int | None = None, n_qubits: int = 2,
-                   title: str | None = None, command_line: str | None = None) -> Path:
+                   title: str | None = None, command_line: str | None = None,
+                   spec_option: str = "--channel") -> Path:
     """Write experiment.toml, counts.csv and truth.h5 for a known channel into ``outdir``.
 
-    Everything is validated before the first file is written. Returns the
-    path of experiment.toml.
+    Everything is validated before the first file is written; ``spec_option``
+    is the option a bad SPEC is blamed on. Returns the path of experiment.toml.
     """
-    import time
-
-    from .api import build_result, provenance
-    from .errors import InputError
-    from .estimators import Fit
-    from .experiment import read_experiment
-    from .likelihood import PoissonLikelihood
-    from .model import MeasurementModel
-
+    started = time.time()
     try:
         channel = channel_from_spec(spec, n_qubits)
     except ValueError as exc:
-        raise InputError(str(exc), key="--channel") from None
+        raise InputError(str(exc), key=spec_option) from None
     try:
         prep_set = label_set(prep)
     except ValueError as exc:
@@ -159,19 +164,32 @@ def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str 
         raise InputError(f"must be a positive number, got {shots}", key="--shots")
     if seed is None:
         seed = int(np.random.SeedSequence().entropy % (2**31))
-    started = time.time()
     rows = simulate_counts(channel, shots=shots, prep_set=prep_set, meas_set=meas_set, seed=seed)
     path = write_experiment(outdir, channel, rows, title=title or f"simulated {spec}")
     exp = read_experiment(path)
+    truth_result(exp, channel, shots=shots, seed=seed, started=started,
+                 command_line=command_line).save(Path(outdir) / "truth.h5")
+    return path
+
+
+def truth_result(exp, channel: Channel, *, shots: float, seed: int, started: float,
+                 command_line: str | None = None):
+    """The `Result` of the true channel of a simulated experiment (origin "truth").
+
+    Its figures are those of the true channel; its log-likelihood is that of
+    the true channel at the simulated counts, with the intensities profiled
+    as a fit would (for comparison with a fit's); it has no diagnostics.
+    """
     model = MeasurementModel(exp)
-    lik = PoissonLikelihood(model)
-    ev = lik.evaluate(channel.choi)
-    ident = model.identifiability()
-    truth = Fit("truth", channel.choi, np.full(exp.n_groups, float(shots)), ev.log_likelihood,
-                True, 0, f"true channel of the simulation ({spec}, shots {shots:g}, seed {seed})", 0.0)
+    log_likelihood = PoissonLikelihood(model).evaluate(channel.choi).log_likelihood
+    details = {}
+    figures = compute_figures(channel.choi, exp.target, details=details)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.time() - started)
-    prov["channel"] = spec
-    result = build_result(exp, model, truth, n_determined=ident.rank, prov=prov)
-    result.save(Path(outdir) / "truth.h5")
-    return path
+    prov["channel"] = channel.spec
+    return build_result(
+        exp, channel.choi, figures, details, method="truth", converged=True, iterations=0,
+        log_likelihood=log_likelihood,
+        stop_reason=f"true channel of the simulation ({channel.spec}, shots {shots:g}, seed {seed})",
+        seconds=0.0, intensities=np.full(exp.n_groups, float(shots)), diagnostics=None,
+        provenance=prov, origin="truth")

@@ -1,185 +1,41 @@
-"""The `Result` of a fit and its HDF5 file (CONTRACT §5).
+"""The result file: the HDF5 layout of a `gatescope.result.Result` (docs/file-formats.md).
 
 The file is readable from any HDF5 tool: no pickled objects, complex arrays
-as native complex, strings as UTF-8. `Result.save` writes to a temporary
-file beside the target and renames it, so a reader never sees half a file
-and a failure leaves nothing behind. `load_result` reads every field back
-exactly.
+as native complex, strings as UTF-8. `write` goes to a temporary file
+beside the target and renames it, so a reader never sees half a file and a
+failure leaves nothing behind. `read` gives back every field exactly, as
+the keyword arguments of `Result`.
+
+This module knows the layout, not the `Result` class: it writes any object
+with the Result's attributes, so that `Result.save` can call it without an
+import cycle.
 """
 
 from __future__ import annotations
 
-import datetime as _dt
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import h5py
 import numpy as np
 
+from .bootstrap import Bootstrap
+from .diagnostics import Diagnostics
 from .errors import InputError
-from .figures import FIGURE_NAMES
 from .fileio import atomic_path
+from .intervals import Figure
+from .merit import FIGURE_NAMES
 
 FORMAT = "gatescope.result"
 FORMAT_VERSION = 1
-#: Both goodness-of-fit p-values below this: the model does not describe the data.
-POOR_FIT_P = 1e-3
 
 
-@dataclass
-class Figure:
-    """One figure of merit: its value and, when error bars were computed, an interval.
-
-    ``ci`` is (low, high) at confidence ``level`` (a fraction, e.g. 0.95).
-    """
-
-    value: float
-    ci: tuple[float, float] | None = None
-    level: float | None = None
-
-    def __float__(self) -> float:
-        return float(self.value)
-
-
-@dataclass
-class Diagnostics:
-    """Goodness of fit of the estimate to the rows.
-
-    Pearson residuals are (n − ν)/√ν; deviance residuals
-    sign(n − ν)·√(2[n log(n/ν) − (n − ν)]). ``dof`` is the number of rows
-    minus the process parameters the data determine minus the number of
-    fitted intensities. ``chi2_p_value`` and ``deviance_p_value`` are
-    P(χ²_dof ≥ statistic) (NaN when dof ≤ 0); ``outlier_rows`` the indices
-    (into the CSV's data rows, first row 0) of rows with |Pearson residual|
-    > 4 or with counts where the model expects none.
-    """
-
-    expected_counts: np.ndarray
-    pearson_residuals: np.ndarray
-    deviance_residuals: np.ndarray
-    chi2: float
-    deviance: float
-    dof: int
-    chi2_p_value: float = float("nan")
-    deviance_p_value: float = float("nan")
-    outlier_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
-
-    @property
-    def p_value(self) -> float:
-        """The larger of the two p-values (NaN when neither is defined)."""
-        p = [x for x in (self.chi2_p_value, self.deviance_p_value) if not np.isnan(x)]
-        return max(p) if p else float("nan")
-
-    @property
-    def poor_fit(self) -> bool:
-        """Both the Pearson and the deviance test reject the model at `POOR_FIT_P`.
-
-        Requiring both keeps false alarms rare: for a well-described gate
-        close to a unitary the estimate sits on the boundary of the
-        physical set, which pushes both statistics somewhat above their χ²
-        reference (the p-values are then smaller than nominal).
-        """
-        return bool(self.p_value < POOR_FIT_P)
-
-
-@dataclass
-class Bootstrap:
-    """Resampled figures and the spread of the estimate (`gatescope.bootstrap`).
-
-    Attributes
-    ----------
-    figures : (B, K) float array, one row per resample, one column per name
-        (NaN in a row whose refit raised a numerical error)
-    names : the K figure names
-    kind : "parametric" or "nonparametric"
-    seed : the seed of ``numpy.random.SeedSequence`` the resamples were spawned from
-    samples : B
-    failures : refits that did not converge (including those that raised)
-    interval : construction of the ``ci`` of the figures (`gatescope.bootstrap.INTERVALS`)
-    converged : (B,) bool, per resample
-    errors : refits that raised a numerical error (left out of intervals and stds)
-    choi_std, chi_std : complex arrays, element-wise standard deviations over
-        the resamples: std of the real parts + 1j × std of the imaginary parts
-    ptm_std : float array, element-wise standard deviation of the PTM
-    method : estimator of the refits
-    workers : processes used (the figures do not depend on it)
-    seconds : wall time of the bootstrap
-    """
-
-    figures: np.ndarray
-    names: tuple[str, ...]
-    kind: str
-    seed: int
-    samples: int
-    failures: int = 0
-    interval: str = "percentile"
-    converged: np.ndarray | None = None
-    errors: int = 0
-    choi_std: np.ndarray | None = None
-    chi_std: np.ndarray | None = None
-    ptm_std: np.ndarray | None = None
-    method: str = ""
-    workers: int = 1
-    seconds: float = 0.0
-
-
-@dataclass
-class Result:
-    """Everything a fit produced; the in-memory form of the result file.
-
-    Attributes
-    ----------
-    choi, chi, ptm : arrays in the conventions of CONTRACT §2
-    figures : dict name → Figure
-    method, converged, iterations, log_likelihood, stop_reason, seconds :
-        the estimator's report (`gatescope.estimators.Fit`)
-    intensities : fitted λ of every normalisation group
-    diagnostics : Diagnostics
-    provenance : dict of str/number, see CONTRACT §5
-    experiment_toml, toml_sha256, csv_sha256 : the input files
-    counts_columns : dict column → array, the CSV as read (plus
-        ``prep_index`` and ``meas_index``)
-    prep_states, meas_effects : the model's density matrices and effects
-    target : the target unitary or None; target_name its name
-    bootstrap : Bootstrap or None
-    figure_details : dict of what belongs to the figures but is not one
-        number (`gatescope.figures.compute_figures`): arrays such as
-        ``nearest_unitary``, ``local_phases_before``/``_after``, and strings
-        or numbers such as ``concurrence_input``; stored in /figures_extra
-    """
-
-    choi: np.ndarray
-    chi: np.ndarray
-    ptm: np.ndarray
-    figures: dict
-    method: str
-    converged: bool
-    iterations: int
-    log_likelihood: float
-    stop_reason: str
-    seconds: float
-    intensities: np.ndarray
-    diagnostics: Diagnostics
-    provenance: dict
-    experiment_toml: str
-    toml_sha256: str
-    csv_sha256: str
-    counts_columns: dict
-    prep_states: np.ndarray
-    meas_effects: np.ndarray
-    target: np.ndarray | None = None
-    target_name: str | None = None
-    bootstrap: Bootstrap | None = None
-    created_utc: str = field(default_factory=lambda: _dt.datetime.now(_dt.timezone.utc).isoformat())
-    figure_details: dict = field(default_factory=dict)
-
-    def save(self, path) -> Path:
-        """Write the CONTRACT §5 layout to ``path`` atomically; returns the path."""
-        path = Path(path)
-        with atomic_path(path) as tmp:
-            with h5py.File(tmp, "w") as f:
-                _write(f, self)
-        return path
+def write(path, r) -> Path:
+    """Write result ``r`` to ``path`` atomically; returns the path."""
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        with h5py.File(tmp, "w") as f:
+            _write(f, r)
+    return path
 
 
 _STR = h5py.string_dtype("utf-8")
@@ -203,10 +59,11 @@ def _put(group, name: str, data):
     return group.create_dataset(name, data=data)
 
 
-def _write(f: h5py.File, r: Result) -> None:
+def _write(f: h5py.File, r) -> None:
     f.attrs["format"] = FORMAT
     f.attrs["format_version"] = FORMAT_VERSION
     f.attrs["created_utc"] = r.created_utc
+    f.attrs["origin"] = r.origin
 
     inp = f.create_group("input")
     ds = inp.create_dataset("experiment_toml", data=r.experiment_toml, dtype=_STR)
@@ -275,8 +132,10 @@ def _write(f: h5py.File, r: Result) -> None:
     for key, value in r.provenance.items():
         prov.attrs[key] = "" if value is None else value
 
-    dg = f.create_group("diagnostics")
     d = r.diagnostics
+    if d is None:                      # the true channel of a simulation has no fit to test
+        return
+    dg = f.create_group("diagnostics")
     _put(dg, "expected_counts", np.asarray(d.expected_counts, dtype=np.float64))
     _put(dg, "pearson_residuals", np.asarray(d.pearson_residuals, dtype=np.float64))
     _put(dg, "deviance_residuals", np.asarray(d.deviance_residuals, dtype=np.float64))
@@ -302,8 +161,8 @@ def _text(ds) -> str:
     return v.decode("utf-8") if isinstance(v, bytes) else str(v)
 
 
-def load_result(path) -> Result:
-    """Read a result file written by `Result.save`.
+def read(path) -> dict:
+    """Read a result file written by `write`: the keyword arguments of `Result`.
 
     Raises
     ------
@@ -359,21 +218,25 @@ def load_result(path) -> Result:
         if "target_unitary" in f["model"]:
             target = f["model/target_unitary"][()]
             target_name = _attr(f["model/target_unitary"], "name")
-        dg = f["diagnostics"]
-        diagnostics = Diagnostics(dg["expected_counts"][()], dg["pearson_residuals"][()],
-                                  dg["deviance_residuals"][()], float(_attr(dg, "chi2")),
-                                  float(_attr(dg, "deviance")), int(_attr(dg, "dof")),
-                                  float(_attr(dg, "chi2_p_value", np.nan)),
-                                  float(_attr(dg, "deviance_p_value", np.nan)),
-                                  dg["outlier_rows"][()] if "outlier_rows" in dg
-                                  else np.zeros(0, dtype=np.int64))
+        diagnostics = None
+        if "diagnostics" in f:
+            dg = f["diagnostics"]
+            diagnostics = Diagnostics(dg["expected_counts"][()], dg["pearson_residuals"][()],
+                                      dg["deviance_residuals"][()], float(_attr(dg, "chi2")),
+                                      float(_attr(dg, "deviance")), int(_attr(dg, "dof")),
+                                      float(_attr(dg, "chi2_p_value", np.nan)),
+                                      float(_attr(dg, "deviance_p_value", np.nan)),
+                                      dg["outlier_rows"][()] if "outlier_rows" in dg
+                                      else np.zeros(0, dtype=np.int64))
+        # files written before the origin was recorded: a truth is marked by its method
+        origin = _attr(f, "origin", "truth" if _attr(est, "method") == "truth" else "fit")
         details = {}
         if "figures_extra" in f:
             extra = f["figures_extra"]
             details = {name: extra[name][()] for name in extra}
             details.update({key: _attr(extra, key) for key in extra.attrs})
         prov = {k: _attr(f["provenance"], k) for k in f["provenance"].attrs}
-        return Result(
+        return dict(
             choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()], figures=figures,
             method=_attr(est, "method"), converged=bool(_attr(est, "converged")),
             iterations=int(_attr(est, "iterations")), log_likelihood=float(_attr(est, "log_likelihood")),
@@ -384,5 +247,5 @@ def load_result(path) -> Result:
             csv_sha256=_attr(f["input/counts"], "sha256"), counts_columns=counts,
             prep_states=f["model/prep_states"][()], meas_effects=f["model/meas_effects"][()],
             target=target, target_name=target_name, bootstrap=boot,
-            created_utc=_attr(f, "created_utc"), figure_details=details,
+            created_utc=_attr(f, "created_utc"), figure_details=details, origin=origin,
         )

@@ -1,6 +1,7 @@
-"""The run sheet (`gatescope plan`, CONTRACT §4): every listed state comes back from its
-plate angles through a Jones model written here from CONTRACT §2, independently of
-`gatescope.conventions`."""
+"""The run sheet (`gatescope plan`): every listed state comes back from its
+plate angles through a Jones model written here from docs/conventions.md, independently of
+`gatescope.conventions`.
+"""
 
 from __future__ import annotations
 
@@ -9,16 +10,31 @@ import itertools
 
 import numpy as np
 import pytest
-
 from gatescope import InputError
 from gatescope.cli import main
 from gatescope.conventions import wave_plate
-from gatescope.plan import plate_angles, run_sheet, sheet_text, write_run_sheet
+from gatescope.synth.plan import plate_angles, run_sheet, sheet_text, write_run_sheet
+
+
+def plate(theta_deg, delta_deg):
+    """W(θ, δ) = Rot(−θ)·diag(e^{−iδ/2}, e^{iδ/2})·Rot(θ), Rot(θ) = [[c, s], [−s, c]]
+    (docs/conventions.md; the Jones matrix of a linear retarder, common practice, e.g. Hecht, Optics)."""
+    t, dl = np.radians(theta_deg), np.radians(delta_deg)
+    c, s = np.cos(t), np.sin(t)
+    rot = lambda c, s: np.array([[c, s], [-s, c]], dtype=complex)   # noqa: E731
+    return rot(c, -s) @ np.diag([np.exp(-0.5j * dl), np.exp(0.5j * dl)]) @ rot(c, s)
+
 
 SQ = 1 / np.sqrt(2)
+
+
 H = np.array([1, 0], dtype=complex)
+
+
 V = np.array([0, 1], dtype=complex)
-# CONTRACT §2 states; R and L under each handedness option, +i and -i under both
+
+
+# docs/conventions.md states; R and L under each handedness option, +i and -i under both
 KETS = {
     "H-iV": {"H": H, "V": V, "D": SQ * (H + V), "A": SQ * (H - V), "R": SQ * (H - 1j * V),
              "L": SQ * (H + 1j * V), "+i": SQ * (H + 1j * V), "-i": SQ * (H - 1j * V)},
@@ -27,17 +43,8 @@ KETS = {
 }
 
 
-def plate(theta_deg, delta_deg):
-    """W(θ, δ) = Rot(−θ)·diag(e^{−iδ/2}, e^{iδ/2})·Rot(θ), Rot(θ) = [[c, s], [−s, c]]
-    (CONTRACT §2; the Jones matrix of a linear retarder, common practice, e.g. Hecht, Optics)."""
-    t, dl = np.radians(theta_deg), np.radians(delta_deg)
-    c, s = np.cos(t), np.sin(t)
-    rot = lambda c, s: np.array([[c, s], [-s, c]], dtype=complex)   # noqa: E731
-    return rot(c, -s) @ np.diag([np.exp(-0.5j * dl), np.exp(0.5j * dl)]) @ rot(c, s)
-
-
 def prepared(hwp, qwp):
-    """Source H, then the half-wave plate, then the quarter-wave plate (CONTRACT §2)."""
+    """Source H, then the half-wave plate, then the quarter-wave plate (docs/conventions.md)."""
     return plate(qwp, 90) @ plate(hwp, 180) @ H
 
 
@@ -51,10 +58,6 @@ def read_sheet(path):
     with open(path, newline="", encoding="utf-8") as fh:
         return list(csv.DictReader(fh))
 
-
-# --------------------------------------------------------------------------
-# The Jones model reproduces every listed state
-# --------------------------------------------------------------------------
 
 def test_the_independent_jones_model_matches_the_package():
     for theta, delta in [(0, 180), (22.5, 180), (45, 90), (-13.1, 93.7)]:
@@ -117,10 +120,6 @@ def test_quarter_wave_plate_with_retardance_error():
         assert abs(np.vdot(circ, out)) ** 2 == pytest.approx(np.cos(np.radians(eps_deg) / 2) ** 2,
                                                             abs=1e-14)
 
-
-# --------------------------------------------------------------------------
-# The sheet: layout, sets, seconds
-# --------------------------------------------------------------------------
 
 def test_two_qubit_sheet_layout_and_product_of_settings(tmp_path):
     sheet = run_sheet(2, "pauli4", "pauli6", seconds=12.5)

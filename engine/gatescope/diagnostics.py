@@ -1,0 +1,123 @@
+"""Goodness of fit: how well the estimate's model describes the counts.
+
+Per row the expected counts ν_k (README, "Input"), the Pearson residuals
+(n − ν)/√ν and the deviance residuals sign(n − ν)·√(2[n log(n/ν) − (n − ν)]);
+over all rows the Pearson χ² and the deviance with their degrees of freedom
+and p-values, and the rows that do not fit.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.special import chdtrc
+
+from .errors import GatescopeWarning
+from .estimators import Fit
+from .model import MeasurementModel
+
+#: Both goodness-of-fit p-values below this: the model does not describe the data.
+POOR_FIT_P = 1e-3
+#: |Pearson residual| above which a row is listed as an outlier (a model that fits
+#: gives one such row in about sixteen thousand).
+OUTLIER_RESIDUAL = 4.0
+
+
+@dataclass
+class Diagnostics:
+    """Goodness of fit of the estimate to the rows.
+
+    Pearson residuals are (n − ν)/√ν; deviance residuals
+    sign(n − ν)·√(2[n log(n/ν) − (n − ν)]). ``dof`` is the number of rows
+    minus the process parameters the data determine minus the number of
+    fitted intensities. ``chi2_p_value`` and ``deviance_p_value`` are
+    P(χ²_dof ≥ statistic) (NaN when dof ≤ 0); ``outlier_rows`` the indices
+    (into the CSV's data rows, first row 0) of rows with |Pearson residual|
+    > 4 or with counts where the model expects none.
+    """
+
+    expected_counts: np.ndarray
+    pearson_residuals: np.ndarray
+    deviance_residuals: np.ndarray
+    chi2: float
+    deviance: float
+    dof: int
+    chi2_p_value: float = float("nan")
+    deviance_p_value: float = float("nan")
+    outlier_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    @property
+    def p_value(self) -> float:
+        """The larger of the two p-values (NaN when neither is defined)."""
+        p = [x for x in (self.chi2_p_value, self.deviance_p_value) if not np.isnan(x)]
+        return max(p) if p else float("nan")
+
+    @property
+    def poor_fit(self) -> bool:
+        """Both the Pearson and the deviance test reject the model at `POOR_FIT_P`.
+
+        Requiring both keeps false alarms rare: for a well-described gate
+        close to a unitary the estimate sits on the boundary of the
+        physical set, which pushes both statistics somewhat above their χ²
+        reference (the p-values are then smaller than nominal).
+        """
+        return bool(self.p_value < POOR_FIT_P)
+
+
+def p_value(statistic: float, dof: int) -> float:
+    """P(χ²_dof ≥ statistic), NaN without degrees of freedom.
+
+    `scipy.special.chdtrc`, the function behind ``scipy.stats.chi2.sf``
+    (importing scipy.stats would add a second to every start of the program).
+    """
+    if dof <= 0 or np.isnan(statistic):
+        return float("nan")
+    return float(chdtrc(dof, statistic))
+
+
+def outlier_rows(pearson: np.ndarray, counts: np.ndarray, expected: np.ndarray,
+                 limit: float = OUTLIER_RESIDUAL) -> np.ndarray:
+    """Rows with |Pearson residual| > limit, or with counts where the model expects none."""
+    bad = np.abs(np.nan_to_num(pearson, nan=0.0)) > limit
+    bad |= (expected <= 0) & (counts > 0)
+    return np.flatnonzero(bad).astype(np.int64)
+
+
+def diagnostics(model: MeasurementModel, fit: Fit, n_determined: int) -> Diagnostics:
+    """Expected counts, Pearson and deviance residuals, χ² and its degrees of freedom.
+
+    Also the p-values of the Pearson χ² and of the deviance against the χ²
+    distribution with ``dof`` degrees of freedom (a large-count
+    approximation: rows with a handful of counts make it rough) and the
+    rows whose |Pearson residual| exceeds `OUTLIER_RESIDUAL` (with a model
+    that fits, about one row in ten thousand does).
+    """
+    nu = model.expected_counts(fit.choi, fit.intensities)
+    n = model.counts
+    ok = nu > 0
+    safe = np.where(ok, nu, 1.0)
+    pearson = np.where(ok, (n - nu) / np.sqrt(safe), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        term = np.where(n > 0, n * np.log(np.where(n > 0, n, 1.0) / safe), 0.0) - (n - nu)
+    dev = np.where(ok, np.sign(n - nu) * np.sqrt(np.maximum(2.0 * term, 0.0)), np.nan)
+    fitted_intensities = 0 if model.fixed_intensities is not None else model.n_groups
+    dof = int(model.n_rows - n_determined - fitted_intensities)
+    chi2, deviance = float(np.sum(pearson**2)), float(np.sum(dev**2))
+    return Diagnostics(nu, pearson, dev, chi2, deviance, dof, p_value(chi2, dof),
+                       p_value(deviance, dof), outlier_rows(pearson, n, nu))
+
+
+def warn_if_poor_fit(diag: Diagnostics) -> None:
+    """A `GatescopeWarning` when both goodness-of-fit p-values are below `POOR_FIT_P`.
+
+    `fit` calls it for maximum-likelihood estimates only.
+    """
+    if diag.poor_fit:
+        warnings.warn(
+            f"the model does not describe the data (Pearson chi2 {diag.chi2:.1f}, deviance "
+            f"{diag.deviance:.1f} on {diag.dof} degrees of freedom, p < {POOR_FIT_P:g}; "
+            f"{len(diag.outlier_rows)} row(s) with |residual| > {OUTLIER_RESIDUAL:g}): check for "
+            "miscalibrated optics, drift of the source, or a wrong background", GatescopeWarning,
+            stacklevel=3)

@@ -1,0 +1,59 @@
+"""Process estimators behind one interface and one result type.
+
+Every estimator is a function ``(model, *, counts=None, start=None, tol,
+maxiter) -> Fit`` registered in `ESTIMATORS`, one module per family:
+
+* `linear` — ``lin`` (linear inversion) and ``pls`` (projected least squares);
+* `mle` — ``mle``, Poisson maximum likelihood by accelerated projected
+  gradient.
+
+Options share their names across estimators: ``tol`` (relative change of
+the log-likelihood) and ``maxiter``. ``counts`` replaces the experiment's
+counts (the bootstrap uses it); ``start`` is a warm start an estimator may
+ignore. An estimator that cannot produce an estimate for numerical reasons
+raises `gatescope.errors.NumericalError`.
+"""
+
+from __future__ import annotations
+
+import inspect
+
+from ..errors import InputError
+from ..model import MeasurementModel
+from ..options import choice
+from .base import Fit
+from .linear import fit_lin, fit_pls
+from .mle import fit_mle
+
+ESTIMATORS = {"lin": fit_lin, "pls": fit_pls, "mle": fit_mle}
+METHODS = tuple(ESTIMATORS)
+
+
+def check_options(method: str, options: dict, *, key: str = "method") -> None:
+    """InputError unless ``method`` is registered and takes every option in ``options``.
+
+    ``counts`` and ``start`` are set by the callers (the bootstrap), not by users.
+    """
+    choice(method, METHODS, key, "method")
+    accepted = inspect.signature(ESTIMATORS[method]).parameters
+    for name in options:
+        if name in ("counts", "start") or name not in accepted or name == "model":
+            raise InputError(f"the {method} estimator has no option {name!r}; its options: "
+                             + ", ".join(p for p in accepted if p not in ("model", "counts",
+                                                                          "start")),
+                             key=name)
+
+
+def estimate(model: MeasurementModel, method: str = "mle", *, counts=None, start=None,
+             **options) -> Fit:
+    """Run the estimator named ``method`` (one of `METHODS`) on ``model``.
+
+    ``counts`` and ``start`` are passed on (a bootstrap refit); an unknown
+    method or an option the estimator does not take is an `InputError`.
+    """
+    check_options(method, options)
+    return ESTIMATORS[method](model, counts=counts, start=start, **options)
+
+
+__all__ = ["Fit", "ESTIMATORS", "METHODS", "estimate", "check_options", "fit_lin", "fit_pls",
+           "fit_mle"]

@@ -1,0 +1,139 @@
+"""Linear inversion (``lin``) and projected least squares (``pls``).
+
+* ``lin`` — least squares on relative frequencies in Pauli-transfer-matrix
+  coordinates with trace preservation imposed exactly; may be unphysical
+  (negative Choi eigenvalues).
+* ``pls`` — ``lin`` followed by the Euclidean projection onto the physical
+  set (Guţă, Kahn, Kueng & Tropp, J. Phys. A 53, 204001 (2020);
+  Surawy-Stepney, Kahn, Kueng & Guţă, Quantum 6, 844 (2022) for processes).
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+from scipy.sparse.linalg import LinearOperator, lsqr
+
+from ..channels import ptm_to_choi
+from ..likelihood import PoissonLikelihood
+from ..model import MeasurementModel
+from ..projection import project_physical
+from .base import Fit
+
+#: Entries of the pair design matrix up to which the least-squares problem is solved
+#: densely; above it by LSQR on the matrix-free operator (memory, not speed, decides).
+_DENSE_LIMIT = 20_000_000         # entries of the pair design matrix solved densely
+
+
+def _frequencies(model: MeasurementModel, counts: np.ndarray, probs: np.ndarray):
+    """Relative frequencies with moment intensities λ_g = Σ(n − b)/Σ(s·e·p)."""
+    g = model.group_index
+    if model.fixed_intensities is not None:
+        lam = model.fixed_intensities
+    else:
+        num = np.bincount(g, weights=counts - model.background, minlength=model.n_groups)
+        den = np.bincount(g, weights=model.exposure * probs, minlength=model.n_groups)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lam = np.where(den > 0, num / den, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = lam[g] * model.exposure
+        freq = np.where(scale > 0, (counts - model.background) / scale, 0.0)
+    return freq, lam
+
+
+def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarray:
+    """PTM R minimising Σ_k (f_k − p_k(R))², p = (1/d) e_mᵀ R r_p.
+
+    For a trace-preserving model the first row is fixed, R[0] = (1, 0, …);
+    for a trace non-increasing one every entry is free.
+    """
+    d = model.dim
+    d2 = d * d
+    r, e = model.pauli_coordinates()
+    mult = model.pairs_present().reshape(-1)
+    sums = np.bincount(model.pair_index, weights=freq, minlength=mult.size)
+    q = np.nonzero(mult)[0]
+    p_idx, m_idx = np.divmod(q, model.n_meas)
+    weight = np.sqrt(mult[q].astype(float))
+    first = 0 if model.trace_decreasing else 1
+    n_free = d2 - first
+    # the fixed trace-preserving first row contributes Tr(E)·Tr(ρ)/d
+    fixed_table = (e[:, :1] @ r[:, :1].T) / d if first else np.zeros((model.n_meas, model.n_preps))
+    target = weight * (sums[q] / mult[q] - fixed_table[m_idx, p_idx])
+    e1 = e[:, first:] / d
+    n_cols = n_free * d2
+    if q.size == mult.size and np.all(mult == mult[0]):
+        # complete table, equal multiplicity: the design is a Kronecker product
+        y = (sums / mult).reshape(model.n_preps, model.n_meas).T - fixed_table
+        sol = (np.linalg.pinv(e1) @ y @ np.linalg.pinv(r).T).reshape(-1)
+    elif q.size * n_cols <= _DENSE_LIMIT:
+        design = (e1[m_idx][:, :, None] * r[p_idx][:, None, :]).reshape(q.size, n_cols)
+        sol = np.linalg.lstsq(weight[:, None] * design, target, rcond=None)[0]
+    else:
+        def matvec(v):
+            table = e1 @ v.reshape(n_free, d2) @ r.T
+            return weight * table.reshape(-1)[q]
+
+        def rmatvec(u):
+            table = np.zeros(model.n_preps * model.n_meas)
+            table[q] = weight * u
+            return (e1.T @ table.reshape(model.n_preps, model.n_meas).T @ r).reshape(-1)
+
+        op = LinearOperator((q.size, n_cols), matvec=matvec, rmatvec=rmatvec, dtype=float)
+        sol = lsqr(op, target, atol=1e-14, btol=1e-14, iter_lim=10 * n_cols)[0]
+    ptm = np.zeros((d2, d2))
+    ptm[0, 0] = 1.0
+    ptm[first:] = sol.reshape(n_free, d2)
+    return ptm
+
+
+def fit_lin(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
+            maxiter: int = 200) -> Fit:
+    """Linear inversion by least squares on relative frequencies.
+
+    Relative frequencies are f_k = (n_k − b_k)/(λ_g s_k e_k). The
+    intensities λ_g are first those of the completely depolarising channel
+    (exact for any trace-preserving process when every group holds complete
+    analyser bases with equal exposure) and are then re-estimated from the
+    current linear estimate until they stop changing (``maxiter`` passes,
+    relative change ``tol``). The result can have negative eigenvalues;
+    ``info["min_eigenvalue"]`` reports the smallest.
+    """
+    t0 = time.perf_counter()
+    lik = PoissonLikelihood(model, counts)
+    d = model.dim
+    probs = model.forward(np.eye(d * d, dtype=complex) / d)
+    lam_prev = None
+    passes = 0
+    for passes in range(1, maxiter + 1):
+        freq, lam = _frequencies(model, lik.counts, probs)
+        ptm = _linear_least_squares(model, freq)
+        choi = ptm_to_choi(ptm)
+        probs = model.forward(choi)
+        settled = lam_prev is not None and np.allclose(lam, lam_prev, rtol=tol, atol=0)
+        if settled:
+            break
+        lam_prev = lam
+    ev = lik.evaluate(choi)
+    min_eig = float(np.linalg.eigvalsh(choi)[0])
+    reason = ("least squares; intensities settled after {} passes".format(passes) if settled
+              else "least squares; intensities still changing after the last pass")
+    return Fit("lin", choi, ev.intensities, ev.log_likelihood, bool(settled), passes, reason,
+               time.perf_counter() - t0, {"min_eigenvalue": min_eig})
+
+
+def fit_pls(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
+            maxiter: int = 200) -> Fit:
+    """Projected least squares: the ``lin`` estimate projected onto CPTP maps
+    (onto trace non-increasing CP maps for ``trace = "decreasing"``)."""
+    t0 = time.perf_counter()
+    lin = fit_lin(model, counts=counts, tol=tol, maxiter=maxiter)
+    proj = project_physical(model, lin.choi)
+    lik = PoissonLikelihood(model, counts)
+    ev = lik.evaluate(proj.choi)
+    info = {"lin_min_eigenvalue": lin.info["min_eigenvalue"],
+            "projection_iterations": proj.iterations, "multiplier": proj.multiplier}
+    return Fit("pls", proj.choi, ev.intensities, ev.log_likelihood, proj.converged,
+               lin.iterations, "projection of the linear-inversion estimate",
+               time.perf_counter() - t0, info)

@@ -1,0 +1,140 @@
+"""Figures of merit of an estimate: one module per kind of figure.
+
+* `process` — fidelities to the target and figures without one;
+* `entanglement` — the concurrence of the output for an entangling input;
+* `diamond` — the diamond distance by semidefinite program (optional).
+
+For a Choi matrix J on d dimensions (README, "Conventions") and a unitary
+target U:
+
+* ``process_fidelity`` F_pro = <<U|J|U>>/d² (squared, Choi-state
+  convention; 1 for a perfect gate, equal to Tr(χ χ_U));
+* ``average_gate_fidelity`` F_avg = (d·F_pro + Tr J/d)/(d + 1), which is
+  (d·F_pro + 1)/(d + 1) for a trace-preserving J (Horodecki, Horodecki &
+  Horodecki, Phys. Rev. A 60, 1888 (1999); Nielsen, Phys. Lett. A 303, 249
+  (2002));
+* ``purity`` Tr ρ_J² of the normalised Choi state ρ_J = J/Tr J, which is
+  Tr J²/d² for a trace-preserving J (1 for a unitary);
+* ``trace`` Tr J/d (1 for trace preserving);
+* ``min_eigenvalue`` the smallest eigenvalue of J itself (negative for an
+  unphysical linear-inversion estimate);
+
+* ``unitarity`` u = Tr(R_u† R_u)/(d² − 1), R_u the unital block (rows and
+  columns of the non-identity Paulis) of the Pauli transfer matrix
+  (Wallman, Granade, Harper & Flammia, New J. Phys. 17, 113020 (2015)); 1
+  for a unitary, (1 − p)² for a depolarising channel. For a trace-decreasing
+  estimate the same block formula is applied to the unnormalised map;
+* ``nearest_unitary_fidelity`` max_U F_pro(J, U) over all unitaries, the
+  process fidelity of the estimate to the unitary closest to it; that
+  unitary is returned in the details as ``nearest_unitary``
+  (:func:`nearest_unitary`);
+* ``process_fidelity_local_phases`` the process fidelity to the target after
+  the best single-qubit Z rotations before and after it
+  (:func:`local_phase_fidelity`); the phases are in the details;
+* ``truth_table_fidelity`` for a target that maps computational basis states
+  to basis states (up to phases): the mean over basis inputs of the
+  probability of the target's output basis state
+  (:func:`truth_table_fidelity`); absent for other targets;
+* ``concurrence`` for a two-qubit target: the concurrence (Wootters, Phys.
+  Rev. Lett. 80, 2245 (1998)) of the estimate's output for the product
+  six-state input the target entangles most (:func:`entangling_input`);
+  absent when no such input is entangled by the target;
+* ``diamond_distance`` ‖Φ_J − Φ_U‖◇ (between 0 and 2) by the semidefinite
+  program of Watrous (:func:`diamond_distance`), only on request
+  (``diamond=True``: it needs cvxpy, and loading it alone takes about a
+  second).
+
+Target figures are absent when the experiment names no target.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from ..channels import apply_channel
+from ..errors import GatescopeWarning
+from .diamond import cvxpy_available, diamond_distance
+from .entanglement import concurrence, entangling_input
+from .process import (average_gate_fidelity, local_phase_fidelity, min_eigenvalue,
+                      nearest_unitary, process_fidelity, purity, trace, truth_table_fidelity,
+                      unitarity)
+
+FIGURE_NAMES = ("process_fidelity", "average_gate_fidelity", "purity", "trace", "min_eigenvalue",
+                "unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
+                "truth_table_fidelity", "concurrence", "diamond_distance")
+TARGET_FIGURES = ("process_fidelity", "average_gate_fidelity", "process_fidelity_local_phases",
+                  "truth_table_fidelity", "concurrence", "diamond_distance")
+
+
+def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: bool = False,
+                    details: dict | None = None) -> dict[str, float]:
+    """All figures of merit, in `FIGURE_NAMES` order (target ones only with a target).
+
+    Parameters
+    ----------
+    choi : (d², d²) array
+    target : (d, d) unitary or None
+    diamond : bool
+        Also compute ``diamond_distance`` (needs cvxpy; without it a
+        `GatescopeWarning` says it was skipped).
+    details : dict, optional
+        Filled with what is not a single number: ``nearest_unitary``
+        (d × d complex), ``local_phases_before`` and ``local_phases_after``
+        (radians, one per qubit), ``concurrence_input`` (label of the
+        product input, e.g. "D H") and ``concurrence_ideal`` (its ideal
+        output's concurrence), ``diamond_status``, ``diamond_solver``,
+        ``diamond_program``.
+    """
+    out = {}
+    extra = {} if details is None else details
+    if target is not None:
+        out["process_fidelity"] = process_fidelity(choi, target)
+        out["average_gate_fidelity"] = average_gate_fidelity(choi, target)
+    out["purity"] = purity(choi)
+    out["trace"] = trace(choi)
+    out["min_eigenvalue"] = min_eigenvalue(choi)
+    out["unitarity"] = unitarity(choi)
+    u_near, f_near = nearest_unitary(choi, target)
+    out["nearest_unitary_fidelity"] = f_near
+    extra["nearest_unitary"] = u_near
+    if target is None:
+        return out
+    f_loc, before, after = local_phase_fidelity(choi, target)
+    out["process_fidelity_local_phases"] = f_loc
+    extra["local_phases_before"] = before
+    extra["local_phases_after"] = after
+    tt = truth_table_fidelity(choi, target)
+    if tt is not None:
+        out["truth_table_fidelity"] = tt
+    ent = entangling_input(target)
+    if ent is not None:
+        label, psi, ideal = ent
+        out["concurrence"] = concurrence(apply_channel(choi, np.outer(psi, psi.conj())))
+        extra["concurrence_input"] = label
+        extra["concurrence_ideal"] = float(ideal)
+    if diamond:
+        if not cvxpy_available():
+            warnings.warn("diamond distance skipped: it needs cvxpy, the 'sdp' extra "
+                          "(pip install 'gatescope[sdp]')", GatescopeWarning, stacklevel=2)
+        else:
+            dn = diamond_distance(choi, target)
+            if dn["status"] not in ("optimal", "optimal_inaccurate"):
+                warnings.warn(f"diamond distance skipped: the solver ended with status "
+                              f"{dn['status']!r}", GatescopeWarning, stacklevel=2)
+            else:
+                if dn["status"] != "optimal":
+                    warnings.warn(f"diamond distance: the solver reports {dn['status']!r}",
+                                  GatescopeWarning, stacklevel=2)
+                out["diamond_distance"] = dn["value"]
+                extra["diamond_status"] = dn["status"]
+                extra["diamond_solver"] = dn["solver"]
+                extra["diamond_program"] = dn["program"]
+    return out
+
+
+__all__ = ["FIGURE_NAMES", "TARGET_FIGURES", "compute_figures", "process_fidelity",
+           "average_gate_fidelity", "purity", "trace", "min_eigenvalue", "unitarity",
+           "nearest_unitary", "local_phase_fidelity", "truth_table_fidelity", "concurrence",
+           "entangling_input", "diamond_distance"]

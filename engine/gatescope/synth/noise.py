@@ -1,0 +1,153 @@
+"""Known channels for simulation: noise channels, random channels, SPEC strings.
+
+A channel SPEC names a gate followed by noise, ``GATE[+KIND:P]...`` (for
+example ``CZ+depolarizing:0.02+zz:0.1``), or a random channel,
+``random:RANK[:SEED]``. The noise kinds act after the gate, in the order
+given (README, "Commands"):
+
+* ``depolarizing:p`` — Φ ↦ (1−p)·Φ + p·(ρ ↦ Tr ρ · I/d) on the whole process;
+* ``dephasing:p`` — ρ ↦ (1−p)·ρ + p·ZρZ on every qubit;
+* ``amplitude-damping:g`` — the Kraus pair [[1,0],[0,√(1−g)]],
+  [[0,√g],[0,0]] on every qubit;
+* ``zz:phi`` — exp(−i·phi·Z⊗Z/2) on each neighbouring pair of qubits
+  (phi in radians).
+
+Errors are `ValueError` with a message for the user; the callers that take
+a SPEC from the user turn them into an `InputError` naming the option.
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+
+from ..channels import choi_from_kraus, choi_from_unitary, compose
+from ..conventions import GATE_NAMES, kron_all, n_qubits_of, named_gate
+
+
+def depolarizing(p: float, d: int) -> np.ndarray:
+    """Choi matrix of ρ ↦ (1−p)ρ + p Tr(ρ) I/d."""
+    return (1 - p) * choi_from_unitary(np.eye(d)) + p * np.eye(d * d) / d
+
+
+def _each_qubit(kraus_1q, n_qubits: int) -> np.ndarray:
+    """Choi matrix of a single-qubit channel applied to every qubit."""
+    ops = [kron_all(combo) for combo in itertools.product(kraus_1q, repeat=n_qubits)]
+    return choi_from_kraus(ops)
+
+
+def dephasing(p: float, n_qubits: int) -> np.ndarray:
+    """ρ ↦ (1−p)ρ + p ZρZ on every qubit."""
+    z = np.diag([1.0, -1.0]).astype(complex)
+    return _each_qubit([np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * z], n_qubits)
+
+
+def amplitude_damping(g: float, n_qubits: int) -> np.ndarray:
+    """Kraus pair [[1,0],[0,√(1−g)]], [[0,√g],[0,0]] on every qubit."""
+    k0 = np.array([[1, 0], [0, np.sqrt(1 - g)]], dtype=complex)
+    k1 = np.array([[0, np.sqrt(g)], [0, 0]], dtype=complex)
+    return _each_qubit([k0, k1], n_qubits)
+
+
+def zz_phase(phi: float, n_qubits: int) -> np.ndarray:
+    """exp(−i φ Z⊗Z/2) on each neighbouring pair (k, k+1), as a Choi matrix."""
+    d = 2 ** n_qubits
+    bits = (np.arange(d)[:, None] >> (n_qubits - 1 - np.arange(n_qubits))[None, :]) & 1
+    z = 1 - 2 * bits                                  # ±1 eigenvalue of Z_k
+    exponent = np.zeros(d)
+    for k in range(n_qubits - 1):
+        exponent += z[:, k] * z[:, k + 1]
+    return choi_from_unitary(np.diag(np.exp(-0.5j * phi * exponent)))
+
+
+NOISE_KINDS = ("depolarizing", "dephasing", "amplitude-damping", "zz")
+
+
+def noise_channel(kind: str, value: float, n_qubits: int) -> np.ndarray:
+    """Choi matrix of one noise term (README, Commands: noise kinds)."""
+    if kind == "zz":
+        return zz_phase(value, n_qubits)
+    if not 0.0 <= value <= 1.0:
+        raise ValueError(f"{kind} parameter must lie in [0, 1], got {value}")
+    if kind == "depolarizing":
+        return depolarizing(value, 2 ** n_qubits)
+    if kind == "dephasing":
+        return dephasing(value, n_qubits)
+    if kind == "amplitude-damping":
+        return amplitude_damping(value, n_qubits)
+    raise ValueError(f"unknown noise kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
+
+
+def random_channel(n_qubits: int, rank: int, seed: int | None = None) -> np.ndarray:
+    """A random CPTP channel whose Choi matrix has the given rank.
+
+    Built from a Haar-like random isometry V: C^d → C^d ⊗ C^rank (QR of a
+    complex Gaussian matrix), whose blocks are the Kraus operators.
+    """
+    d = 2 ** n_qubits
+    if not 1 <= rank <= d * d:
+        raise ValueError(f"rank must lie in 1..{d * d}, got {rank}")
+    rng = np.random.default_rng(seed)
+    g = rng.normal(size=(d * rank, d)) + 1j * rng.normal(size=(d * rank, d))
+    q, r = np.linalg.qr(g)
+    q = q * (np.diag(r) / np.abs(np.diag(r)))[None, :]
+    kraus = q.reshape(rank, d, d)
+    return choi_from_kraus(kraus)
+
+
+def parse_channel_spec(spec: str):
+    """Parse a channel SPEC, ``GATE[+KIND:P]...`` or ``random:RANK[:SEED]``.
+
+    Returns
+    -------
+    gate : str or None
+        The gate name (the target of the simulated experiment), None for a
+        random channel.
+    noise : list of (kind, value)
+    random : tuple (rank, seed) or None
+    """
+    text = spec.strip()
+    if text.startswith("random:"):
+        parts = text.split(":")
+        if len(parts) not in (2, 3):
+            raise ValueError(f"channel {spec!r}: expected random:RANK[:SEED]")
+        try:
+            rank = int(parts[1])
+            seed = int(parts[2]) if len(parts) == 3 else None
+        except ValueError:
+            raise ValueError(f"channel {spec!r}: RANK and SEED must be whole numbers") from None
+        return None, [], (rank, seed)
+    pieces = text.split("+")
+    gate = pieces[0]
+    if gate not in GATE_NAMES:
+        raise ValueError(f"channel {spec!r}: unknown gate {gate!r}; known gates: {', '.join(GATE_NAMES)}")
+    return gate, [parse_noise(p) for p in pieces[1:]], None
+
+
+def parse_noise(text: str) -> tuple[str, float]:
+    """Parse one ``KIND:P`` noise term."""
+    kind, sep, value = text.partition(":")
+    if not sep:
+        raise ValueError(f"noise {text!r}: expected KIND:P, e.g. depolarizing:0.02")
+    if kind not in NOISE_KINDS:
+        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
+    try:
+        p = float(value)
+    except ValueError:
+        raise ValueError(f"noise {text!r}: {value!r} is not a number") from None
+    if not np.isfinite(p):
+        raise ValueError(f"noise {text!r}: parameter must be finite")
+    return kind, p
+
+
+def build_channel(gate: str, noise, n_qubits: int | None = None) -> np.ndarray:
+    """Choi matrix of a named gate followed by the noise terms, in order."""
+    u = named_gate(gate)
+    n = n_qubits_of(u.shape[0])
+    if n_qubits is not None and n != n_qubits:
+        raise ValueError(f"gate {gate} acts on {n} qubit(s), not {n_qubits}")
+    choi = choi_from_unitary(u)
+    for kind, value in noise:
+        choi = compose(choi, noise_channel(kind, value, n))
+    return choi

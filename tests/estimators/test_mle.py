@@ -1,0 +1,49 @@
+"""Poisson maximum likelihood (gatescope.estimators.mle).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from gatescope import read_experiment
+from gatescope.estimators import estimate
+from gatescope.model import MeasurementModel
+
+
+@pytest.fixture(scope="module")
+def noisy_cz(tmp_path_factory):
+    from support import simulated_experiment
+    return simulated_experiment(tmp_path_factory.mktemp("cz"), "CZ+zz:0.1+depolarizing:0.05",
+                                shots=800, seed=4)
+
+
+def test_mle_is_the_maximum(noisy_cz):
+    exp, _ = noisy_cz
+    model = MeasurementModel(exp)
+    mle = estimate(model, "mle")
+    pls = estimate(model, "pls")
+    assert mle.log_likelihood >= pls.log_likelihood
+    # a small CPTP move away from the optimum does not increase the likelihood
+    from gatescope.likelihood import PoissonLikelihood
+    lik = PoissonLikelihood(model)
+    for t in (1e-3, 1e-2):
+        mixed = (1 - t) * mle.choi + t * np.eye(16) / 4
+        assert lik.evaluate(mixed).log_likelihood <= mle.log_likelihood + 1e-9
+
+
+def test_mle_with_known_background_and_efficiency(make_experiment, rng):
+    # counts = λ·s·e·p + b with the background and efficiency columns given: the fit recovers truth
+    exp, truth = make_experiment("CZ+depolarizing:0.1", shots=1.0)
+    model = MeasurementModel(exp)
+    p = model.forward(truth)
+    seconds = rng.uniform(0.5, 2.0, exp.n_rows)
+    eff = rng.uniform(0.7, 1.0, exp.n_rows)
+    bg = rng.uniform(0.0, 5.0, exp.n_rows)
+    expected = 1e7 * seconds * eff * p + bg
+    lines = ["prep,meas,counts,seconds,efficiency,background"]
+    for k in range(exp.n_rows):
+        lines.append(f"{exp.prep[k]},{exp.meas[k]},{int(round(expected[k]))},{seconds[k]:.17g},{eff[k]:.17g},{bg[k]:.17g}")
+    exp.counts_path.write_text("\n".join(lines) + "\n")
+    fit = estimate(MeasurementModel(read_experiment(exp.path)), "mle")
+    assert np.abs(fit.choi - truth).max() < 1e-4
+    np.testing.assert_allclose(fit.intensities, 1e7, rtol=1e-4)

@@ -1,0 +1,117 @@
+"""The main job end to end (gatescope.pipeline.fit): every figure and its details, options
+checked before any computation, physical estimates that recover the true process.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+
+import gatescope as gs
+import numpy as np
+import pytest
+from gatescope import merit as fig
+from gatescope.conventions import GATES
+from support import simulated_experiment
+
+
+@pytest.fixture(scope="module")
+def cz_result(tmp_path_factory):
+    from support import simulated_experiment
+
+    folder = tmp_path_factory.mktemp("figs")
+    exp, true_choi = simulated_experiment(folder / "data", "CZ+zz:0.2+depolarizing:0.05",
+                                          shots=2000, seed=4)
+    diamond = importlib.util.find_spec("cvxpy") is not None
+    res = gs.fit(exp, "mle", diamond=diamond)
+    path = res.save(folder / "result.h5")
+    return res, path, true_choi, diamond
+
+
+def tr_out(J, d):
+    return np.einsum("iaja->ij", J.reshape(d, d, d, d))
+
+
+@pytest.fixture(scope="module")
+def cz_fit(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("cz")
+    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
+    res = gs.fit(exp, "mle", seed=5)
+    path = res.save(folder / "out" / "result.h5")
+    return exp, res, path
+
+
+def _fidelities(tmp_path, spec, target, *, shots, seeds, n_qubits):
+    out = []
+    for seed in seeds:
+        exp, true_choi = simulated_experiment(tmp_path / f"s{seed}", spec, shots=shots, seed=seed,
+                                              n_qubits=n_qubits)
+        out.append(gs.fit(exp, "mle").figures["process_fidelity"].value)
+    v = target.T.reshape(-1)
+    d = target.shape[0]
+    truth = np.vdot(v, true_choi @ v).real / d**2
+    return np.array(out), truth
+
+
+def test_fit_fills_every_figure_and_its_details(cz_result):
+    res, _, true_choi, diamond = cz_result
+    names = ["unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
+             "truth_table_fidelity", "concurrence"] + (["diamond_distance"] if diamond else [])
+    for name in names:
+        assert np.isfinite(res.figures[name].value), name
+    det = res.figure_details
+    assert det["nearest_unitary"].shape == (4, 4) and det["nearest_unitary"].dtype == complex
+    assert det["local_phases_before"].shape == (2,) and det["local_phases_after"].shape == (2,)
+    assert det["concurrence_input"] == "D D"
+    # the estimate's figures are near the true channel's (2000 counts per basis)
+    truth = fig.compute_figures(true_choi, GATES["CZ"])
+    for name in ("unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
+                 "truth_table_fidelity", "concurrence"):
+        assert res.figures[name].value == pytest.approx(truth[name], abs=0.03), name
+    # the ZZ error is not a local phase: the local-phase fidelity gains little over the
+    # plain one, the nearest unitary (which holds the ZZ phase) gains more
+    assert res.figures["process_fidelity_local_phases"].value < \
+        res.figures["nearest_unitary_fidelity"].value
+
+
+@pytest.mark.parametrize("method", ["mle", "pls"])
+def test_fit_of_simulated_cz_is_cptp(cz_fit, method):
+    exp, res, path = cz_fit
+    if method != "mle":
+        res = gs.fit(exp, method)
+    matrices = [res.choi] + ([gs.load_result(path).choi] if method == "mle" else [])
+    for J in matrices:
+        assert np.abs(J - J.conj().T).max() <= 1e-9
+        assert np.linalg.eigvalsh(J)[0] >= -1e-9
+        assert np.abs(tr_out(J, 4) - np.eye(4)).max() <= 1e-9
+    # a pure CZ measured with 1000 counts per basis: the estimate is close to it
+    assert res.figures["process_fidelity"].value > 0.97
+
+
+@pytest.mark.parametrize("spec,target,shots,n_seeds,n_qubits", [
+    ("H+amplitude-damping:0.1+dephasing:0.05", GATES["H"], 500, 24, 1),
+    ("CZ+depolarizing:0.1+zz:0.1", GATES["CZ"], 1000, 8, 2),
+])
+def test_fit_recovers_the_true_process_fidelity(tmp_path, spec, target, shots, n_seeds, n_qubits):
+    # The spread σ of the estimate is measured from repeated simulations of the same
+    # channel; every estimate must lie within 4σ of the truth, and their mean within
+    # 4σ/√N (a bias far beyond the statistical error would fail). Seeds are fixed, so
+    # the test is deterministic.
+    values, truth = _fidelities(tmp_path, spec, target, shots=shots, seeds=range(n_seeds),
+                                n_qubits=n_qubits)
+    sigma = values.std(ddof=1)
+    assert 0 < sigma < 0.05
+    assert np.all(np.abs(values - truth) <= 4 * sigma), (values - truth, sigma)
+    assert abs(values.mean() - truth) <= 4 * sigma / np.sqrt(n_seeds), (values.mean() - truth, sigma)
+
+
+def test_bad_bootstrap_options_fail_before_the_fit(make_experiment, monkeypatch):
+    # a bad confidence level is reported at once, naming the option, before any fitting
+    import gatescope.pipeline as pipeline
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    called = []
+    monkeypatch.setattr(pipeline, "estimate", lambda *a, **k: called.append(1))
+    with pytest.raises(gs.InputError, match="ci_level"):
+        gs.fit(exp, "pls", bootstrap=10, ci_level=1.5)
+    with pytest.raises(gs.InputError, match="interval"):
+        gs.fit(exp, "pls", bootstrap=10, interval="magic")
+    assert not called

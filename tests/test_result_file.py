@@ -1,0 +1,244 @@
+"""The result file (gatescope.result_file; docs/file-formats.md, "Result file"): every
+group and attribute of the layout.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import importlib.util
+import itertools
+
+import gatescope as gs
+import h5py
+import numpy as np
+import pytest
+from gatescope.conventions import GATES
+from gatescope.synth.simulate import channel_from_spec, simulate_counts
+from support import simulated_experiment
+
+
+@pytest.fixture(scope="module")
+def cz_result(tmp_path_factory):
+    from support import simulated_experiment
+
+    folder = tmp_path_factory.mktemp("figs")
+    exp, true_choi = simulated_experiment(folder / "data", "CZ+zz:0.2+depolarizing:0.05",
+                                          shots=2000, seed=4)
+    diamond = importlib.util.find_spec("cvxpy") is not None
+    res = gs.fit(exp, "mle", diamond=diamond)
+    path = res.save(folder / "result.h5")
+    return res, path, true_choi, diamond
+
+
+@pytest.fixture(scope="module")
+def cz_fit(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("cz")
+    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
+    res = gs.fit(exp, "mle", seed=5)
+    path = res.save(folder / "out" / "result.h5")
+    return exp, res, path
+
+
+def text(value) -> str:
+    return value.decode("utf-8") if isinstance(value, bytes) else str(value)
+
+
+SQ = 1 / np.sqrt(2)
+
+
+KET = {"H": [1, 0], "V": [0, 1], "D": [SQ, SQ], "A": [SQ, -SQ], "R": [SQ, -1j * SQ], "L": [SQ, 1j * SQ]}
+
+
+def proj(label: str) -> np.ndarray:
+    """Product projector of a label like "HD" or "H D" (qubit 1 leftmost)."""
+    parts = label.split() if " " in label else list(label)
+    out = np.array([[1.0 + 0j]])
+    for p in parts:
+        v = np.asarray(KET[p], dtype=complex)
+        out = np.kron(out, np.outer(v, v.conj()))
+    return out
+
+
+def write_full_1q(folder, spec="H+amplitude-damping:0.1", shots=800, seed=3):
+    """A one-qubit six-state run with seconds, background and efficiency columns, its
+    counts drawn from the row model of docs/file-formats.md with those columns."""
+    folder.mkdir(parents=True, exist_ok=True)
+    channel = channel_from_spec(spec, 1)
+    rows = simulate_counts(channel, shots=shots, seed=seed)
+    rng = np.random.default_rng(seed)
+    lines = ["prep,meas,counts,seconds,background,efficiency"]
+    for k, (p, m, expected, _) in enumerate(rows):
+        seconds, background, efficiency = 1.0 + 0.5 * (k % 2), 0.25 * (k % 3), 0.9 + 0.05 * (k % 2)
+        n = rng.poisson(expected * seconds * efficiency + background)
+        lines.append(f"{p},{m},{n},{seconds},{background},{efficiency}")
+    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (folder / "experiment.toml").write_text(
+        'title = "one qubit with every column"\nqubits = 1\ntarget = "H"\ncounts = "counts.csv"\n',
+        encoding="utf-8")
+    return gs.read_experiment(folder / "experiment.toml")
+
+
+@pytest.fixture(scope="module")
+def full_1q(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("full")
+    exp = write_full_1q(folder / "data")
+    res = gs.fit(exp, "mle", bootstrap=12, seed=7, workers=1)
+    path = res.save(folder / "out" / "result.h5")
+    return exp, res, path
+
+
+PAULI = {"I": np.eye(2), "X": np.array([[0, 1], [1, 0]]), "Y": np.array([[0, -1j], [1j, 0]]),
+         "Z": np.diag([1.0, -1.0])}
+
+
+def paulis(n):
+    labels = ["".join(p) for p in itertools.product("IXYZ", repeat=n)]
+    ops = []
+    for lab in labels:
+        m = np.array([[1.0 + 0j]])
+        for c in lab:
+            m = np.kron(m, PAULI[c])
+        ops.append(m)
+    return ops
+
+
+def test_figures_extra_group_and_exact_round_trip(cz_result):
+    res, path, _, diamond = cz_result
+    with h5py.File(path, "r") as f:
+        extra = f["figures_extra"]
+        assert extra["nearest_unitary"].dtype == np.complex128
+        np.testing.assert_array_equal(extra["nearest_unitary"][()], res.figure_details["nearest_unitary"])
+        assert extra["local_phases_after"].dtype == np.float64
+        label = extra.attrs["concurrence_input"]
+        assert (label.decode() if isinstance(label, bytes) else label) == "D D"
+        for name in ("unitarity", "process_fidelity_local_phases", "concurrence"):
+            assert f["figures"][name].shape == ()
+        assert ("diamond_distance" in f["figures"]) == diamond
+    back = gs.load_result(path)
+    assert set(back.figure_details) == set(res.figure_details)
+    for key, value in res.figure_details.items():
+        if isinstance(value, np.ndarray):
+            assert back.figure_details[key].dtype == value.dtype
+            np.testing.assert_array_equal(back.figure_details[key], value)
+        else:
+            assert back.figure_details[key] == value and type(back.figure_details[key]) is type(value)
+    assert list(back.figures) == list(res.figures)
+    assert [f.value for f in back.figures.values()] == [f.value for f in res.figures.values()]
+
+
+def test_root_attributes(cz_fit):
+    _, _, path = cz_fit
+    with h5py.File(path, "r") as f:
+        assert text(f.attrs["format"]) == "gatescope.result"
+        assert int(f.attrs["format_version"]) == 1
+        created = dt.datetime.fromisoformat(text(f.attrs["created_utc"]))
+        assert created.utcoffset() == dt.timedelta(0)
+        assert abs((dt.datetime.now(dt.timezone.utc) - created).total_seconds()) < 24 * 3600
+
+
+def test_input_group(full_1q):
+    exp, _, path = full_1q
+    toml_bytes = exp.path.read_bytes()
+    csv_bytes = exp.counts_path.read_bytes()
+    csv_rows = [line.split(",") for line in csv_bytes.decode("utf-8").splitlines()[1:]]
+    with h5py.File(path, "r") as f:
+        ds = f["input/experiment_toml"]
+        assert h5py.check_string_dtype(ds.dtype) is not None
+        assert text(ds[()]) == toml_bytes.decode("utf-8")
+        assert text(ds.attrs["sha256"]) == hashlib.sha256(toml_bytes).hexdigest()
+        counts = f["input/counts"]
+        assert text(counts.attrs["sha256"]) == hashlib.sha256(csv_bytes).hexdigest()
+        for name in ("prep", "meas"):
+            assert h5py.check_string_dtype(counts[name].dtype).encoding == "utf-8"
+        assert [text(x) for x in counts["prep"][()]] == [r[0] for r in csv_rows]
+        assert [text(x) for x in counts["meas"][()]] == [r[1] for r in csv_rows]
+        assert counts["counts"].dtype == np.int64
+        assert counts["counts"][()].tolist() == [int(r[2]) for r in csv_rows]
+        for k, name in enumerate(("seconds", "background", "efficiency"), start=3):
+            assert counts[name].dtype == np.float64, name
+            assert counts[name][()].tolist() == [float(r[k]) for r in csv_rows], name
+        for name in ("prep_index", "meas_index"):
+            assert counts[name].dtype == np.int64
+        # each row's index points at the state of its label
+        prep_states = f["model/prep_states"][()]
+        meas_effects = f["model/meas_effects"][()]
+        for row, pi, mi in zip(csv_rows, counts["prep_index"][()], counts["meas_index"][()]):
+            np.testing.assert_allclose(prep_states[pi], proj(row[0]), atol=1e-15)
+            np.testing.assert_allclose(meas_effects[mi], proj(row[1]), atol=1e-15)
+
+
+def test_model_and_estimate_groups(cz_fit):
+    exp, res, path = cz_fit
+    d = 4
+    with h5py.File(path, "r") as f:
+        ps, me = f["model/prep_states"], f["model/meas_effects"]
+        assert ps.dtype == np.complex128 and ps.shape == (36, d, d)
+        assert me.dtype == np.complex128 and me.shape == (36, d, d)
+        est = f["estimate"]
+        assert est["choi"].dtype == np.complex128 and est["choi"].shape == (d * d, d * d)
+        assert est["chi"].dtype == np.complex128 and est["chi"].shape == (d * d, d * d)
+        assert est["ptm"].dtype == np.float64 and est["ptm"].shape == (d * d, d * d)
+        for key in ("method", "converged", "iterations", "log_likelihood", "stop_reason", "seconds"):
+            assert key in est.attrs, key
+        assert text(est.attrs["method"]) == "mle"
+        assert bool(est.attrs["converged"]) is True
+        assert int(est.attrs["iterations"]) >= 1
+        assert float(est.attrs["seconds"]) >= 0
+        assert text(est.attrs["stop_reason"])
+        J = est["choi"][()]
+        chi = est["chi"][()]
+        ptm = est["ptm"][()]
+    # chi and PTM in the conventions of docs/conventions.md, recomputed from the stored Choi matrix:
+    # |P>> = Σ_i |i> ⊗ P|i>, χ_mn = <<P_m|J|P_n>>/d², R_ij = Tr[(P_j^T ⊗ P_i) J]/d
+    ops = paulis(2)
+    vecs = np.array([P.T.reshape(-1) for P in ops]).T
+    np.testing.assert_allclose(chi, vecs.conj().T @ J @ vecs / d**2, atol=1e-13)
+    ref_ptm = np.array([[np.trace(np.kron(Pj.T, Pi) @ J).real / d for Pj in ops] for Pi in ops])
+    np.testing.assert_allclose(ptm, ref_ptm, atol=1e-13)
+
+
+def test_figures_group(cz_fit):
+    _, res, path = cz_fit
+    d = 4
+    with h5py.File(path, "r") as f:
+        figs = f["figures"]
+        for name in ("process_fidelity", "average_gate_fidelity", "purity", "trace"):
+            assert figs[name].shape == () and figs[name].dtype == np.float64, name
+        J = f["estimate/choi"][()]
+        v = GATES["CZ"].T.reshape(-1)
+        f_pro = np.vdot(v, J @ v).real / d**2
+        assert float(figs["process_fidelity"][()]) == pytest.approx(f_pro, abs=1e-14)
+        assert float(figs["average_gate_fidelity"][()]) == pytest.approx((d * f_pro + 1) / (d + 1), abs=1e-12)
+        assert float(figs["purity"][()]) == pytest.approx(np.vdot(J, J).real / d**2, abs=1e-12)
+        assert float(figs["trace"][()]) == pytest.approx(np.trace(J).real / d, abs=1e-12)
+        assert "ci_low" not in figs["process_fidelity"].attrs      # no bootstrap in this fit
+
+
+def test_figures_carry_intervals_and_bootstrap_group(full_1q):
+    _, res, path = full_1q
+    with h5py.File(path, "r") as f:
+        ds = f["figures/process_fidelity"]
+        low, high, level = (float(ds.attrs[k]) for k in ("ci_low", "ci_high", "ci_level"))
+        assert level == 0.95
+        assert low <= high
+        b = f["bootstrap"]
+        names = [text(x) for x in b["figures"].attrs["names"]]
+        assert b["figures"].dtype == np.float64 and b["figures"].shape == (12, len(names))
+        assert "process_fidelity" in names
+        assert text(b.attrs["kind"]) in ("parametric", "nonparametric")
+        assert int(b.attrs["seed"]) == 7 and int(b.attrs["samples"]) == 12
+        values = b["figures"][()][:, names.index("process_fidelity")]
+    assert np.all((values > 0) & (values <= 1))
+    assert (low, high) == res.figures["process_fidelity"].ci
+
+
+def test_diagnostics_group_shapes(cz_fit):
+    exp, _, path = cz_fit
+    with h5py.File(path, "r") as f:
+        dg = f["diagnostics"]
+        for name in ("expected_counts", "pearson_residuals", "deviance_residuals"):
+            assert dg[name].shape == (exp.n_rows,) and dg[name].dtype == np.float64, name
+        assert "chi2" in dg.attrs and "dof" in dg.attrs
+        # 1296 rows − 240 process parameters − 36 intensities
+        assert int(dg.attrs["dof"]) == 1296 - 240 - 36
