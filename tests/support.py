@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import numpy as np
+
 from gatescope.reader import read_experiment
-from gatescope.synth.simulate import (
-    channel_from_spec,
-    simulate_counts,
-    write_experiment,
-)
+from gatescope.synth.noise import build_channel
+from gatescope.synth.simulate import Channel, channel_from_spec, simulate_counts, write_experiment
+
+#: Counts per second a lossless gate gives in one complete analyser basis, in the
+#: postselected experiments below.
+POSTSELECTED_RATE = 9000.0
 
 
 def simulated_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int = 1,
@@ -25,3 +28,58 @@ def simulated_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int 
         rows = [(p, m, e, int(round(e))) for p, m, e, _ in rows]
     path = write_experiment(folder, channel, rows, title=f"test {spec}")
     return read_experiment(path), channel.choi
+
+
+def postselected_experiment(folder, success, seed=5, noise=(("depolarizing", 0.05),),
+                            rate: float = POSTSELECTED_RATE, exact: bool = False):
+    """A CZ that succeeds with probability ``success``, Φ = success · (CZ + noise), as a
+    trace = "decreasing" experiment with a known input rate; returns (Experiment, Choi).
+
+    ``exact=True`` writes the expected counts rounded to whole numbers.
+    """
+    choi = success * build_channel("CZ", list(noise), 2)
+    channel = Channel(choi, 2, "CZ", "postselected CZ")
+    rows = simulate_counts(channel, shots=rate, seed=seed)
+    if exact:
+        rows = [(p, m, e, int(round(e))) for p, m, e, _ in rows]
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "counts.csv").write_text(
+        "prep,meas,counts\n" + "".join(f"{p},{m},{c}\n" for p, m, _, c in rows))
+    (folder / "experiment.toml").write_text(
+        'qubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\nnormalization = "global"\n'
+        f'trace = "decreasing"\ninput_rate = {rate}\n')
+    return read_experiment(folder / "experiment.toml"), choi
+
+
+def with_background(exp, truth, background, *, scale: float = 1e7):
+    """Rewrite ``exp``'s counts as the rounded expected counts scale·p + background with
+    a background column (the row model, README "Input"); returns the re-read Experiment."""
+    from gatescope.model import MeasurementModel
+
+    p = MeasurementModel(exp).forward(truth)
+    expected = scale * p + np.asarray(background, dtype=float)
+    lines = ["prep,meas,counts,background"]
+    for k in range(exp.n_rows):
+        lines.append(f"{exp.prep[k]},{exp.meas[k]},{int(round(expected[k]))},"
+                     f"{background[k]:.17g}")
+    exp.counts_path.write_text("\n".join(lines) + "\n")
+    return read_experiment(exp.path)
+
+
+def square_task(shared, item):
+    """A task for the parallel runner's tests: shared offset plus the item squared, and
+    the worker's pid."""
+    import os
+
+    return shared + item * item, os.getpid()
+
+
+def report_and_sleep(shared, item):
+    """A task that writes its worker's pid into the folder ``shared``, then sleeps."""
+    import os
+    import time
+    from pathlib import Path
+
+    Path(shared, f"worker-{os.getpid()}").write_text(str(os.getpid()))
+    time.sleep(120)
+    return item

@@ -255,3 +255,37 @@ def test_interval_choice_reaches_the_result(make_experiment):
     # Tibshirani 1993, §13.3), clipped to [0, 1]
     assert lo == pytest.approx(max(0.0, np.quantile(values, 0.025)), abs=1e-12)
     assert hi == pytest.approx(min(1.0, np.quantile(values, 0.975)), abs=1e-12)
+
+
+def test_a_bug_in_a_refit_is_not_swallowed(make_experiment, monkeypatch):
+    # only numerical failures the estimator signals (NumericalError, LinAlgError) are counted;
+    # a ValueError (say, of a shape bug) propagates
+    exp, _ = make_experiment(FULL_RANK, shots=300, seed=12)
+    model, point = _point(exp)
+
+    def broken(*args, **kw):
+        raise ValueError("operands could not be broadcast together")
+
+    monkeypatch.setattr(bs, "estimate", broken)
+    with pytest.raises(ValueError, match="broadcast"):
+        bs.run_bootstrap(model, point, exp.target, samples=4, seed=1, workers=1)
+
+
+def test_a_numerical_error_is_counted(make_experiment, monkeypatch):
+    from gatescope.errors import NumericalError
+
+    exp, _ = make_experiment(FULL_RANK, shots=300, seed=12)
+    model, point = _point(exp)
+    real = bs.estimate
+    calls = {"n": 0}
+
+    def sometimes(*args, **kw):
+        calls["n"] += 1
+        if calls["n"] == 2:
+            raise NumericalError("no starting point with a finite likelihood")
+        return real(*args, **kw)
+
+    monkeypatch.setattr(bs, "estimate", sometimes)
+    with pytest.warns(GatescopeWarning, match="1 of them raised"):
+        boot, _ = bs.run_bootstrap(model, point, exp.target, samples=4, seed=1, workers=1)
+    assert boot.errors == 1 and np.isnan(boot.figures[1]).all()

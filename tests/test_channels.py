@@ -1,4 +1,4 @@
-"""Channel representations and conversions (gatescope.channels; docs/conventions.md).
+"""Channel representations and conversions (gatescope.channels; the README's Conventions).
 
 Outside references for the same conversions (QuTiP, textbook values) are in
 tests/reference/; here: the conversions invert each other, and the index

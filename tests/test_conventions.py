@@ -1,4 +1,4 @@
-"""Labels, Pauli order, gates and wave plates (gatescope.conventions; docs/conventions.md)."""
+"""Labels, Pauli order, gates and wave plates (gatescope.conventions; the README's Conventions)."""
 
 from __future__ import annotations
 
@@ -25,7 +25,7 @@ def test_handedness_swaps_r_and_l_only():
     assert np.allclose(a["R"], b["L"]) and np.allclose(a["L"], b["R"])
     for alias in ("+i", "-i", "0", "1", "+", "-"):
         assert np.allclose(a[alias], b[alias])
-    # under the default sign +i is L and -i is R (docs/conventions.md)
+    # under the default sign +i is L and -i is R (the README's Conventions)
     assert np.allclose(a["+i"], a["L"]) and np.allclose(a["-i"], a["R"])
     with pytest.raises(ValueError):
         cv.builtin_states("left")

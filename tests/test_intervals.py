@@ -8,7 +8,6 @@ import gatescope as gs
 import numpy as np
 import pytest
 import scipy.stats
-from gatescope import bootstrap as bs
 from gatescope import intervals as iv
 from gatescope.merit import process_fidelity
 

@@ -136,3 +136,29 @@ def test_qubitwise_maps_equal_the_pair_table(make_experiment, rng, monkeypatch, 
     w = rng.normal(size=exp.n_rows)
     np.testing.assert_allclose(structured.adjoint(w), table.adjoint(w), atol=1e-10)
     assert np.vdot(structured.adjoint(w), j).real == pytest.approx(w @ structured.forward(j), rel=1e-10)
+
+
+def test_identifiability_of_an_incomplete_pair_table(make_experiment, monkeypatch):
+    # every preparation and every analyser present, but not every pair: the rank of the
+    # design restricted to the pairs present (dense path), or its bound (above the limit)
+    from gatescope import model as model_module
+    from gatescope import read_experiment
+
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=500, seed=2,
+                             prep=("H", "V", "D", "R"))
+    lines = exp.counts_path.read_text().splitlines()
+    # D is the only preparation with an X component (Pauli vectors H (1,0,0,1), V (1,0,0,-1),
+    # D (1,1,0,0), R (1,0,-1,0)); analysed in the Z basis only, it leaves the responses of
+    # the X and Y outputs to the X input, R[X,X] and R[Y,X], undetermined: rank 12 − 2
+    kept = [ln for ln in lines[1:] if not (ln.startswith("D,") and ln.split(",")[1] in "DARL")]
+    exp.counts_path.write_text("\n".join([lines[0]] + kept) + "\n")
+    exp = read_experiment(exp.path)
+    ident = MeasurementModel(exp).identifiability()
+    assert ident.prep_rank == 4 and ident.meas_rank == 3
+    assert ident.rank == 10 and not ident.complete
+    with pytest.warns(gs.GatescopeWarning, match="pairs present determine only 10 of 12"):
+        MeasurementModel(exp).warn_if_undetermined()
+    monkeypatch.setattr(model_module, "DENSE_RANK_MAX_PARAMETERS", 0)
+    bound = MeasurementModel(exp).identifiability()
+    present = int((MeasurementModel(exp).pairs_present() > 0).sum())
+    assert present == 20 and bound.rank == min(4 * 3, present)

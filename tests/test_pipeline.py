@@ -115,3 +115,13 @@ def test_bad_bootstrap_options_fail_before_the_fit(make_experiment, monkeypatch)
     with pytest.raises(gs.InputError, match="interval"):
         gs.fit(exp, "pls", bootstrap=10, interval="magic")
     assert not called
+
+
+def test_unknown_method_or_estimator_option_is_an_input_error(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    with pytest.raises(gs.InputError, match="unknown method 'svd'"):
+        gs.fit(exp, "svd")
+    with pytest.raises(gs.InputError, match="no option 'tolerance'"):
+        gs.fit(exp, "mle", tolerance=1e-6)
+    with pytest.raises(gs.InputError, match="no option 'opt_tol'"):
+        gs.fit(exp, "lin", opt_tol=1e-6)

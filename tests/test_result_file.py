@@ -189,7 +189,7 @@ def test_model_and_estimate_groups(cz_fit):
         J = est["choi"][()]
         chi = est["chi"][()]
         ptm = est["ptm"][()]
-    # chi and PTM in the conventions of docs/conventions.md, recomputed from the stored Choi matrix:
+    # chi and PTM in the README's conventions, recomputed from the stored Choi matrix:
     # |P>> = Σ_i |i> ⊗ P|i>, χ_mn = <<P_m|J|P_n>>/d², R_ij = Tr[(P_j^T ⊗ P_i) J]/d
     ops = paulis(2)
     vecs = np.array([P.T.reshape(-1) for P in ops]).T
@@ -242,3 +242,31 @@ def test_diagnostics_group_shapes(cz_fit):
         assert "chi2" in dg.attrs and "dof" in dg.attrs
         # 1296 rows − 240 process parameters − 36 intensities
         assert int(dg.attrs["dof"]) == 1296 - 240 - 36
+
+
+@pytest.mark.parametrize("attr, value, words", [
+    ("format", "someone.else", "not a gatescope.result file"),
+    ("format_version", 99, "format_version 99 is not supported"),
+])
+def test_files_of_another_format_or_version_are_refused(cz_fit, tmp_path, attr, value, words):
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r+") as f:
+        f.attrs[attr] = value
+    with pytest.raises(gs.InputError, match=words):
+        gs.load_result(path)
+
+
+def test_a_file_that_is_not_hdf5_is_refused(tmp_path):
+    path = tmp_path / "r.h5"
+    path.write_text("prep,meas,counts\n")
+    with pytest.raises(gs.InputError, match="not an HDF5 file"):
+        gs.load_result(path)
+    with pytest.raises(gs.InputError, match="file not found"):
+        gs.load_result(tmp_path / "missing.h5")
+
+
+def test_origin_is_recorded(cz_fit):
+    _, _, path = cz_fit
+    with h5py.File(path) as f:
+        assert text(f.attrs["origin"]) == "fit"

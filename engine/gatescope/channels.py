@@ -1,6 +1,6 @@
 """Representations of quantum channels and conversions between them.
 
-Conventions (docs/conventions.md), for a channel Φ on d = 2^n dimensions:
+Conventions (the README's Conventions), for a channel Φ on d = 2^n dimensions:
 
 * Choi matrix ``J = Σ_ij |i><j| ⊗ Φ(|i><j|)``: input factor first, output
   second, ``Tr J = d``; trace preserving ⇔ ``Tr_out J = I_d``. In index

@@ -1,6 +1,6 @@
 """Conventions of gatescope: states, labels, Pauli order, gates, wave plates.
 
-Everything here is stated in docs/conventions.md (and summarised in the README):
+Everything here is stated in the README's Conventions:
 
 * Qubit 1 is the leftmost tensor factor and the most significant bit.
 * ``H`` = |0>, ``V`` = |1>, ``D`` = (H+V)/√2, ``A`` = (H−V)/√2,
@@ -196,7 +196,7 @@ GATE_NAMES = tuple(GATES)
 
 
 def named_gate(name: str) -> np.ndarray:
-    """The unitary of a named gate (docs/conventions.md); a copy the caller may edit."""
+    """The unitary of a named gate (the README's Conventions); a copy the caller may edit."""
     try:
         return GATES[name].copy()
     except KeyError:

@@ -347,7 +347,7 @@ class Runner:
         futures = [self._client.submit(_run_chunk_dask, task, self._shared_future, c, pure=False)
                    for c in chunks]
         try:
-            for fut in as_completed(futures):
+            for fut in as_completed(futures, loop=self._client.loop):
                 yield from fut.result()
         finally:
             self._client.cancel([f for f in futures if not f.done()])

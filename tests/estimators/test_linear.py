@@ -17,3 +17,34 @@ def test_lin_is_trace_preserving_and_reports_its_negativity(make_experiment):
     np.testing.assert_allclose(partial_trace_output(fit.choi), np.eye(4), atol=1e-12)
     assert fit.info["min_eigenvalue"] < 0
     assert fit.info["min_eigenvalue"] == pytest.approx(np.linalg.eigvalsh(fit.choi)[0], abs=1e-12)
+
+
+def test_lsqr_path_equals_the_dense_solution(make_experiment, monkeypatch):
+    # an incomplete, uneven table of (prep, meas) pairs is solved densely up to
+    # linear._DENSE_LIMIT entries and by LSQR above it: both are the same least squares
+    from gatescope.estimators import linear
+
+    exp, _ = make_experiment("CZ+depolarizing:0.1", shots=800, seed=3)
+    keep = np.random.default_rng(5).random(exp.n_rows) < 0.8
+    lines = exp.counts_path.read_text().splitlines()
+    exp.counts_path.write_text("\n".join([lines[0]] + [ln for ln, k in zip(lines[1:], keep) if k]
+                                         + lines[1:40]) + "\n")       # some rows twice
+    from gatescope import read_experiment
+
+    exp = read_experiment(exp.path)
+    model = MeasurementModel(exp)
+    dense = estimate(model, "lin")
+    monkeypatch.setattr(linear, "_DENSE_LIMIT", 0)
+    iterative = estimate(model, "lin")
+    # LSQR stops at atol = btol = 1e-14; the solutions agree far below the statistical error
+    np.testing.assert_allclose(iterative.choi, dense.choi, atol=1e-9)
+
+
+def test_pls_is_the_projection_of_lin(make_experiment):
+    from gatescope.projection import project_cptp
+
+    exp, _ = make_experiment("CNOT", shots=50, seed=2)
+    model = MeasurementModel(exp)
+    lin, pls = estimate(model, "lin"), estimate(model, "pls")
+    np.testing.assert_allclose(pls.choi, project_cptp(lin.choi).choi, atol=1e-10)
+    assert pls.info["lin_min_eigenvalue"] == lin.info["min_eigenvalue"]

@@ -30,7 +30,7 @@ def random_unitary(d, seed):
 
 
 def kraus_channel(kraus):
-    """Choi matrix Σ_ij |i><j| ⊗ Φ(|i><j|) built entry by entry (docs/conventions.md), not from the package."""
+    """Choi matrix Σ_ij |i><j| ⊗ Φ(|i><j|) built entry by entry (the README's Conventions), not from the package."""
     d = kraus[0].shape[1]
     J = np.zeros((d * d, d * d), dtype=complex)
     for i, j in itertools.product(range(d), repeat=2):

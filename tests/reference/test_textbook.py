@@ -189,7 +189,7 @@ def test_process_fidelity_cnot_followed_by_target_rz():
 
 
 # --------------------------------------------------------------------------
-# Wave plates (Jones calculus of docs/conventions.md) and dephasing
+# Wave plates (Jones calculus of the README's Conventions) and dephasing
 # --------------------------------------------------------------------------
 
 def test_half_wave_plate_at_zero_is_pauli_z():
@@ -213,7 +213,7 @@ def test_half_wave_plate_at_22_5_turns_h_into_d():
 
 def test_quarter_wave_plate_at_45_turns_h_into_right_circular():
     # Common practice: a quarter-wave plate at 45° makes circular light from H;
-    # with the default handedness R = (H − iV)/√2 (docs/conventions.md) it is R.
+    # with the default handedness R = (H − iV)/√2 (the README's Conventions) it is R.
     out = quarter_wave(np.radians(45.0)) @ KET["H"]
     assert same_ray(out, KET["R"])
     assert not same_ray(out, KET["L"])

@@ -11,23 +11,9 @@ from gatescope.synth.noise import build_channel
 from gatescope.estimators import estimate
 from gatescope.model import MeasurementModel
 from gatescope.projection import project_cptni
-from gatescope.synth.simulate import Channel, simulate_counts
+from support import POSTSELECTED_RATE, postselected_experiment
 
-RATE = 9000.0   # counts per second a lossless gate would give in one complete analyser basis
-
-
-def postselected_experiment(folder, success, seed=5, noise=(("depolarizing", 0.05),)):
-    """A CZ that succeeds with probability `success`: Φ = success · (CZ + noise)."""
-    choi = success * build_channel("CZ", list(noise), 2)
-    channel = Channel(choi, 2, "CZ", "postselected CZ")
-    rows = simulate_counts(channel, shots=RATE, seed=seed)
-    folder.mkdir(parents=True, exist_ok=True)
-    (folder / "counts.csv").write_text(
-        "prep,meas,counts\n" + "".join(f"{p},{m},{c}\n" for p, m, _, c in rows))
-    (folder / "experiment.toml").write_text(
-        'qubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\nnormalization = "global"\n'
-        f'trace = "decreasing"\ninput_rate = {RATE}\n')
-    return gs.read_experiment(folder / "experiment.toml"), choi
+RATE = POSTSELECTED_RATE
 
 
 def test_postselected_cz_success_one_ninth(tmp_path):
@@ -41,7 +27,7 @@ def test_postselected_cz_success_one_ninth(tmp_path):
     # physical: completely positive and trace non-increasing
     assert np.linalg.eigvalsh(res.choi)[0] >= -1e-10
     assert np.linalg.eigvalsh(partial_trace_output(res.choi)).max() <= 1 + 1e-10
-    # F_avg for a trace-decreasing map uses Tr J/d (docs/conventions.md)
+    # F_avg for a trace-decreasing map uses Tr J/d (the README's Conventions)
     f = res.figures
     d = 4
     assert f["average_gate_fidelity"].value == pytest.approx(

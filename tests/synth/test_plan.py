@@ -1,5 +1,5 @@
 """The run sheet (`gatescope plan`): every listed state comes back from its
-plate angles through a Jones model written here from docs/conventions.md, independently of
+plate angles through a Jones model written here from the README's Conventions, independently of
 `gatescope.conventions`.
 """
 
@@ -18,7 +18,7 @@ from gatescope.synth.plan import plate_angles, run_sheet, sheet_text, write_run_
 
 def plate(theta_deg, delta_deg):
     """W(θ, δ) = Rot(−θ)·diag(e^{−iδ/2}, e^{iδ/2})·Rot(θ), Rot(θ) = [[c, s], [−s, c]]
-    (docs/conventions.md; the Jones matrix of a linear retarder, common practice, e.g. Hecht, Optics)."""
+    (the README's Conventions; the Jones matrix of a linear retarder, common practice, e.g. Hecht, Optics)."""
     t, dl = np.radians(theta_deg), np.radians(delta_deg)
     c, s = np.cos(t), np.sin(t)
     rot = lambda c, s: np.array([[c, s], [-s, c]], dtype=complex)   # noqa: E731
@@ -34,7 +34,7 @@ H = np.array([1, 0], dtype=complex)
 V = np.array([0, 1], dtype=complex)
 
 
-# docs/conventions.md states; R and L under each handedness option, +i and -i under both
+# the README's states; R and L under each handedness option, +i and -i under both
 KETS = {
     "H-iV": {"H": H, "V": V, "D": SQ * (H + V), "A": SQ * (H - V), "R": SQ * (H - 1j * V),
              "L": SQ * (H + 1j * V), "+i": SQ * (H + 1j * V), "-i": SQ * (H - 1j * V)},
@@ -44,7 +44,7 @@ KETS = {
 
 
 def prepared(hwp, qwp):
-    """Source H, then the half-wave plate, then the quarter-wave plate (docs/conventions.md)."""
+    """Source H, then the half-wave plate, then the quarter-wave plate (the README's Conventions)."""
     return plate(qwp, 90) @ plate(hwp, 180) @ H
 
 

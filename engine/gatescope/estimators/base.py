@@ -14,7 +14,7 @@ class Fit:
     Attributes
     ----------
     method : str
-    choi : (d², d²) complex array, Choi matrix (docs/conventions.md)
+    choi : (d², d²) complex array, Choi matrix (the README's Conventions)
     intensities : (G,) array, fitted λ_g of every normalisation group
     log_likelihood : float
         Poisson log-likelihood Σ [n log ν − ν − log n!] at ``choi`` and

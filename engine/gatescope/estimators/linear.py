@@ -72,7 +72,7 @@ def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarr
         sol = np.linalg.lstsq(weight[:, None] * design, target, rcond=None)[0]
     else:
         def matvec(v):
-            table = e1 @ v.reshape(n_free, d2) @ r.T
+            table = r @ v.reshape(n_free, d2).T @ e1.T          # [p, m], as the pair index
             return weight * table.reshape(-1)[q]
 
         def rmatvec(u):

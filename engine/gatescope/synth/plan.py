@@ -2,7 +2,7 @@
 
 One row per (preparation, analyser projector) pair of a complete product
 set, with the wave-plate angles that set it on every qubit. The optics are
-those of docs/conventions.md: the preparation of each qubit is the source's H light
+those of the README's Conventions: the preparation of each qubit is the source's H light
 through a half-wave plate, then a quarter-wave plate; the analysis is a
 quarter-wave plate, then a half-wave plate, then a polariser passing H. A
 plate with fast axis at θ from H is W(θ, δ) = Rot(−θ)·diag(e^{−iδ/2},
@@ -174,7 +174,7 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
         ``pauli6`` (H V D A R L per qubit), ``pauli4`` (H V D R) or a comma
         list of built-in single-qubit labels, applied to every qubit.
     right_circular : {"H-iV", "H+iV"}
-        Which state ``R`` means (docs/conventions.md).
+        Which state ``R`` means (the README's Conventions).
     seconds : float, optional
         Integration time of every row; adds the column ``seconds``.
 
