@@ -120,6 +120,12 @@ def limit_threads() -> None:
         os.environ[var] = "1"
     try:
         import numba
+        from numba.core import config
+
+        # numba read NUMBA_NUM_THREADS when it was imported (in a forkserver, before the
+        # variable was set); re-read it before its threads start, or the next compilation
+        # finds the variable and the running pool in disagreement and refuses to compile
+        config.reload_config()
         numba.set_num_threads(1)
     except (ImportError, ValueError, RuntimeError):    # numba's threading layer unavailable
         pass
