@@ -18,10 +18,10 @@ PACKAGE = Path(__file__).resolve().parents[1] / "engine" / "gatescope"
 TESTS = Path(__file__).resolve().parent
 
 #: The top level, in data-flow order (a module may import those before it).
-CORE = ["errors", "options", "fileio", "provenance", "progress", "parallel", "conventions",
+CORE = ["errors", "options", "fileio", "checksum", "provenance", "progress", "parallel", "conventions",
         "channels", "kernels", "reader", "model", "likelihood", "projection", "estimators",
-        "merit", "intervals", "bootstrap", "diagnostics", "result_file", "result", "pipeline",
-        "summary", "__init__"]
+        "merit", "intervals", "bootstrap", "diagnostics", "checks", "result_file", "result", "pipeline",
+        "summary", "export", "__init__"]
 #: Capabilities, in the order they may build on each other.
 CAPABILITIES = ["synth"]
 #: The entry points, above everything.

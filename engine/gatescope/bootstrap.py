@@ -43,13 +43,12 @@ default, ``normal``, and why).
 from __future__ import annotations
 
 import time
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
 from .channels import choi_to_chi, choi_to_ptm
-from .errors import GatescopeWarning, InputError, NumericalError
+from .errors import InputError, NumericalError, warn
 from .estimators import Fit, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL, INTERVALS
@@ -161,6 +160,8 @@ class Refitter:
                            **self.options)
         except (NumericalError, np.linalg.LinAlgError) as exc:
             return {"ok": False, "error": f"{type(exc).__name__}: {exc}"}
+        if not np.all(np.isfinite(fit.choi)):
+            return {"ok": False, "error": "the refit's estimate is not finite"}
         figs = compute_figures(fit.choi, self.target)
         return {"ok": True, "converged": bool(fit.converged),
                 "figures": np.array([figs[name] for name in self.names], dtype=float),
@@ -354,7 +355,7 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     if message:
         if errors:
             message += f" (first error: resample {errors[0][0]}: {errors[0][1]})"
-        warnings.warn(message, GatescopeWarning, stacklevel=2)
+        warn("refits", message, stacklevel=2)
     # Near the boundary the refits of an mle sit below it by more than their spread even
     # when the estimate itself is nearly unbiased (the resampled world is purer than the
     # real one); the normal interval does not use that bias and keeps its coverage
@@ -365,10 +366,10 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
         listed = "; ".join(f"{n} (bias {b:+.2g}, spread {sp:.2g})" for n, b, sp in biased)
         advice = (" the mle estimator is much less biased near pure processes" if method != "mle"
                   else " more counts reduce it")
-        warnings.warn(f"the bootstrap shows a bias larger than the spread for {listed}: the "
-                      f"estimate sits at the boundary of the physical set or the estimator is "
-                      f"strongly biased here, and the intervals of these figures may not reach "
-                      f"their level;{advice}", GatescopeWarning, stacklevel=2)
+        warn("bias", f"the bootstrap shows a bias larger than the spread for {listed}: the "
+                     f"estimate sits at the boundary of the physical set or the estimator is "
+                     f"strongly biased here, and the intervals of these figures may not reach "
+                     f"their level;{advice}", stacklevel=2)
     boot = Bootstrap(figures=figures, names=names, kind=kind, seed=seed, samples=samples,
                      failures=failures, interval=interval, converged=converged, errors=n_errors,
                      choi_std=acc.std("choi"), chi_std=acc.std("chi"), ptm_std=acc.std("ptm").real,

@@ -2,8 +2,10 @@
 
 Data flow, one module a step: the experiment (`reader`) → its measurement
 model (`model`) → the estimate (`estimators`) → figures of merit (`merit`)
-→ error bars (`bootstrap`) → goodness of fit (`diagnostics`) → the
-`Result` (`result`). The command line calls exactly this function.
+→ error bars (`bootstrap`) → goodness of fit (`diagnostics`) → what the
+data and the estimate can claim (`checks`) → the `Result` (`result`). The
+command line calls exactly this function. Every warning raised on the way
+is kept in the result (``Result.warnings``).
 """
 
 from __future__ import annotations
@@ -12,7 +14,9 @@ import time
 
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
+from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
+from .errors import collect_warnings
 from .estimators import check_options as check_estimator_options
 from .estimators import estimate
 from .intervals import DEFAULT_INTERVAL
@@ -95,11 +99,24 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     check_fit_options(method=method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options)
+    with collect_warnings() as texts:
+        result = _fit(experiment, method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
+                      ci_level=ci_level, seed=seed, workers=workers, progress=progress,
+                      command_line=command_line, diamond=diamond, interval=interval,
+                      options=options)
+    result.warnings = tuple(texts)
+    return result
+
+
+def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
+         command_line, diamond, interval, options) -> Result:
     started = time.time()
     t0 = time.perf_counter()
     model = MeasurementModel(experiment)
-    ident = model.warn_if_undetermined()
+    rows = check_data(model)
+    ident = model.warn_if_undetermined(rows)
     point = estimate(model, method, **options)
+    verdict = assess_estimate(model, point, options)
     details = {}
     values = compute_figures(point.choi, experiment.target, diamond=diamond, details=details)
     boot = None
@@ -109,17 +126,22 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
-    if point.method == "mle":
+    no_signal = warn_about_fit(model, point, diag.dof, ident.rank)
+    if point.method == "mle" and verdict.physical and not no_signal:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²
         # reference even for a model that fits: the test is for the ML estimate only
         warn_if_poor_fit(diag)
+    undetermined = undetermined_figures(model, rows, ident, values, no_signal=no_signal)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.perf_counter() - t0)
     result = build_result(experiment, point.choi, values, details, method=point.method,
-                          converged=point.converged, iterations=point.iterations,
+                          converged=verdict.converged, iterations=point.iterations,
                           log_likelihood=point.log_likelihood, stop_reason=point.stop_reason,
                           seconds=point.seconds, intensities=point.intensities,
                           diagnostics=diag, provenance=prov)
+    result.status = verdict.status
+    for name in undetermined:
+        result.figures[name].determined = False
     if boot is not None:
         result.attach_bootstrap(boot, ci_level)
     return result

@@ -49,6 +49,10 @@ class Result:
     origin : "fit" for an estimate from data, "truth" for the true channel
         of a simulation (`gatescope.synth.simulate`), which has no fit to
         test and so no diagnostics
+    warnings : the text of every warning the fit raised, each starting with
+        its code in brackets (`gatescope.errors.WARNING_CODES`); /warnings
+    status : how the estimate ended, one of `gatescope.checks.STATUSES`
+        (None when unknown: a file written before it was recorded)
     """
 
     choi: np.ndarray
@@ -76,6 +80,8 @@ class Result:
     created_utc: str = field(default_factory=lambda: _dt.datetime.now(_dt.timezone.utc).isoformat())
     figure_details: dict = field(default_factory=dict)
     origin: str = "fit"
+    warnings: tuple = ()
+    status: str | None = None
 
     def save(self, path) -> Path:
         """Write the result file (docs/file-formats.md) to ``path`` atomically; returns the path."""
@@ -102,7 +108,8 @@ class Result:
 
 
 def counts_columns(exp: Experiment) -> dict:
-    """The CSV columns as read, plus each row's ``prep_index`` and ``meas_index``."""
+    """The CSV columns as read, plus each row's ``prep_index``, ``meas_index`` and ``line``
+    (its physical line in the CSV, header = line 1)."""
     cols = {"prep": np.array(exp.prep, dtype=object), "meas": np.array(exp.meas, dtype=object),
             "counts": np.asarray(exp.counts, dtype=np.int64)}
     for name in ("seconds", "background", "efficiency"):
@@ -112,6 +119,8 @@ def counts_columns(exp: Experiment) -> dict:
         cols["group"] = np.array(exp.group, dtype=object)
     cols["prep_index"] = np.asarray(exp.prep_index, dtype=np.int64)
     cols["meas_index"] = np.asarray(exp.meas_index, dtype=np.int64)
+    if exp.lines is not None:
+        cols["line"] = np.asarray(exp.lines, dtype=np.int64)
     return cols
 
 

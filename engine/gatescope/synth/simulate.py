@@ -23,16 +23,18 @@ from pathlib import Path
 
 import numpy as np
 
-from ..conventions import LABEL_SETS, builtin_states, density, kron_all, named_gate
+from ..conventions import LABEL_SETS, builtin_states, density, kron_all, n_qubits_of, named_gate
 from ..errors import InputError
 from ..fileio import atomic_write_text
 from ..likelihood import PoissonLikelihood
 from ..merit import compute_figures
 from ..model import MeasurementModel
+from ..options import whole
 from ..provenance import provenance
-from ..reader import read_experiment
+from ..reader import MAX_QUBITS, read_experiment
 from ..result import build_result
 from .noise import build_channel, parse_channel_spec, random_channel
+from .plan import MAX_ROWS
 
 
 @dataclass(frozen=True)
@@ -148,8 +150,10 @@ def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str 
     is the option a bad SPEC is blamed on. Returns the path of experiment.toml.
     """
     started = time.time()
+    whole(n_qubits, "--qubits", 1, MAX_QUBITS)
     try:
-        channel = channel_from_spec(spec, n_qubits)
+        gate, _, rnd = parse_channel_spec(spec)
+        size = n_qubits if rnd is not None else n_qubits_of(named_gate(gate).shape[0])
     except ValueError as exc:
         raise InputError(str(exc), key=spec_option) from None
     try:
@@ -160,6 +164,14 @@ def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str 
         meas_set = label_set(meas)
     except ValueError as exc:
         raise InputError(str(exc), key="--meas") from None
+    n_rows = (len(prep_set) * len(meas_set)) ** size
+    if n_rows > MAX_ROWS:
+        raise InputError(f"{size} qubits with these sets make {n_rows:,} rows (more than "
+                         f"{MAX_ROWS:,})", key="--qubits" if rnd is not None else spec_option)
+    try:
+        channel = channel_from_spec(spec, n_qubits)
+    except ValueError as exc:
+        raise InputError(str(exc), key=spec_option) from None
     if not (np.isfinite(shots) and shots > 0):
         raise InputError(f"must be a positive number, got {shots}", key="--shots")
     if seed is None:
