@@ -18,7 +18,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "engine" / "gatescope"
 TESTS = Path(__file__).resolve().parent
 
 #: The top level, in data-flow order (a module may import those before it).
-CORE = ["errors", "options", "fileio", "checksum", "provenance", "progress", "parallel", "conventions",
+CORE = ["errors", "options", "fileio", "checksum", "resources", "provenance", "progress", "parallel", "conventions",
         "channels", "kernels", "reader", "model", "likelihood", "projection", "estimators",
         "merit", "intervals", "bootstrap", "diagnostics", "checks", "result_file", "result", "pipeline",
         "summary", "export", "__init__"]

@@ -379,3 +379,35 @@ def tp_congruence(j, d, min_eigenvalue):
                 for row in range(n):
                     out[row, k * d + b] += tmp[row, kp * d + b] * mk
     return 0.5 * (out + out.conj().T)
+
+
+# --------------------------------------------------------------------------
+# Compilation: the first run compiles, later processes load numba's cache
+# --------------------------------------------------------------------------
+
+#: Every compiled kernel (numba compiles each at its first call, then caches it on disk).
+KERNELS = (group_intensities, poisson_terms, _dual_point, _newton_matrix_kernel, hermitian_solve,
+           project_cptp_kernel, tp_congruence)
+
+
+def cache_present() -> bool | None:
+    """Whether numba's on-disk cache holds every kernel for this source (so a first call
+    loads instead of compiling): True, False, or None when this numba does not say.
+
+    Reads the cache index the way numba does (its ``FunctionCache`` keeps no public
+    query); an index written for other source or another numba version counts as absent.
+    """
+    try:
+        for kernel in KERNELS:
+            if kernel.signatures:            # compiled or loaded in this process already
+                continue
+            if not kernel._cache._cache_file._load_index():
+                return False
+        return True
+    except (AttributeError, OSError, TypeError, ValueError):
+        return None
+
+
+def compiled_in_this_process() -> int:
+    """Kernel signatures compiled (not loaded from the cache) by this process so far."""
+    return sum(sum(kernel.stats.cache_misses.values()) for kernel in KERNELS)

@@ -99,6 +99,7 @@ class MeasurementModel:
         self.fixed_intensities = (np.array([float(experiment.input_rate)])
                                   if self.trace_decreasing else None)
         self._pair_multiplicity = np.bincount(self.pair_index, minlength=self.n_preps * self.n_meas)
+        self._pauli = None
         self.structured = self.n_qubits >= STRUCTURED_FROM_QUBITS
         if self.structured:
             self._setup_qubitwise(experiment)
@@ -177,13 +178,18 @@ class MeasurementModel:
         """Real Pauli vectors r_p[j] = Tr(ρ_p P_j) and e_m[i] = Tr(E_m P_i).
 
         In these coordinates p = (1/d) e_mᵀ R r_p, R the Pauli transfer matrix.
+        Computed once per model (a linear inversion asks for them at every pass).
         """
-        d = self.dim
-        # Tr(X P) = Σ X[a,b] P[b,a]
-        flat_t = pauli_basis(self.n_qubits).transpose(0, 2, 1).reshape(d * d, d * d)
-        r = (self.experiment.prep_states.reshape(self.n_preps, -1) @ flat_t.T).real
-        e = (self.experiment.meas_effects.reshape(self.n_meas, -1) @ flat_t.T).real
-        return r, e
+        if self._pauli is None:
+            d = self.dim
+            # Tr(X P) = Σ X[a,b] P[b,a]
+            flat_t = pauli_basis(self.n_qubits).transpose(0, 2, 1).reshape(d * d, d * d)
+            r = (self.experiment.prep_states.reshape(self.n_preps, -1) @ flat_t.T).real
+            e = (self.experiment.meas_effects.reshape(self.n_meas, -1) @ flat_t.T).real
+            r.setflags(write=False)
+            e.setflags(write=False)
+            self._pauli = (r, e)
+        return self._pauli
 
     def pairs_present(self, rows: np.ndarray | None = None) -> np.ndarray:
         """Multiplicity of every (prep, meas) pair in the rows (or in the rows selected by

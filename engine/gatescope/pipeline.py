@@ -10,7 +10,11 @@ is kept in the result (``Result.warnings``).
 
 from __future__ import annotations
 
+import sys
+import threading
 import time
+
+import numpy as np
 
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
@@ -19,10 +23,15 @@ from .diagnostics import diagnostics, warn_if_poor_fit
 from .errors import collect_warnings
 from .estimators import check_options as check_estimator_options
 from .estimators import estimate
+from . import kernels, resources
 from .intervals import DEFAULT_INTERVAL
+from .likelihood import PoissonLikelihood
 from .merit import compute_figures
 from .model import MeasurementModel
 from .options import flag, fraction, whole
+from .options import workers as check_workers
+from .parallel import single_threaded_blas
+from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
 from .reader import Experiment
 from .result import Result, build_result
@@ -70,7 +79,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     workers : int, optional
         Processes for the bootstrap (default: the machine's cores).
     progress : bool
-        Report the bootstrap's progress on stderr.
+        Report on stderr: the compilation of the numerical kernels on a first run
+        (`COMPILE_NOTICE`), and the bootstrap's progress.
     interval : {"normal", "percentile", "basic", "bc"}, optional
         Construction of the bootstrap intervals (default
         `gatescope.intervals.DEFAULT_INTERVAL`, "normal"; see
@@ -108,14 +118,61 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     return result
 
 
+#: The notice printed while the numerical kernels compile (README, "Known limitations").
+COMPILE_NOTICE = "compiling numerical kernels, first run only, about 20 s"
+#: Without a readable cache index, the notice appears when preparing takes longer than this.
+NOTICE_AFTER_SECONDS = 2.0
+
+
+def compile_kernels(model: MeasurementModel, *, notify: bool = True, stream=None) -> float | None:
+    """Compile (or load from numba's cache) every kernel a fit of ``model`` calls.
+
+    Called before the estimator, so that the estimator's ``seconds`` measure the fit
+    alone. With ``notify``, `COMPILE_NOTICE` goes to ``stream`` (stderr) first when the
+    kernels are not in the cache. Returns the seconds spent when something was
+    compiled, else None.
+    """
+    stream = sys.stderr if stream is None else stream
+    present = kernels.cache_present()
+    timer = None
+    if notify and present is False:
+        print(COMPILE_NOTICE, file=stream, flush=True)
+    elif notify and present is None:            # this numba does not say: tell if it is slow
+        timer = threading.Timer(NOTICE_AFTER_SECONDS,
+                                lambda: print(COMPILE_NOTICE, file=stream, flush=True))
+        timer.start()
+    before = kernels.compiled_in_this_process()
+    t0 = time.perf_counter()
+    try:
+        d2 = model.dim ** 2
+        identity = np.eye(d2, dtype=complex) / model.dim
+        PoissonLikelihood(model).evaluate(identity)
+        if model.dim <= KERNEL_MAX_DIM:
+            project_physical(model, identity)
+    finally:
+        if timer is not None:
+            timer.cancel()
+            timer.join()
+    seconds = time.perf_counter() - t0
+    return seconds if kernels.compiled_in_this_process() > before else None
+
+
 def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
          command_line, diamond, interval, options) -> Result:
     started = time.time()
     t0 = time.perf_counter()
+    if experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
+        need = resources.fit_estimate(experiment.n_qubits, experiment.n_rows,
+                                      bootstrap=bootstrap, workers=check_workers(workers))
+        if progress:
+            print(need.text(), file=sys.stderr, flush=True)
+        resources.check_fit(need, str(experiment.path))
     model = MeasurementModel(experiment)
+    compile_seconds = compile_kernels(model, notify=progress)
     rows = check_data(model)
     ident = model.warn_if_undetermined(rows)
-    point = estimate(model, method, **options)
+    with single_threaded_blas():          # small products: threads only oversubscribe
+        point = estimate(model, method, **options)
     verdict = assess_estimate(model, point, options)
     details = {}
     values = compute_figures(point.choi, experiment.target, diamond=diamond, details=details)
@@ -134,6 +191,8 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
     undetermined = undetermined_figures(model, rows, ident, values, no_signal=no_signal)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.perf_counter() - t0)
+    if compile_seconds is not None:
+        prov["compile_seconds"] = float(compile_seconds)
     result = build_result(experiment, point.choi, values, details, method=point.method,
                           converged=verdict.converged, iterations=point.iterations,
                           log_likelihood=point.log_likelihood, stop_reason=point.stop_reason,

@@ -27,6 +27,7 @@ from .conventions import (
 )
 from .errors import InputError
 from .options import suggestion
+from .resources import check_reading
 
 NORMALIZATIONS = ("per-preparation", "global", "per-group")
 TRACE_KINDS = ("preserving", "decreasing")
@@ -378,8 +379,10 @@ def _regular_file(path: Path, what: str, *, error=None) -> int:
     return info.st_size
 
 
-def _read_bytes(path: Path, what: str) -> bytes:
-    _regular_file(path, what)
+def _read_bytes(path: Path, what: str, *, guard_memory: bool = False) -> bytes:
+    size = _regular_file(path, what)
+    if guard_memory:
+        check_reading(size, _shown(path))
     try:
         return path.read_bytes()
     except OSError as exc:
@@ -568,7 +571,7 @@ def _state_tables(n_qubits, right_circular, custom):
 def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: dict,
                  normalization: str) -> dict:
     file = str(counts_path)
-    raw = _read_bytes(counts_path, "counts file")
+    raw = _read_bytes(counts_path, "counts file", guard_memory=True)
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
