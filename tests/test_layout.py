@@ -118,7 +118,7 @@ NO_OWN_TESTS = {
                           "of every estimator's Fit",
 }
 #: Test modules that are not the mirror of one module (beside reference/ and scenarios/).
-EXTRA_TESTS = {"estimators/test_battery.py", "test_layout.py"}
+EXTRA_TESTS = {"estimators/test_battery.py", "test_layout.py", "test_fuzz.py"}
 
 
 def test_every_module_has_its_test_module():

@@ -29,6 +29,7 @@ from .likelihood import PoissonLikelihood
 from .merit import compute_figures
 from .model import MeasurementModel
 from .options import flag, fraction, whole
+from .options import seed as check_seed
 from .options import workers as check_workers
 from .parallel import single_threaded_blas
 from .projection import KERNEL_MAX_DIM, project_physical
@@ -49,6 +50,8 @@ def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
     check_estimator_options(method, options or {}, key=name("method"))
     bootstrap = whole(bootstrap, name("bootstrap"), 0)
     fraction(ci_level, name("ci_level"))
+    check_seed(seed, name("seed"))            # recorded even without a bootstrap
+    check_workers(workers, name("workers"))
     if bootstrap:
         check_bootstrap_options(
             samples=bootstrap, kind=bootstrap_kind, workers=workers,

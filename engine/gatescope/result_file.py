@@ -13,6 +13,7 @@ import cycle.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import h5py
@@ -22,6 +23,7 @@ from . import checksum
 from .bootstrap import Bootstrap
 from .diagnostics import Diagnostics
 from .errors import InputError
+from .estimators import METHODS
 from .fileio import atomic_path
 from .intervals import Figure
 from .conventions import pauli_labels
@@ -341,6 +343,8 @@ class _Checked:
         value = raw.decode("utf-8", "replace") if isinstance(raw, bytes) else raw
         if isinstance(value, np.generic):
             value = value.item()
+        if kind in (str, bool, int, float) and isinstance(value, np.ndarray):
+            raise _Damaged(where, f"is an array of {value.size} values, expected one")
         if kind is str:
             if not isinstance(value, str):
                 raise _Damaged(where, f"is {value!r}, expected text")
@@ -455,7 +459,21 @@ def _read(c: _Checked, verify: bool) -> dict:
         if m.shape != (d2, d2):
             raise _Damaged(f"/estimate/{name}", f"has shape {m.shape}, the Choi matrix {choi.shape}")
     intensities = c.array("/estimate/intensities", "f", 1)
+    if intensities.size == 0 or np.any(intensities < 0):
+        raise _Damaged("/estimate/intensities", "must hold one non-negative intensity per group")
     method = c.attr("/estimate", "method", str)
+    if method not in METHODS + ("truth",):
+        raise _Damaged("/estimate/@method", f"is {method!r}, not a method of this gatescope "
+                                            f"({', '.join(METHODS)}, or truth)")
+    iterations = c.attr("/estimate", "iterations", int)
+    if iterations < 0:
+        raise _Damaged("/estimate/@iterations", f"is {iterations}, expected a count")
+    hashes = {}
+    for where, part in (("toml", "/input/experiment_toml"), ("csv", "/input/counts")):
+        value = c.attr(part, "sha256", str)
+        if not re.fullmatch(r"[0-9a-f]{64}", value):
+            raise _Damaged(f"{part}/@sha256", f"is {value!r}, not a SHA-256 in hexadecimal")
+        hashes[where] = value
 
     # -- the input
     counts = {}
@@ -503,13 +521,19 @@ def _read(c: _Checked, verify: bool) -> dict:
     names = list(c.node("/figures", h5py.Group))
     for name in sorted(names, key=lambda n: (order.get(n, len(order)), n)):
         where = f"/figures/{name}"
-        value = c.array(where, "iuf", 0, finite=False)
+        value = c.array(where, "iuf", 0)
         ci = level = None
         if c.attr(where, "ci_low", float, None) is not None:
             ci = (c.attr(where, "ci_low", float), c.attr(where, "ci_high", float))
             level = c.attr(where, "ci_level", float)
         figures[name] = Figure(float(value), ci, level,
                                determined=c.attr(where, "determined", bool, True))
+
+    required = ("purity", "trace", "min_eigenvalue") + (
+        ("process_fidelity", "average_gate_fidelity") if target is not None else ())
+    for name in required:
+        if name not in figures:
+            raise _Damaged(f"/figures/{name}", "missing")
 
     # -- bootstrap
     boot = None
@@ -578,12 +602,12 @@ def _read(c: _Checked, verify: bool) -> dict:
     return dict(
         choi=choi, chi=chi, ptm=ptm, figures=figures, method=method,
         converged=c.attr("/estimate", "converged", bool),
-        iterations=c.attr("/estimate", "iterations", int),
+        iterations=iterations,
         log_likelihood=c.attr("/estimate", "log_likelihood", float),
         stop_reason=c.attr("/estimate", "stop_reason", str),
         seconds=c.attr("/estimate", "seconds", float), intensities=intensities,
         diagnostics=diagnostics, provenance=prov, experiment_toml=experiment_toml,
-        toml_sha256=c.attr(toml_ds, "sha256", str), csv_sha256=c.attr("/input/counts", "sha256", str),
+        toml_sha256=hashes["toml"], csv_sha256=hashes["csv"],
         counts_columns=counts, prep_states=prep_states, meas_effects=meas_effects,
         target=target, target_name=target_name, bootstrap=boot,
         created_utc=c.attr("/", "created_utc", str), figure_details=details, origin=origin,
