@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import subprocess
+import warnings
 import sys
 
 import gatescope as gs
@@ -223,3 +224,19 @@ def _alive(pid):
             return fh.read().split()[2] != "Z"
     except OSError:
         return False
+
+
+def test_demo_says_what_it_replaces(tmp_path, monkeypatch, capsys):
+    # the demo writes gatescope-demo/result.h5 in the working folder; a second run says
+    # that it replaces the first one's (a fast estimator stands in for the demo's fit)
+    from gatescope import pipeline
+
+    real = pipeline.fit
+    monkeypatch.setattr(pipeline, "fit", lambda exp, *a, **k: real(exp, "lin"))
+    monkeypatch.chdir(tmp_path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        assert main(["demo"]) == 0
+        assert "replacing" not in capsys.readouterr().err
+        assert main(["demo"]) == 0
+    assert "demo: replacing gatescope-demo/result.h5" in capsys.readouterr().err
