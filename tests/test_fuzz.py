@@ -109,7 +109,9 @@ def m_toml_syntax(rng, rows):
 
 
 def m_counts_path(rng, rows):
-    target = rng.choice(["missing.csv", "/dev/zero", "/dev/null", ".", "coun\\u0000ts.csv", "", " "])
+    # (/dev/zero and a FIFO are in test_reader.py, in a child process with limits: a
+    # regression there would fill the memory or hang)
+    target = rng.choice(["missing.csv", "/dev/null", ".", "coun\\u0000ts.csv", "", " "])
     return GOOD_TOML.replace('counts = "counts.csv"', f'counts = "{target}"'), join(rows), []
 
 

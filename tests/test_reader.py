@@ -406,20 +406,33 @@ def test_a_target_file_that_is_not_a_numeric_matrix_is_an_input_error(tmp_path, 
 
 @pytest.mark.parametrize("kind", ["fifo", "device", "folder"])
 def test_data_paths_that_are_not_regular_files_are_refused_without_reading(tmp_path, kind):
+    # reproducers: a FIFO as counts file hung for ever, /dev/zero filled the memory. The
+    # read runs in a child process with a memory limit and a time limit, so that a
+    # regression fails this test instead of hanging the suite or the machine.
     import os
 
     if kind == "fifo":
-        os.mkfifo(tmp_path / "counts.csv")           # reading it would block for ever
+        os.mkfifo(tmp_path / "counts.csv")
         name = "counts.csv"
     elif kind == "device":
-        name = "/dev/zero"                            # reading it would never end
+        name = "/dev/zero"
     else:
         (tmp_path / "counts.csv").mkdir()
         name = "counts.csv"
     path = write_case(tmp_path, f'qubits = 1\ncounts = "{name}"\n', None)
-    with pytest.raises(gs.InputError) as info:
-        gs.read_experiment(path)
-    assert "folder" in str(info.value) if kind == "folder" else "not a regular file" in str(info.value)
+    script = ("import resource, sys\n"
+              "resource.setrlimit(resource.RLIMIT_AS, (2 << 30, 2 << 30))\n"
+              "import gatescope as gs\n"
+              "try:\n    gs.read_experiment(sys.argv[1])\n"
+              "except gs.InputError as exc:\n    print(exc)\n")
+    try:
+        out = subprocess.run([sys.executable, "-c", script, str(path)], capture_output=True,
+                             text=True, timeout=60)
+    except subprocess.TimeoutExpired:
+        pytest.fail("reading the counts file did not end")
+    assert out.returncode == 0, out.stderr
+    words = "is a folder" if kind == "folder" else "not a regular file"
+    assert words in out.stdout
 
 
 def test_an_experiment_folder_is_read_as_its_experiment_file(tmp_path):
