@@ -83,3 +83,16 @@ def report_and_sleep(shared, item):
     Path(shared, f"worker-{os.getpid()}").write_text(str(os.getpid()))
     time.sleep(120)
     return item
+
+
+def dark_experiment(folder, spec, *, shots=1000.0, seed=7, n_dark=6, n_qubits=2):
+    """Simulated data plus 1–2 counts in ``n_dark`` rows expected below 1e−3 of the shots
+    (dark counts, accidentals: a few counts where the gate predicts almost none)."""
+    channel = channel_from_spec(spec, n_qubits)
+    rows = list(simulate_counts(channel, shots=shots, seed=seed))
+    rng = np.random.default_rng(seed + 1000)
+    low = [k for k, row in enumerate(rows) if row[2] < 1e-3 * shots]
+    for k in rng.choice(low, size=n_dark, replace=False):
+        p, m, e, c = rows[k]
+        rows[k] = (p, m, e, c + int(rng.integers(1, 3)))
+    return read_experiment(write_experiment(folder, channel, rows, title=f"dark {spec}")), channel.choi

@@ -9,6 +9,7 @@ import numpy as np
 from .channels import dim_of_choi
 from .conventions import n_qubits_of
 from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
+from .estimators import MAXIMUM_LIKELIHOOD
 from .result import Result
 
 LABELS = {
@@ -127,7 +128,7 @@ def _goodness_of_fit(r: Result) -> list[str]:
     dg = r.diagnostics
     out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance {dg.deviance:.2f} "
            f"(p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
-    if r.method != "mle":
+    if r.method not in MAXIMUM_LIKELIHOOD:
         out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these p-values "
                    "are lower than for the model itself; refit with mle to test the model)")
     elif dg.poor_fit:
