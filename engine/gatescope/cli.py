@@ -101,7 +101,7 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("paths", nargs="+", metavar="PATH", help="experiment file or folder")
     b.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
     b.add_argument("--workers", type=int, default=None, metavar="W",
-                   help="local processes (default: all cores)")
+                   help="local processes (default: all cores; not used with --dask)")
     b.add_argument("--bootstrap", type=int, default=0, metavar="B",
                    help="resamples per experiment for error bars (default 0)")
     b.add_argument("--method", choices=METHODS, default="mle", help="estimator (default mle)")

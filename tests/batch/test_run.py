@@ -281,6 +281,56 @@ def test_a_task_returns_failures_and_warnings_instead_of_raising(tmp_path):
     assert any("not probed" in w or "undetermined" in w for w in out.warnings), out.warnings
 
 
+class Terminal(io.StringIO):
+    def isatty(self):
+        return True
+
+
+def test_progress_is_a_bar_on_a_terminal_and_log_lines_elsewhere(tmp_path):
+    experiment_tree(tmp_path / "data", ["a", "b"])
+    write_bad(tmp_path / "data")
+    screen = Terminal()
+    run_batch([tmp_path / "data"], tmp_path / "tty", workers=1, seed=1, stream=screen,
+              out=io.StringIO())
+    text = screen.getvalue()
+    assert "batch: 100%" in text and "done 2, failed 4, skipped 0" in text
+    assert "gatescope batch: 2 fitted, 4 failed, 0 skipped" in text
+    assert "done     a:" not in text                       # the log lines stay in the log
+    piped = io.StringIO()
+    run_batch([tmp_path / "data"], tmp_path / "pipe", workers=1, seed=1, stream=piped,
+              out=io.StringIO())
+    assert piped.getvalue() == (tmp_path / "pipe" / "batch.log").read_text()
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="signals: POSIX")
+def test_ctrl_c_stops_the_batch_and_says_how_to_resume(tmp_path):
+    import threading
+
+    experiment_tree(tmp_path / "data", ["quick"])
+    experiment_tree(tmp_path / "data", ["slow"], spec="CZ", n_qubits=2, conditions=False)
+    out, stream = tmp_path / "out", io.StringIO()
+    def interrupt():        # SIGINT while the long second experiment is fitted in this process
+        wait_for(lambda: (out / "quick.h5").exists(), 60, "the first result")
+        time.sleep(0.5)
+        os.kill(os.getpid(), signal.SIGINT)
+
+    thread = threading.Thread(target=interrupt, daemon=True)
+    thread.start()
+    t0 = time.monotonic()
+    outcome = run_batch([tmp_path / "data"], out, workers=1, seed=1, bootstrap=300,
+                        command_line="gatescope batch data -o out", stream=stream,
+                        out=io.StringIO())
+    thread.join(5)
+    assert time.monotonic() - t0 < 60
+    assert outcome.stopped_by == "SIGINT" and outcome.exit_status == 1
+    assert (out / "quick.h5").exists() and not (out / "slow.h5").exists()
+    assert not (out / "batch.lock").exists() and not list(out.rglob(".*.tmp"))
+    event, text = events(out)[-1]
+    assert event == "stopped" and "1 unfinished" in text
+    assert "resume with: gatescope batch data -o out" in text
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler     # restored
+
+
 # --------------------------------------------------------------------------
 # The command in a subprocess: kill -9, the lock, watching, SIGTERM, dask
 # --------------------------------------------------------------------------
