@@ -180,6 +180,47 @@ def test_depolarised_gate_fidelity_matches_its_formula(tmp_path):
                                                                 abs=1e-5)
 
 
+def test_an_unexpected_error_in_one_fit_is_recorded_and_the_batch_goes_on(tmp_path,
+                                                                          monkeypatch):
+    import gatescope.batch.run as run
+
+    experiment_tree(tmp_path / "data", ["a", "b", "c"])
+    real_fit = run.fit
+
+    def fit_failing_for_b(experiment, *args, **kw):
+        if experiment.path.parent.name == "b":
+            raise ZeroDivisionError("simulated bug")
+        return real_fit(experiment, *args, **kw)
+
+    monkeypatch.setattr(run, "fit", fit_failing_for_b)
+    outcome = batch([tmp_path / "data"], tmp_path / "out")
+    assert (outcome.done, outcome.failed, outcome.exit_status) == (2, 1, 1)
+    error = {r["name"]: r["error"] for r in table(tmp_path / "out")}["b"]
+    assert error.startswith("ZeroDivisionError: simulated bug (at test_run.py:")
+
+
+def test_a_runner_that_fails_stops_the_batch_with_a_way_to_resume(tmp_path, monkeypatch):
+    from concurrent.futures.process import BrokenProcessPool
+
+    import gatescope.batch.run as run
+
+    experiment_tree(tmp_path / "data", ["a", "b", "c"])
+
+    class DyingRunner(run.Runner):
+        def map(self, task, items, *, chunk=None):
+            items = list(items)
+            yield 0, task(self.shared, items[0])
+            raise BrokenProcessPool("a worker process died (simulated)")
+
+    monkeypatch.setattr(run, "Runner", DyingRunner)
+    outcome = batch([tmp_path / "data"], tmp_path / "out", command_line="gatescope batch x")
+    assert outcome.exit_status == 1 and outcome.done == 1
+    assert outcome.stopped_by.startswith("a failure of the runner (BrokenProcessPool: a worker")
+    event, text = events(tmp_path / "out")[-1]
+    assert event == "stopped" and "2 unfinished" in text and "resume with: gatescope batch x" in text
+    assert [r["name"] for r in table(tmp_path / "out")] == ["a"]
+
+
 # --------------------------------------------------------------------------
 # Resuming
 # --------------------------------------------------------------------------
@@ -417,7 +458,7 @@ def test_kill_minus_nine_then_resume_equals_an_uninterrupted_run(tmp_path):
 def test_watch_lock_and_sigterm(tmp_path):
     experiment_tree(tmp_path / "data", ["first"], conditions=False)
     out = tmp_path / "out"
-    cmd, env = command(tmp_path / "data", "-o", out, "--watch", "0.5", "--workers", "2",
+    cmd, env = command(tmp_path / "data", "-o", out, "--watch", "2", "--workers", "2",
                        "--bootstrap", "400", "--seed", "3")
     log = open(tmp_path / "stderr.txt", "w")
     proc = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=log)
@@ -431,7 +472,8 @@ def test_watch_lock_and_sigterm(tmp_path):
         # an experiment added while the batch watches is fitted
         experiment_tree(tmp_path / "data", ["second"], conditions=False)
         wait_for(lambda: (out / "second.h5").exists(), 120, "the added experiment's result")
-        assert ("waiting", "second: an input file changed within the last 0.5 s; fitted at "
+        # written less than 2 s before the next look: it waited one look
+        assert ("waiting", "second: an input file changed within the last 2 s; fitted at "
                            "a later look") in events(out)
         # a long one: stop the batch while its workers fit it
         experiment_tree(tmp_path / "data", ["long"], spec="CZ+depolarizing:0.05", n_qubits=2,
