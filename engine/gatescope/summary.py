@@ -63,6 +63,9 @@ def summary(result: Result) -> str:
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
     lines.append(f"  qubits {n}, target {r.target_name or 'none'}, rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
+    if r.conditions:
+        lines.append("  conditions: " + ", ".join(f"{name} = {value!r}"
+                                                  for name, value in r.conditions.items()))
     lines.append("")
     lines.append("figures of merit")
     for name, fig in r.figures.items():
