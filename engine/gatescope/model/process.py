@@ -24,10 +24,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
-from .conventions import pauli_basis, pauli_labels
-from .errors import GatescopeWarning
-from .reader import Experiment
+from ..channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
+from ..conventions import pauli_basis, pauli_labels
+from ..errors import GatescopeWarning
+from ..reader import Experiment
 
 
 #: From this many qubits the forward and adjoint maps contract qubit by qubit; below
