@@ -101,3 +101,16 @@ def test_hermitian_solve_matches_numpy(rng):
         a = g @ g.conj().T + 0.1 * np.eye(n)
         b = rng.normal(size=n) + 1j * rng.normal(size=n)
         np.testing.assert_allclose(kernels.hermitian_solve(a, b), np.linalg.solve(a, b), rtol=1e-9, atol=1e-11)
+
+
+@pytest.mark.parametrize("d", [1, 2, 4, 8, 32])
+@pytest.mark.parametrize("scale", [0.05, 1.0, 10.0])
+def test_project_density_kernel_matches_twin(rng, d, scale):
+    from gatescope.projection import project_density_numpy
+
+    g = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    x = np.ascontiguousarray(scale * (g + g.conj().T) / 2 + np.eye(d) / d)
+    a = kernels.project_density_kernel(x)
+    b = project_density_numpy(x)
+    np.testing.assert_allclose(a, b, atol=1e-14 * max(1.0, scale))
+    assert np.array_equal(a, a.conj().T)

@@ -379,3 +379,37 @@ def tp_congruence(j, d, min_eigenvalue):
                 for row in range(n):
                     out[row, k * d + b] += tmp[row, kp * d + b] * mk
     return 0.5 * (out + out.conj().T)
+
+
+@njit(cache=True)
+def project_density_kernel(x):
+    """Euclidean projection of a Hermitian matrix onto density matrices: the eigenvalues
+    projected onto the probability simplex, the eigenvectors kept.
+
+    Twin: `gatescope.projection.project_density_numpy` (the definition is there).
+    Returns the Hermitian density matrix.
+    """
+    d = x.shape[0]
+    w, v = np.linalg.eigh(x)
+    # eigh returns increasing eigenvalues: walk them in decreasing order for the threshold
+    css = 0.0
+    theta = 0.0
+    for i in range(d):
+        css += w[d - 1 - i]
+        t = (css - 1.0) / (i + 1)
+        if w[d - 1 - i] - t > 0.0:
+            theta = t
+    rho = np.zeros((d, d), dtype=np.complex128)
+    for k in range(d):
+        mu = w[k] - theta
+        if mu <= 0.0:
+            continue
+        for a in range(d):
+            va = mu * v[a, k]
+            for b in range(a, d):
+                rho[a, b] += va * np.conj(v[b, k])
+    for a in range(d):
+        rho[a, a] = rho[a, a].real
+        for b in range(a + 1, d):
+            rho[b, a] = np.conj(rho[a, b])
+    return rho

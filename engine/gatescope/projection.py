@@ -359,6 +359,24 @@ def project_simplex(v: np.ndarray, total: float = 1.0) -> np.ndarray:
     return np.maximum(v - theta, 0.0)
 
 
+#: Up to this d the density projection runs in the compiled kernel; above it the NumPy
+#: twin, whose BLAS products win from about d = 64 (benchmarks/README.md, "States").
+DENSITY_KERNEL_MAX_DIM = 32
+
+
+def project_density_numpy(x: np.ndarray) -> np.ndarray:
+    """The projection of `project_density` in NumPy (the twin of
+    `gatescope.kernels.project_density_kernel`, and the path from d = 64): the
+    Hermitian density matrix nearest to the Hermitian part of ``x``."""
+    x = np.asarray(x, dtype=complex)
+    w, v = np.linalg.eigh(0.5 * (x + x.conj().T))
+    mu = project_simplex(w)
+    keep = mu > 0
+    vk = v[:, keep]
+    rho = (vk * mu[keep]) @ vk.conj().T
+    return 0.5 * (rho + rho.conj().T)
+
+
 def project_density(x: np.ndarray) -> Projection:
     """Exact Euclidean (Frobenius) projection of a matrix onto density matrices.
 
@@ -368,19 +386,18 @@ def project_density(x: np.ndarray) -> Projection:
     invariant, so its nearest point shares X's eigenvectors, and the distance
     then reduces to that of the eigenvalue vectors (the same step as in
     Smolin, Gambetta & Smith, Phys. Rev. Lett. 108, 070502 (2012)). One
-    Hermitian eigen-decomposition; exact up to rounding.
+    Hermitian eigen-decomposition; exact up to rounding. The compiled kernel
+    up to `DENSITY_KERNEL_MAX_DIM`, its NumPy twin above.
 
     Returns a `Projection` whose ``choi`` is the density matrix, ``multiplier``
     None, ``iterations`` 1, ``tp_residual`` |Tr ρ − 1| (rounding) and
     ``converged`` True.
     """
     x = np.asarray(x, dtype=complex)
-    w, v = np.linalg.eigh(0.5 * (x + x.conj().T))
-    mu = project_simplex(w)
-    keep = mu > 0
-    vk = v[:, keep]
-    rho = (vk * mu[keep]) @ vk.conj().T
-    rho = 0.5 * (rho + rho.conj().T)
+    if x.shape[0] <= DENSITY_KERNEL_MAX_DIM:
+        rho = kernels.project_density_kernel(np.ascontiguousarray(0.5 * (x + x.conj().T)))
+    else:
+        rho = project_density_numpy(x)
     return Projection(choi=rho, multiplier=None, iterations=1,
                       tp_residual=float(abs(np.trace(rho).real - 1.0)), converged=True)
 
