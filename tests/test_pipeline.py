@@ -167,3 +167,28 @@ def test_fit_of_a_three_qubit_state(make_state_experiment, method):
     # GHZ with white noise p: fidelity (1 − p) + p/8 (direct calculation); 500 counts per
     # basis give a standard error near 0.01
     assert res.figures["state_fidelity"].value == pytest.approx(0.9 + 0.1 / 8, abs=0.05)
+
+
+@pytest.mark.slow
+def test_six_qubit_state_through_the_whole_job(make_state_experiment):
+    # 46,656 rows. Ideal data (expected counts rounded at 1e8 per analyser basis) give back
+    # the true state by least squares (rounding noise only: the estimator battery's bound)
+    from gatescope.likelihood import PoissonLikelihood
+    from gatescope.model import build_model
+
+    exp, rho = make_state_experiment("GHZ+depolarizing:0.1", n_qubits=6, shots=1e8, exact=True)
+    assert exp.n_rows == 6 ** 6
+    res = gs.fit(exp, "pls")
+    assert np.abs(res.rho - rho).max() < 1e-6
+    # GHZ with white noise p: fidelity (1 − p) + p/64 (direct calculation)
+    assert res.figures["state_fidelity"].value == pytest.approx(0.9 + 0.1 / 64, abs=1e-6)
+    assert [f"negativity_{k}" for k in range(1, 7)] == list(res.figures)[4:]
+    # Poisson data at 1000 counts per basis: the maximum-likelihood state is at least as
+    # likely as the truth and as the pls estimate (to the rounding of ℓ, 1e-10 relative)
+    exp, rho = make_state_experiment("GHZ+depolarizing:0.1", n_qubits=6, shots=1000, seed=3)
+    res = gs.fit(exp, "mle")
+    lik = PoissonLikelihood(build_model(exp))
+    assert res.converged
+    for other in (rho, gs.fit(exp, "pls").rho):
+        floor = lik.evaluate(other).log_likelihood
+        assert res.log_likelihood >= floor - 1e-10 * abs(floor)

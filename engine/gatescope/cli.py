@@ -37,7 +37,8 @@ def build_parser() -> argparse.ArgumentParser:
     from .synth.noise import NOISE_KINDS
     from .synth.state import STATE_NOISE_KINDS
 
-    p = _Parser(prog="gatescope", description="Quantum process and state tomography from laboratory counts.")
+    p = _Parser(prog="gatescope",
+                description="Quantum process and state tomography from laboratory counts.")
     p.add_argument("--version", action="store_true", help="print the version and exit")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
@@ -73,7 +74,8 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--qubits", type=int, default=2,
                    help="qubits of a random channel, or of a GHZ, W or random state (default 2)")
     m.add_argument("--shots", type=float, default=1000.0, metavar="N",
-                   help="expected counts per preparation and analyser basis (default 1000)")
+                   help="expected counts per preparation and analyser basis (per analyser basis "
+                        "for a state; default 1000)")
     m.add_argument("--prep", default=None, metavar="SET",
                    help="pauli6 (default), pauli4 or a comma list; not for a state")
     m.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6, pauli4 or a comma list")

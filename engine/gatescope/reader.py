@@ -30,6 +30,8 @@ TRACE_KINDS = ("preserving", "decreasing")
 TOP_KEYS = ("title", "qubits", "target", "counts", "normalization", "trace",
             "input_rate", "conventions", "states", "kind", "target_state")
 REQUIRED_COLUMNS = ("prep", "meas", "counts")
+OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
+MAX_QUBITS = 6
 #: What an experiment characterises: a process (prepared inputs, analysed outputs) or a
 #: state (analysed only; its counts file has no prep column).
 KINDS = ("process", "state")
@@ -40,11 +42,9 @@ PROCESS_ONLY_KEYS = {
     "trace": "a state has trace 1: trace is a key of process experiments",
     "input_rate": "input_rate belongs to lossy processes (trace = \"decreasing\")",
 }
-#: Entries of a user's target density matrix or vector may deviate from Hermiticity,
-#: unit trace and positivity by this much (they are typed or saved to a few digits).
+#: A user's target density matrix may deviate from Hermiticity, unit trace and
+#: positivity by this much (it is typed or saved to a few digits).
 TARGET_STATE_TOLERANCE = 1e-6
-OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
-MAX_QUBITS = 6
 
 
 def _frozen(a: np.ndarray) -> np.ndarray:

@@ -164,8 +164,9 @@ def _write_state_model(model, r) -> None:
         t.attrs["name"] = r.target_name or ""
 
 
-def _read_state_model(f) -> dict:
-    """The fields of `Result` that `_write_state_model` stored."""
+def _read_state_estimate(f) -> dict:
+    """The fields of `Result` that differ for a state: its estimate, and its model as
+    `_write_state_model` stored it."""
     model = f["model"]
     out = dict(single_meas_effects=model["single_meas_effects"][()],
                meas_parts=model["meas_parts"][()], prep_states=None, meas_effects=None,
@@ -268,7 +269,7 @@ def read(path) -> dict:
             details = {name: extra[name][()] for name in extra}
             details.update({key: _attr(extra, key) for key in extra.attrs})
         prov = {k: _attr(f["provenance"], k) for k in f["provenance"].attrs}
-        estimate = (_read_state_model(f) if kind == "state" else
+        estimate = (_read_state_estimate(f) if kind == "state" else
                     dict(choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()],
                          prep_states=f["model/prep_states"][()],
                          meas_effects=f["model/meas_effects"][()], target=target,
