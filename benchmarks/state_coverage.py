@@ -2,12 +2,13 @@
 
 For each configuration (a state SPEC and a count level) the script repeats
 simulate → mle fit → parametric bootstrap and records, per repetition and
-figure, the true value, the point estimate and the B bootstrap values, so
-that the table applies every construction in `gatescope.intervals.INTERVALS`.
-The table reports per figure the mean bias of the point estimate beside the
-spread of the estimates over the repetitions and the mean bootstrap standard
-error, the mean bootstrap bias, and the coverage of each construction (each
-intersected with the figure's range, as the library reports them).
+figure, the true value, the point estimate, the mean and standard deviation
+of the B bootstrap values, and the interval of every construction in
+`gatescope.intervals.INTERVALS` at ``--level`` (each intersected with the
+figure's range, as the library reports them). The table reports per figure
+the mean bias of the point estimate beside the spread of the estimates over
+the repetitions and the mean bootstrap standard error, the mean bootstrap
+bias, and the coverage of each construction.
 
     python benchmarks/state_coverage.py --repetitions 200 --samples 100
 
@@ -55,7 +56,8 @@ from gatescope.synth.state import simulate_state_counts, state_from_spec  # noqa
 DEFAULT_CONFIGS = ("psi-+visibility:0.94+depolarizing:0.03=psi-",
                    "phi++depolarizing:0.15=phi+",
                    "random:1:3+depolarizing:0.1")
-FIELDS = ["config", "shots", "samples", "rep", "figure", "truth", "point", "values"]
+FIELDS = (["config", "shots", "samples", "level", "rep", "figure", "truth", "point", "boot_mean",
+           "boot_sd"] + [f"{c}_{end}" for c in INTERVALS for end in ("low", "high")])
 
 
 def _config(text: str):
@@ -78,12 +80,21 @@ def one_repetition(text: str, shots: float, rep: int, args) -> list[dict]:
         warnings.simplefilter("ignore")
         boot, _ = run_bootstrap(model, point, target, samples=args.samples,
                                 seed=args.seed + rep + 1_000_000, workers=args.workers)
-    out = []
-    for k, name in enumerate(boot.names):
-        out.append({"config": text, "shots": shots, "samples": args.samples, "rep": rep,
-                    "figure": name, "truth": repr(truth[name]), "point": repr(figures[name]),
-                    "values": " ".join(f"{v:.10g}" for v in boot.figures[:, k])})
-    return out
+    return [summary_row(text, shots, args.samples, args.level, rep, name, truth[name],
+                        figures[name], boot.figures[:, k]) for k, name in enumerate(boot.names)]
+
+
+def summary_row(config, shots, samples, level, rep, figure, truth, point, values) -> dict:
+    """One CSV line: a figure's truth, estimate, bootstrap mean and spread, and intervals."""
+    row = {"config": config, "shots": shots, "samples": samples, "level": level, "rep": rep,
+           "figure": figure, "truth": repr(float(truth)), "point": repr(float(point)),
+           "boot_mean": repr(float(np.nanmean(values))),
+           "boot_sd": repr(float(np.nanstd(values, ddof=1)))}
+    bounds = parameter_range(figure, 4, "state")
+    for c in INTERVALS:
+        lo, hi = interval(values, point, level, c, bounds)
+        row[f"{c}_low"], row[f"{c}_high"] = repr(lo), repr(hi)
+    return row
 
 
 def read_rows(path: Path) -> list[dict]:
@@ -93,7 +104,7 @@ def read_rows(path: Path) -> list[dict]:
         return list(csv.DictReader(fh))
 
 
-def table(rows: list[dict], level: float) -> str:
+def table(rows: list[dict]) -> str:
     groups = defaultdict(list)
     for r in rows:
         groups[(r["config"], float(r["shots"]), r["figure"])].append(r)
@@ -104,15 +115,12 @@ def table(rows: list[dict], level: float) -> str:
     for (config, shots, figure), rs in groups.items():
         truth = float(rs[0]["truth"])
         points = np.array([float(r["point"]) for r in rs])
-        values = [np.array([float(v) for v in r["values"].split()]) for r in rs]
-        spreads = np.array([np.nanstd(v, ddof=1) for v in values])
-        boot_bias = np.array([np.nanmean(v) for v in values]) - points
+        spreads = np.array([float(r["boot_sd"]) for r in rs])
+        boot_bias = np.array([float(r["boot_mean"]) for r in rs]) - points
         bias = points - truth
-        bounds = parameter_range(figure, 4, "state")
         cover = []
         for c in INTERVALS:
-            hits = [lo <= truth <= hi for lo, hi in
-                    (interval(v, p, level, c, bounds) for v, p in zip(values, points))]
+            hits = [float(r[f"{c}_low"]) <= truth <= float(r[f"{c}_high"]) for r in rs]
             p = float(np.mean(hits))
             cover.append(f"{p:.3f} ± {math.sqrt(p * (1 - p) / len(hits)):.3f}")
         lines.append(f"| {config} | {shots:g} | {figure} | {len(rs)} | {truth:.4f} | "
@@ -153,7 +161,7 @@ def main(argv=None) -> int:
                         fh.flush()
                     print(f"{config} shots {shots:g}: {time.perf_counter() - t0:.0f} s",
                           file=sys.stderr)
-    print(table(read_rows(args.out), args.level))
+    print(table(read_rows(args.out)))
     return 0
 
 

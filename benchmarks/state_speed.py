@@ -9,7 +9,8 @@ one global intensity):
 * ``2q``: a two-qubit pair source, ρ = 0.93|phi+><phi+| + 0.07 I/4 with the
   |HH><VV| coherence reduced by a further 3 % (36 rows). Warm times (median
   of ``--repeats`` fits after one untimed fit) of lin, pls and mle; target
-  for mle: under 5 ms.
+  for mle: under 5 ms. The best of the repeats is reported too: on a shared
+  machine it is the time least disturbed by other work.
 * ``6q``: a noisy six-qubit GHZ state, ρ = 0.9|GHZ><GHZ| + 0.1 I/64 with the
   |0…0><1…1| coherence reduced by a further 5 % (46,656 rows, 729 bases).
   Wall time of one mle fit (its pls start included) and the peak resident
@@ -142,7 +143,8 @@ def run_fit_case(repeats: int) -> list[dict]:
         seconds, cpu_seconds = time.perf_counter() - t0, time.process_time() - c0
     from gatescope.merit.state import state_fidelity
     return [dict(case="6q-fit", qubits=6, rows=exp.n_rows, method="mle", seconds=seconds,
-                 cpu_seconds=cpu_seconds, first_call_seconds=seconds, read_seconds=read_s,
+                 cpu_seconds=cpu_seconds, best_seconds=seconds, first_call_seconds=seconds,
+                 read_seconds=read_s,
                  iterations=res.iterations, converged=res.converged, projections=None,
                  fidelity_to_truth=state_fidelity(res.rho, rho),
                  fidelity_to_target=res.figures["state_fidelity"].value,
@@ -175,11 +177,12 @@ def run_case(name: str, repeats: int) -> list[dict]:
                 times.append(time.perf_counter() - t0)
                 cpu.append(time.process_time() - c0)
             seconds, cpu_seconds = float(np.median(times)), float(np.median(cpu))
+            best = float(np.min(times))
         else:
-            seconds, cpu_seconds = first, first_cpu
+            seconds, cpu_seconds, best = first, first_cpu, first
         records.append(dict(
             case=name, qubits=n, rows=model.n_rows, method=method, seconds=seconds,
-            cpu_seconds=cpu_seconds,
+            cpu_seconds=cpu_seconds, best_seconds=best,
             first_call_seconds=first, iterations=fit.iterations, converged=fit.converged,
             projections=fit.info.get("projections"),
             fidelity_to_truth=state_fidelity(fit.choi, rho),
@@ -232,16 +235,17 @@ def main(argv=None) -> int:
     print()
     print(f"load average before the run: {load}")
     print()
-    print("| case | rows | method | wall time | CPU time | first call (wall) | iterations "
-          "| converged | wall / pass | F(truth) | peak MB | target |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
+    print("| case | rows | method | wall time | best wall | CPU time | first call (wall) "
+          "| iterations | converged | wall / pass | F(truth) | peak MB | target |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|---|")
     for r in records:
         kind = " (warm median)" if r["case"] == "2q" else " (one fit)"
         target = TARGETS[r["case"]] if r["method"] == "mle" else ""
         passes = ("–" if not np.isfinite(r["seconds_in_passes"])
                   else f"{r['seconds_in_passes']:.0f}")
         print(f"| {r['case']} | {r['rows']} | {r['method']} | {_duration(r['seconds'])}{kind} | "
-              f"{_duration(r['cpu_seconds'])} | {_duration(r['first_call_seconds'])} | "
+              f"{_duration(r['best_seconds'])} | {_duration(r['cpu_seconds'])} | "
+              f"{_duration(r['first_call_seconds'])} | "
               f"{r['iterations']} | {r['converged']} | {passes} | "
               f"{r['fidelity_to_truth']:.4f} | {r['peak_mb']:.0f} | {target} |")
     if args.json:
