@@ -31,8 +31,8 @@ counted (``Bootstrap.failures``, and per resample in
 1% of the resamples fail. Its estimate is *kept* in the intervals: ``pls``
 and ``mle`` return an exactly CPTP matrix (a density matrix, for a state)
 at every iteration, so a non-converged refit is still physical, only not
-the exact optimum, and dropping it would bias the spread towards the resamples that
-are easy to fit. A refit that raises a numerical error has no estimate:
+the exact optimum, and dropping it would bias the spread towards the
+resamples that are easy to fit. A refit that raises a numerical error has no estimate:
 its row of figures is NaN, it is counted in ``Bootstrap.errors`` (and as a
 failure) and necessarily left out of the intervals and standard deviations.
 

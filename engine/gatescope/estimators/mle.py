@@ -35,8 +35,8 @@ MIN_STEP = 1e-300
 START_MIXTURES = (1e-2, 1e-1, 1.0)
 
 
-def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None, tol: float = 1e-10,
-            maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
+def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
+            tol: float = 1e-10, maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
             proj_tol: float = 1e-9, proj_maxiter: int = 100) -> Fit:
     """Poisson maximum likelihood over CPTP maps, or over density matrices for a state
     model (accelerated projected gradient).
