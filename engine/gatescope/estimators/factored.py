@@ -135,6 +135,7 @@ from ..model import MeasurementModel
 from ..projection import project_physical
 from .base import Fit
 from .linear import fit_pls
+from .mle import fit_mle
 
 #: The compiled kernels are used up to this input dimension d; from d = 8 the NumPy twins
 #: (benchmarks/factored_speed.py, "kernels": the kernels make the whole fit 1.4–2× faster
@@ -473,6 +474,15 @@ def fit_mle_factored(model: MeasurementModel, *, counts=None, start=None, tol: f
         ``grown``, ``flat_steps`` (steps taken on the approximate Wolfe
         conditions), ``checks`` (one dict per check) and ``history``.
     """
+    if model.kind == "state":
+        # A density matrix is fitted by the accelerated projected gradient (its projection,
+        # onto the simplex of eigenvalues, is cheap; the factored form is for processes):
+        # the same maximum, reported as mle.
+        fit = fit_mle(model, counts=counts, start=start, tol=tol, maxiter=maxiter,
+                      opt_tol=opt_tol, mix=mix)
+        fit.method = "mle"
+        fit.info["solver"] = "projected gradient"
+        return fit
     t0 = time.perf_counter()
     lik = PoissonLikelihood(model, counts)
     d = model.dim
