@@ -141,27 +141,27 @@ from .mle import fit_mle
 #: (benchmarks/factored_speed.py, "kernels": the kernels make the whole fit 1.4–2× faster
 #: at d = 4; at d = 8 runs ranged from 0.76× to 1.1×, the products being large enough for
 #: NumPy's own BLAS calls to cost as little).
-_KERNEL_MAX_DIM = 4
+KERNEL_MAX_DIM = 4
 
 
 def _tangent(z, x):
-    if z.shape[0] <= _KERNEL_MAX_DIM:
+    if z.shape[0] <= KERNEL_MAX_DIM:
         return tangent_project(z, x)
     return tangent_project_numpy(z, x)
 
 
 def _polar(x):
-    if x.shape[0] <= _KERNEL_MAX_DIM:
+    if x.shape[0] <= KERNEL_MAX_DIM:
         return polar_rows(np.ascontiguousarray(x))
     return polar_rows_numpy(x)
 
 
 def _direction(*args):
-    return (lbfgs_direction if args[6] <= _KERNEL_MAX_DIM else lbfgs_direction_numpy)(*args)
+    return (lbfgs_direction if args[6] <= KERNEL_MAX_DIM else lbfgs_direction_numpy)(*args)
 
 
 def _pair(z, step, g_old, rgrad):
-    return (lbfgs_pair if z.shape[0] <= _KERNEL_MAX_DIM else lbfgs_pair_numpy)(z, step, g_old,
+    return (lbfgs_pair if z.shape[0] <= KERNEL_MAX_DIM else lbfgs_pair_numpy)(z, step, g_old,
                                                                               rgrad)
 
 
