@@ -30,6 +30,39 @@ def simulated_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int 
     return read_experiment(path), channel.choi
 
 
+def random_density(d: int, rank: int, seed: int) -> np.ndarray:
+    """ρ = G G†/Tr(G G†), G a d × rank matrix of complex Gaussian entries (rank-deficient
+    when rank < d)."""
+    rng = np.random.default_rng(seed)
+    g = rng.normal(size=(d, rank)) + 1j * rng.normal(size=(d, rank))
+    rho = g @ g.conj().T
+    return rho / np.trace(rho).real
+
+
+def random_ket(d: int, seed: int) -> np.ndarray:
+    """A normalised vector of d complex Gaussian entries."""
+    rng = np.random.default_rng(seed)
+    v = rng.normal(size=d) + 1j * rng.normal(size=d)
+    return v / np.linalg.norm(v)
+
+
+def simulated_state_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int = 1,
+                               meas=("H", "V", "D", "A", "R", "L"), n_qubits: int = 2,
+                               exact: bool = False):
+    """Write and read back a simulated state experiment (`gatescope.synth.state`); returns
+    (Experiment, true density matrix). ``exact=True`` writes the expected counts rounded
+    to whole numbers instead of Poisson draws."""
+    from gatescope.synth.state import (simulate_state_counts, state_from_spec,
+                                       write_state_experiment)
+
+    state = state_from_spec(spec, n_qubits)
+    rows = simulate_state_counts(state, shots=shots, meas_set=meas, seed=seed)
+    if exact:
+        rows = [(m, e, int(round(e))) for m, e, _ in rows]
+    path = write_state_experiment(folder, state, rows, title=f"test state {spec}")
+    return read_experiment(path), state.choi
+
+
 def postselected_experiment(folder, success, seed=5, noise=(("depolarizing", 0.05),),
                             rate: float = POSTSELECTED_RATE, exact: bool = False):
     """A CZ that succeeds with probability ``success``, Φ = success · (CZ + noise), as a
@@ -83,3 +116,46 @@ def report_and_sleep(shared, item):
     Path(shared, f"worker-{os.getpid()}").write_text(str(os.getpid()))
     time.sleep(120)
     return item
+
+
+def dark_experiment(folder, spec, *, shots=1000.0, seed=7, n_dark=6, n_qubits=2):
+    """Simulated data plus 1–2 counts in ``n_dark`` rows expected below 1e−3 of the shots
+    (dark counts, accidentals: a few counts where the gate predicts almost none)."""
+    channel = channel_from_spec(spec, n_qubits)
+    rows = list(simulate_counts(channel, shots=shots, seed=seed))
+    rng = np.random.default_rng(seed + 1000)
+    low = [k for k, row in enumerate(rows) if row[2] < 1e-3 * shots]
+    for k in rng.choice(low, size=n_dark, replace=False):
+        p, m, e, c = rows[k]
+        rows[k] = (p, m, e, c + int(rng.integers(1, 3)))
+    return read_experiment(write_experiment(folder, channel, rows, title=f"dark {spec}")), channel.choi
+
+
+def compile_in_worker(shared, item):
+    """A task that compiles a new numba function where it runs (every compile makes
+    numba re-read its environment) and returns shared + item from it."""
+    import numba
+
+    @numba.njit
+    def add(a, b):
+        return a + b
+
+    return add(shared, item)
+
+
+def experiment_tree(root, names, *, spec: str = "H+depolarizing:0.1", n_qubits: int = 1,
+                    shots: float = 500.0, conditions: bool = True):
+    """Simulated experiments in ``root/<name>/`` (names may contain slashes), each with
+    its own seed and, with ``conditions``, a ``[conditions]`` table (delay_ps = 10·k,
+    run = "night 1"); returns the experiment files."""
+    from pathlib import Path
+
+    paths = []
+    for k, name in enumerate(names):
+        exp, _ = simulated_experiment(Path(root, name), spec, shots=shots, seed=100 + k,
+                                      n_qubits=n_qubits)
+        if conditions:
+            with open(exp.path, "a", encoding="utf-8") as fh:
+                fh.write(f'\n[conditions]\ndelay_ps = {10 * k}\nrun = "night 1"\n')
+        paths.append(exp.path)
+    return paths

@@ -115,7 +115,7 @@ def test_ideal_data_stopping_at_rounding_are_converged_to_rounding(make_experime
     # the stopping rule's 1e-10·|ℓ|; the estimate is at the optimum as far as numbers go
     exp, truth = make_experiment("CZ+depolarizing:0.05", shots=1e8, exact=True)
     model = MeasurementModel(exp)
-    point = estimate(model, "mle")
+    point = estimate(model, "mle-pg")
     with warnings.catch_warnings():
         warnings.simplefilter("error", gs.GatescopeWarning)
         verdict = checks.assess_estimate(model, point)
@@ -123,7 +123,24 @@ def test_ideal_data_stopping_at_rounding_are_converged_to_rounding(make_experime
         assert verdict.status == "converged"
     else:
         assert verdict.status == "converged to rounding"
-        assert checks.rounding_level(model, point) > 1e-10 * abs(point.log_likelihood)
+        rounding = checks.rounding_level(model, point)
+        assert rounding > 1e-10 * abs(point.log_likelihood)
+        gap = point.info.get("gap_bound")
+        assert gap is None or gap <= rounding
+    assert process_fidelity(point.choi, exp.target) == pytest.approx(
+        process_fidelity(truth, exp.target), abs=1e-6)
+
+
+def test_a_certified_gap_below_rounding_is_converged_to_rounding(make_experiment):
+    # the factored mle on the same ideal data stops at its iteration limit, but certifies
+    # ℓ* − ℓ ≤ gap_bound, which is below the rounding of ℓ: at the optimum, no warning
+    exp, truth = make_experiment("CZ+depolarizing:0.05", shots=1e8, exact=True)
+    model = MeasurementModel(exp)
+    point = estimate(model, "mle")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", gs.GatescopeWarning)
+        verdict = checks.assess_estimate(model, point)
+    assert verdict.status in ("converged", "converged to rounding")
     assert process_fidelity(point.choi, exp.target) == pytest.approx(
         process_fidelity(truth, exp.target), abs=1e-6)
 

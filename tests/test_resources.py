@@ -47,7 +47,7 @@ def test_a_five_qubit_fit_states_its_needs_first_and_is_refused_without_memory(t
     def no_model(*a, **k):
         raise AssertionError("the model was built before the memory check")
 
-    monkeypatch.setattr(pipeline, "MeasurementModel", no_model)
+    monkeypatch.setattr(pipeline, "build_model", no_model)
     with pytest.raises(gs.InputError, match="cannot run here") as info:
         gs.fit(exp, progress=True)
     assert info.value.file == str(exp.path)

@@ -4,7 +4,6 @@ group and attribute of the layout.
 
 from __future__ import annotations
 
-import copy
 import datetime as dt
 import hashlib
 import importlib.util
@@ -360,24 +359,10 @@ def test_rows_keep_their_csv_lines_and_outliers_their_lines(tmp_path, make_exper
     np.testing.assert_array_equal(outlier_lines, line[rows])
 
 
-def test_capabilities_have_a_place_for_kind_and_conditions(cz_fit, tmp_path):
-    from gatescope import result_file
-
-    _, res, _ = cz_fit
-    extended = copy.copy(res)
-    extended.kind = "process"
-    extended.conditions = {"temperature_K": 294.0, "pump": "cw"}
-    path = result_file.write(tmp_path / "r.h5", extended)
-    back = result_file.read(path)
-    assert back["kind"] == "process"
-    assert back["conditions"] == {"temperature_K": 294.0, "pump": "cw"}
-    assert "kind" not in result_file.read(res.save(tmp_path / "plain.h5"))
-
-
 # -- files of format 1 stay readable -----------------------------------------------------
 
 def test_format_1_files_are_read(tmp_path):
-    # written by the format-1 writer (gatescope 0.1.0): an mle fit with a bootstrap and a lin fit
+    # written by the format-1 writer (gatescope 0.1.0): an mle fit with a bootstrap, a lin fit
     boot = gs.load_result(FORMAT1 / "fit_1q_bootstrap.h5")
     assert boot.bootstrap.samples == 12 and boot.provenance["seed"] == 3
     assert boot.warnings == () and boot.status is None and "line" not in boot.counts_columns
@@ -385,6 +370,15 @@ def test_format_1_files_are_read(tmp_path):
     lin = gs.load_result(FORMAT1 / "fit_2q_lin.h5")
     assert "seed" not in lin.provenance                   # format 1 wrote "" for none
     assert lin.method == "lin" and np.isinf(lin.log_likelihood)
+    # the format-1 writer with states and conditions: a two-qubit state with a bootstrap,
+    # a process with [conditions]
+    state = gs.load_result(FORMAT1 / "state_2q_bootstrap.h5")
+    assert state.kind == "state" and state.rho.shape == (4, 4) and state.choi is None
+    assert state.bootstrap.samples == 8 and "state_fidelity" in state.figures
+    conditioned = gs.load_result(FORMAT1 / "fit_2q_conditions.h5")
+    assert conditioned.conditions == {"delay_ps": 120, "run": "night 3"}
+    again_state = gs.load_result(state.save(tmp_path / "state.h5"))
+    np.testing.assert_array_equal(again_state.rho, state.rho)
     # saved again, it becomes a format-2 file with the same content
     again = gs.load_result(lin.save(tmp_path / "again.h5"))
     np.testing.assert_array_equal(again.choi, lin.choi)
@@ -458,3 +452,100 @@ def test_byte_flips_in_the_data_are_found(cz_fit, tmp_path):
     path.write_bytes(bytes(raw))
     with pytest.raises(gs.InputError, match="/estimate/choi changed"):
         gs.load_result(path)
+def test_conditions_group_round_trip(tmp_path):
+    folder = tmp_path / "data"
+    exp, _ = simulated_experiment(folder, "H", shots=200, seed=2, n_qubits=1)
+    with open(exp.path, "a", encoding="utf-8") as fh:
+        fh.write('\n[conditions]\ndelay_ps = 120\npump_mW = 40.5\nrun = "night 3"\n')
+    res = gs.fit(gs.read_experiment(exp.path))
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path) as f:                      # as any HDF5 tool sees it
+        attrs = f["conditions"].attrs
+        assert list(attrs) == ["delay_ps", "pump_mW", "run"]     # the file's order
+        assert attrs["delay_ps"].dtype == np.int64 and attrs["delay_ps"] == 120
+        assert attrs["pump_mW"].dtype == np.float64 and attrs["pump_mW"] == 40.5
+        assert text(attrs["run"]) == "night 3"
+    back = gs.load_result(path).conditions
+    assert back == {"delay_ps": 120, "pump_mW": 40.5, "run": "night 3"}
+    assert type(back["delay_ps"]) is int and type(back["pump_mW"]) is float
+    # without conditions the group is there and empty
+    bare = gs.fit(simulated_experiment(tmp_path / "bare", "H", shots=200, seed=2, n_qubits=1)[0])
+    with h5py.File(bare.save(tmp_path / "bare.h5")) as f:
+        assert len(f["conditions"].attrs) == 0
+    assert gs.load_result(tmp_path / "bare.h5").conditions == {}
+# --------------------------------------------------------------------------
+# State results (docs/file-formats.md, "Result file": kind = "state")
+# --------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def pair_fit(tmp_path_factory):
+    from support import simulated_state_experiment
+
+    folder = tmp_path_factory.mktemp("pair")
+    exp, rho = simulated_state_experiment(folder / "data", "phi++visibility:0.9", shots=800,
+                                          seed=3)
+    res = gs.fit(exp, "mle", bootstrap=12, seed=4, workers=1)
+    path = res.save(folder / "out" / "result.h5")
+    return exp, res, path
+
+
+def test_state_result_layout(pair_fit):
+    exp, res, path = pair_fit
+    with h5py.File(path, "r") as f:
+        assert text(f.attrs["kind"]) == "state"
+        est = f["estimate"]
+        assert set(est) == {"rho", "intensities"}
+        rho = est["rho"][()]
+        assert rho.dtype == np.complex128 and rho.shape == (4, 4)
+        model = f["model"]
+        assert "prep_states" not in model and "meas_effects" not in model
+        single, parts = model["single_meas_effects"][()], model["meas_parts"][()]
+        assert single.shape == (6, 2, 2) and parts.shape == (36, 2) and parts.dtype == np.int64
+        # each row's setting is the product of its single-qubit effects, qubit 1 first
+        meas_index = f["input/counts/meas_index"][()]
+        for label, m in zip(f["input/counts/meas"][()], meas_index):
+            np.testing.assert_allclose(np.kron(single[parts[m, 0]], single[parts[m, 1]]),
+                                       proj(text(label)), atol=1e-15)
+        assert "prep" not in f["input/counts"] and "prep_index" not in f["input/counts"]
+        target = model["target_state"]
+        assert text(target.attrs["name"]) == "phi+"
+        np.testing.assert_allclose(target[()], [SQ, 0, 0, SQ], atol=1e-15)
+        b = f["bootstrap"]
+        assert b["rho_std"].shape == (4, 4) and b["rho_std"].dtype == np.complex128
+        assert "choi_std" not in b and "chi_std" not in b and "ptm_std" not in b
+        assert "chsh_a" in f["figures_extra"]
+        # Tr ρ = 1 and the fidelity to phi+ is <phi+|ρ|phi+> (Nielsen & Chuang §9.2.2)
+        psi = np.array([SQ, 0, 0, SQ])
+        assert float(f["figures/state_fidelity"][()]) == pytest.approx(
+            np.vdot(psi, rho @ psi).real, abs=1e-14)
+    assert np.trace(rho).real == pytest.approx(1, abs=1e-13)
+
+
+def test_state_result_round_trips_exactly(pair_fit):
+    _, res, path = pair_fit
+    back = gs.load_result(path)
+    assert back.kind == "state" and back.choi is None and back.chi is None and back.ptm is None
+    np.testing.assert_array_equal(back.rho, res.rho)
+    assert list(back.figures) == list(res.figures)
+    for name, fig in res.figures.items():
+        assert back.figures[name].value == fig.value and back.figures[name].ci == fig.ci
+    np.testing.assert_array_equal(back.bootstrap.rho_std, res.bootstrap.rho_std)
+    np.testing.assert_array_equal(back.meas_parts, res.meas_parts)
+    np.testing.assert_array_equal(back.figure_details["correlation_singular_values"],
+                                  res.figure_details["correlation_singular_values"])
+    assert back.target_name == "phi+" and back.dim == 4
+
+
+def test_a_file_without_kind_is_a_process(cz_fit, tmp_path):
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r+") as f:
+        assert text(f.attrs["kind"]) == "process"
+        del f.attrs["kind"]
+    with pytest.raises(gs.InputError, match="checksums"):       # an altered file is refused
+        gs.load_result(path)
+    from gatescope import result_file
+
+    back = gs.Result(**result_file.read(path, verify=False))   # its layout is read as before
+    assert back.kind == "process" and back.rho is None
+    np.testing.assert_array_equal(back.choi, res.choi)

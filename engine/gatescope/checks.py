@@ -83,7 +83,8 @@ def informative_rows(model: MeasurementModel) -> np.ndarray:
     g = model.group_index
     excess = np.bincount(g, weights=(model.counts > model.background).astype(float),
                          minlength=model.n_groups) > 0
-    pairs = np.unique(np.stack([g, model.pair_index]), axis=1)
+    setting = model.meas_index if model.kind == "state" else model.pair_index
+    pairs = np.unique(np.stack([g, setting]), axis=1)
     settings = np.bincount(pairs[0], minlength=model.n_groups)
     return (excess & (settings >= 2))[g]
 
@@ -100,6 +101,7 @@ def check_data(model: MeasurementModel) -> np.ndarray:
         every normalisation group has a single (prep, meas) setting.
     """
     exp = model.experiment
+    counts_file = None if exp is None else str(exp.counts_path)
     rows = informative_rows(model)
     if not rows.any():
         if not np.any(model.counts > 0):
@@ -112,10 +114,11 @@ def check_data(model: MeasurementModel) -> np.ndarray:
                        "fitted intensity absorbs its counts: the data say nothing about the "
                        "process. Measure complete analyser bases for each preparation, or use "
                        "normalization = \"global\" (or \"per-group\") in the experiment file")
-        raise InputError(message, file=str(exp.counts_path))
+        raise InputError(message, file=counts_file)
     empty = np.unique(model.group_index[~rows])
     if empty.size:
-        names = ", ".join(str(exp.group_names[k]) for k in empty[:6])
+        names = ", ".join(str(exp.group_names[k]) if exp is not None else str(k)
+                          for k in empty[:6])
         more = f" and {empty.size - 6} more" if empty.size > 6 else ""
         warn("no-counts",
              f"{empty.size} of {model.n_groups} normalisation groups ({names}{more}) carry no "
@@ -147,11 +150,15 @@ class Assessment:
     min_eigenvalue: float
 
 
-def distance_to_physical(choi: np.ndarray, trace_decreasing: bool = False) -> tuple[float, float]:
-    """(distance to the physical set, smallest eigenvalue of J); see `Assessment`."""
+def distance_to_physical(choi: np.ndarray, trace_decreasing: bool = False,
+                         kind: str = "process") -> tuple[float, float]:
+    """(distance to the physical set, smallest eigenvalue of J); see `Assessment`. For a
+    state (``kind = "state"``, ``choi`` the density matrix ρ): max(−λ_min(ρ), |Tr ρ − 1|)."""
     choi = np.asarray(choi)
-    d = int(round(np.sqrt(choi.shape[0])))
     lam = float(np.linalg.eigvalsh(0.5 * (choi + choi.conj().T))[0])
+    if kind == "state":
+        return max(-lam, abs(float(np.trace(choi).real) - 1.0), 0.0), lam
+    d = int(round(np.sqrt(choi.shape[0])))
     out = partial_trace_output(choi)
     if trace_decreasing:
         excess = float(np.linalg.eigvalsh(0.5 * (out + out.conj().T))[-1]) - 1.0
@@ -178,11 +185,14 @@ def rounding_level(model: MeasurementModel, fit: Fit) -> float:
 def assess_estimate(model: MeasurementModel, fit: Fit, options: dict | None = None) -> Assessment:
     """The status of an estimate, with a warning when it is not converged or not physical.
 
-    An estimator that stops because it cannot increase the log-likelihood,
-    short of its iteration limit, at a point where rounding alone moves the
-    log-likelihood by more than its tolerance ``tol`` (relative to |ℓ|),
-    has reached the optimum as closely as the numbers allow: its status is
-    "converged to rounding" and no warning is given.
+    An estimator that did not meet its stopping rule has still reached the
+    optimum as closely as the numbers allow (status "converged to rounding",
+    no warning) when its certified bound on the distance to the maximum of
+    the log-likelihood (``Fit.info["gap_bound"]``, ℓ* − ℓ ≤ bound) is below the
+    rounding error of ℓ or below its tolerance ``tol`` (relative to |ℓ|); or,
+    for an estimator without such a bound, when it stopped short of its
+    iteration limit because it could not increase ℓ at a point where rounding
+    alone moves ℓ by more than ``tol``·|ℓ|.
 
     Raises
     ------
@@ -193,7 +203,7 @@ def assess_estimate(model: MeasurementModel, fit: Fit, options: dict | None = No
     if not (np.all(np.isfinite(fit.choi)) and np.all(np.isfinite(fit.intensities))):
         raise NumericalError(f"the {fit.method} estimate is not finite: the data or their "
                              "magnitudes are beyond what the estimator can handle")
-    distance, lam = distance_to_physical(fit.choi, model.trace_decreasing)
+    distance, lam = distance_to_physical(fit.choi, model.trace_decreasing, model.kind)
     physical = distance <= PHYSICAL_TOLERANCE * model.dim
     if not physical:
         warn("unphysical",
@@ -208,9 +218,13 @@ def assess_estimate(model: MeasurementModel, fit: Fit, options: dict | None = No
     tol = _default(fit.method, "tol", options)
     maxiter = _default(fit.method, "maxiter", options)
     below_limit = maxiter is None or fit.iterations < maxiter
-    if tol is not None and below_limit and np.isfinite(fit.log_likelihood) and \
-            rounding_level(model, fit) > tol * max(1.0, abs(fit.log_likelihood)):
-        return Assessment("converged to rounding", False, True, distance, lam)
+    if tol is not None and np.isfinite(fit.log_likelihood):
+        rounding = rounding_level(model, fit)
+        wanted = tol * max(1.0, abs(fit.log_likelihood))
+        gap = fit.info.get("gap_bound")
+        certified = gap is not None and np.isfinite(gap) and gap <= max(rounding, wanted)
+        if certified or (below_limit and rounding > wanted):
+            return Assessment("converged to rounding", False, True, distance, lam)
     warn("not-converged",
          f"the {fit.method} estimator stopped before it converged ({fit.stop_reason}, after "
          f"{fit.iterations} iterations): the estimate and its figures may be off", stacklevel=2)
@@ -325,11 +339,13 @@ def undetermined_figures(model: MeasurementModel, rows: np.ndarray, ident: Ident
     constraint fixes.
     """
     names = list(names)
-    fixed = set() if model.trace_decreasing else {"trace"}
+    fixed = set() if model.trace_decreasing or model.kind == "state" else {"trace"}
     if no_signal:
         return set(names) - fixed
     if ident.complete:
         return set()
+    if model.kind == "state":             # every state figure depends on the whole state
+        return set(names)
     span = _Span(model, rows)
     n, d = model.n_qubits, model.dim
     target = model.experiment.target

@@ -104,6 +104,7 @@ WARNING_CODES = {
     "refits": "bootstrap refits did not converge or failed",
     "bias": "the bootstrap shows a bias larger than the spread",
     "diamond": "the diamond distance was skipped or is inaccurate",
+    "chsh": "the largest CHSH value sits where it is not smooth: biased, its interval short",
 }
 
 

@@ -24,13 +24,16 @@ from pathlib import Path
 
 from .errors import InputError
 
+_TEMPORARY_SUFFIX = ".tmp"
+
 
 def _host() -> str:
     return re.sub(r"[^A-Za-z0-9-]", "-", socket.gethostname()) or "host"
 
 
 def _temporary_pattern(path: Path) -> re.Pattern:
-    return re.compile(re.escape(f".{path.name}.") + r"(?P<host>[A-Za-z0-9-]+)\.(?P<pid>\d+)\.[^.]+\.tmp$")
+    return re.compile(re.escape(f".{path.name}.") + r"(?P<host>[A-Za-z0-9-]+)\.(?P<pid>\d+)\.[^.]+"
+                      + re.escape(_TEMPORARY_SUFFIX) + "$")
 
 
 def _running(pid: int) -> bool:
@@ -73,8 +76,8 @@ def atomic_path(path):
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     remove_stale_temporaries(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{_host()}.{os.getpid()}.", suffix=".tmp",
-                               dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{_host()}.{os.getpid()}.",
+                               suffix=_TEMPORARY_SUFFIX, dir=path.parent)
     os.close(fd)
     umask = os.umask(0)
     os.umask(umask)
@@ -92,6 +95,16 @@ def atomic_write_text(path, text: str) -> None:
     """Write UTF-8 text to ``path`` atomically."""
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
+
+
+def leftover_temporaries(folder, names) -> list[Path]:
+    """Temporary files that `atomic_path` left below ``folder`` (in any subfolder) when
+    its process was killed before it could remove them, for targets whose names
+    match one of the glob patterns ``names`` (``["*.h5", "summary.csv"]``)."""
+    found = []
+    for pattern in names:
+        found += Path(folder).rglob(f".{pattern}.*{_TEMPORARY_SUFFIX}")
+    return sorted(set(found))
 
 
 def _same_file(a: Path, b: Path) -> bool:
@@ -146,4 +159,5 @@ def check_output(path, *, force: bool = False, inputs=(), option: str = "-o",
     return path
 
 
-__all__ = ["atomic_path", "atomic_write_text", "remove_stale_temporaries", "check_output"]
+__all__ = ["atomic_path", "atomic_write_text", "leftover_temporaries", "remove_stale_temporaries",
+           "check_output"]

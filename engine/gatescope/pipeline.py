@@ -1,4 +1,5 @@
-"""The main job as one function: `fit` turns an `Experiment` into a `Result`.
+"""The main job as one function: `fit` turns an `Experiment` into a `Result`, for a
+process or a state experiment alike.
 
 Data flow, one module a step: the experiment (`reader`) → its measurement
 model (`model`) → the estimate (`estimators`) → figures of merit (`merit`)
@@ -10,24 +11,28 @@ is kept in the result (``Result.warnings``).
 
 from __future__ import annotations
 
+import contextlib
+import hashlib
 import sys
 import threading
 import time
+import warnings
+from pathlib import Path
 
 import numpy as np
 
+from . import kernels, resources
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
 from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
-from .errors import collect_warnings
+from .errors import collect_warnings, warn
+from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
-from .estimators import estimate
-from . import kernels, resources
 from .intervals import DEFAULT_INTERVAL
 from .likelihood import PoissonLikelihood
-from .merit import compute_figures
-from .model import MeasurementModel
+from .merit import chsh_gap_warning, compute_figures
+from .model import build_model
 from .options import flag, fraction, whole
 from .options import seed as check_seed
 from .options import workers as check_workers
@@ -64,13 +69,15 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         bootstrap_kind: str = "parametric", ci_level: float = 0.95, seed: int | None = None,
         workers: int | None = None, progress: bool = False, command_line: str | None = None,
         diamond: bool = False, interval: str | None = None, **options) -> Result:
-    """Reconstruct the process of an experiment and compute its figures of merit.
+    """Reconstruct the process (or the state) of an experiment and compute its figures of
+    merit.
 
     Parameters
     ----------
     experiment : Experiment
-        From :func:`gatescope.read_experiment`.
-    method : {"mle", "pls", "lin"}
+        From :func:`gatescope.read_experiment`; a process or a state experiment
+        (``experiment.kind``).
+    method : {"mle", "mle-pg", "pls", "lin"}
         The estimator (see :mod:`gatescope.estimators`).
     bootstrap : int
         Number of resamples for error bars (0: none).
@@ -94,7 +101,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         without it). Off by default: it adds about 1 s to a two-qubit fit
         (mostly loading cvxpy; the fit itself takes a fraction of a
         second), about 2 s for a trace-decreasing estimate, and 2 s of
-        solving from three qubits on. Not bootstrapped.
+        solving from three qubits on. Not bootstrapped. A state has no
+        diamond distance: for a state experiment a warning (code ``diamond``) says so.
     **options
         Passed to the estimator (``tol``, ``maxiter``, ...).
 
@@ -121,37 +129,69 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     return result
 
 
-#: The notice printed while the numerical kernels compile (README, "Known limitations").
+#: The notice printed while the numerical kernels compile (README, "First run").
 COMPILE_NOTICE = "compiling numerical kernels, first run only, about 20 s"
-#: Without a readable cache index, the notice appears when preparing takes longer than this.
-NOTICE_AFTER_SECONDS = 2.0
+#: On a run that may compile, the notice appears once preparing takes longer than this
+#: (loading compiled kernels from numba's cache takes a fraction of it).
+NOTICE_AFTER_SECONDS = 1.5
+#: Iterations of the estimator run to compile its kernels on a first run.
+WARM_UP_ITERATIONS = 3
 
 
-def compile_kernels(model: MeasurementModel, *, notify: bool = True, stream=None) -> float | None:
-    """Compile (or load from numba's cache) every kernel a fit of ``model`` calls.
+def warm_marker(model, method: str) -> Path | None:
+    """The file that records a finished warm-up of ``method`` on models like ``model``
+    with this source of the kernels, this numba and this Python, beside numba's cache
+    (None when that place is unknown)."""
+    try:
+        import numba
+
+        folder = Path(kernels.compiled_kernels()[0].stats.cache_path)
+        source = Path(kernels.__file__).read_bytes()
+    except (AttributeError, IndexError, OSError):
+        return None
+    key = (f"{numba.__version__} {sys.version} {method} {model.kind} "
+           f"{model.kind == 'state' or model.dim <= KERNEL_MAX_DIM} {model.trace_decreasing}")
+    digest = hashlib.sha256(source + key.encode("utf-8")).hexdigest()[:16]
+    return folder / f"gatescope-warm-{digest}"
+
+
+def compile_kernels(model, method: str = "mle", *, notify: bool = True,
+                    stream=None) -> float | None:
+    """Compile (or load from numba's cache) the kernels a fit of ``model`` by ``method`` calls.
 
     Called before the estimator, so that the estimator's ``seconds`` measure the fit
-    alone. With ``notify``, `COMPILE_NOTICE` goes to ``stream`` (stderr) first when the
-    kernels are not in the cache. Returns the seconds spent when something was
-    compiled, else None.
+    alone. Unless a warm-up of this kind finished before (`warm_marker`), a few
+    iterations of the estimator on the model compile everything it calls, and with
+    ``notify`` `COMPILE_NOTICE` goes to ``stream`` (stderr) once that takes longer than
+    `NOTICE_AFTER_SECONDS`. Returns the seconds spent when something was compiled,
+    else None.
     """
     stream = sys.stderr if stream is None else stream
-    present = kernels.cache_present()
+    marker = warm_marker(model, method)
+    first = marker is None or not marker.exists()
     timer = None
-    if notify and present is False:
-        print(COMPILE_NOTICE, file=stream, flush=True)
-    elif notify and present is None:            # this numba does not say: tell if it is slow
+    if notify and first:
         timer = threading.Timer(NOTICE_AFTER_SECONDS,
                                 lambda: print(COMPILE_NOTICE, file=stream, flush=True))
         timer.start()
     before = kernels.compiled_in_this_process()
     t0 = time.perf_counter()
     try:
-        d2 = model.dim ** 2
-        identity = np.eye(d2, dtype=complex) / model.dim
-        PoissonLikelihood(model).evaluate(identity)
-        if model.dim <= KERNEL_MAX_DIM:
-            project_physical(model, identity)
+        centre = model.centre()
+        PoissonLikelihood(model).evaluate(centre)
+        if model.kind == "state" or model.dim <= KERNEL_MAX_DIM:
+            project_physical(model, centre)
+        if first:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                try:
+                    estimate(model, method, maxiter=WARM_UP_ITERATIONS)
+                except (ArithmeticError, ValueError):   # the fit itself will say what fails
+                    pass
+            if marker is not None:
+                with contextlib.suppress(OSError):
+                    marker.parent.mkdir(parents=True, exist_ok=True)
+                    marker.touch()
     finally:
         if timer is not None:
             timer.cancel()
@@ -164,30 +204,35 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
          command_line, diamond, interval, options) -> Result:
     started = time.time()
     t0 = time.perf_counter()
-    if experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
+    if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
         need = resources.fit_estimate(experiment.n_qubits, experiment.n_rows,
                                       bootstrap=bootstrap, workers=check_workers(workers))
         if progress:
             print(need.text(), file=sys.stderr, flush=True)
         resources.check_fit(need, str(experiment.path))
-    model = MeasurementModel(experiment)
-    compile_seconds = compile_kernels(model, notify=progress)
+    model = build_model(experiment)
+    compile_seconds = compile_kernels(model, method, notify=progress)
     rows = check_data(model)
     ident = model.warn_if_undetermined(rows)
     with single_threaded_blas():          # small products: threads only oversubscribe
         point = estimate(model, method, **options)
     verdict = assess_estimate(model, point, options)
     details = {}
-    values = compute_figures(point.choi, experiment.target, diamond=diamond, details=details)
+    target = experiment.target_state if model.kind == "state" else experiment.target
+    if diamond and model.kind == "state":
+        warn("diamond", "diamond distance skipped: it is a figure of processes, and this is a "
+                        "state experiment", stacklevel=2)
+    values = compute_figures(point.choi, target, diamond=diamond, details=details,
+                             kind=model.kind)
     boot = None
     if bootstrap:
-        boot, seed = run_bootstrap(model, point, experiment.target, samples=bootstrap,
+        boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
     no_signal = warn_about_fit(model, point, diag.dof, ident.rank)
-    if point.method == "mle" and verdict.physical and not no_signal:
+    if point.method in MAXIMUM_LIKELIHOOD and verdict.physical and not no_signal:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²
         # reference even for a model that fits: the test is for the ML estimate only
         warn_if_poor_fit(diag)
@@ -206,4 +251,9 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
         result.figures[name].determined = False
     if boot is not None:
         result.attach_bootstrap(boot, ci_level)
+        if "chsh_max" in boot.names:
+            values = boot.figures[:, boot.names.index("chsh_max")]
+            text = chsh_gap_warning(details, float(np.nanstd(values, ddof=1)))
+            if text:
+                warn("chsh", text, stacklevel=2)
     return result

@@ -27,7 +27,7 @@ from .estimators import METHODS
 from .fileio import atomic_path
 from .intervals import Figure
 from .conventions import pauli_labels
-from .merit import FIGURE_NAMES
+from .merit import FIGURE_NAMES, STATE_FIGURE_ORDER
 
 FORMAT = "gatescope.result"
 #: 2: /warnings, checksums, units and conventions as attributes, CSV line numbers,
@@ -42,6 +42,7 @@ CONVENTIONS = {
     "chi": "Phi(rho) = sum_mn chi_mn P_m rho P_n over the Pauli strings of attribute "
            "pauli_order; Tr chi = 1 when trace preserving",
     "ptm": "R_ij = Tr(P_i Phi(P_j))/d over the Pauli strings of attribute pauli_order",
+    "rho": "density matrix of the state, Tr rho = 1",
 }
 PAULI_ORDER = "lexicographic, I < X < Y < Z, qubit 1 (the leftmost tensor factor) most significant"
 QUBIT_ORDER = "qubit 1 is the leftmost tensor factor and the most significant bit"
@@ -73,7 +74,6 @@ def write(path, r) -> Path:
     with atomic_path(path) as tmp:
         with h5py.File(tmp, "w") as f:
             _write(f, r)
-            _write_extensions(f, r)
             checksum.write(f)
     return path
 
@@ -104,6 +104,7 @@ def _write(f: h5py.File, r) -> None:
     f.attrs["format_version"] = FORMAT_VERSION
     f.attrs["created_utc"] = r.created_utc
     f.attrs["origin"] = r.origin
+    f.attrs["kind"] = r.kind
 
     inp = f.create_group("input")
     ds = inp.create_dataset("experiment_toml", data=r.experiment_toml, dtype=_STR)
@@ -117,21 +118,29 @@ def _write(f: h5py.File, r) -> None:
             ds.attrs["units"] = UNITS[name]
 
     model = f.create_group("model")
-    _put(model, "prep_states", np.asarray(r.prep_states, dtype=np.complex128))
-    _put(model, "meas_effects", np.asarray(r.meas_effects, dtype=np.complex128))
-    if r.target is not None:
+    if r.kind == "state":
+        _write_state_model(model, r)
+    else:
+        _put(model, "prep_states", np.asarray(r.prep_states, dtype=np.complex128))
+        _put(model, "meas_effects", np.asarray(r.meas_effects, dtype=np.complex128))
+    if r.target is not None and r.kind != "state":
         t = model.create_dataset("target_unitary", data=np.asarray(r.target, dtype=np.complex128))
         t.attrs["name"] = r.target_name or ""
 
     est = f.create_group("estimate")
-    n_qubits = int(round(np.log2(np.asarray(r.choi).shape[0]) / 2))
-    for name, dtype in (("choi", np.complex128), ("chi", np.complex128), ("ptm", np.float64)):
-        ds = est.create_dataset(name, data=np.asarray(getattr(r, name), dtype=dtype))
-        ds.attrs["convention"] = CONVENTIONS[name]
+    if r.kind == "state":
+        ds = est.create_dataset("rho", data=np.asarray(r.rho, dtype=np.complex128))
+        ds.attrs["convention"] = CONVENTIONS["rho"]
         ds.attrs["qubit_order"] = QUBIT_ORDER
-        if name != "choi":
-            ds.attrs["pauli_order"] = PAULI_ORDER
-            ds.attrs["pauli_labels"] = np.array(pauli_labels(n_qubits), dtype=object).astype(_STR)
+    else:
+        n_qubits = int(round(np.log2(np.asarray(r.choi).shape[0]) / 2))
+        for name, dtype in (("choi", np.complex128), ("chi", np.complex128), ("ptm", np.float64)):
+            ds = est.create_dataset(name, data=np.asarray(getattr(r, name), dtype=dtype))
+            ds.attrs["convention"] = CONVENTIONS[name]
+            ds.attrs["qubit_order"] = QUBIT_ORDER
+            if name != "choi":
+                ds.attrs["pauli_order"] = PAULI_ORDER
+                ds.attrs["pauli_labels"] = np.array(pauli_labels(n_qubits), dtype=object).astype(_STR)
     ds = est.create_dataset("intensities", data=np.asarray(r.intensities, dtype=np.float64))
     ds.attrs["units"] = UNITS["intensities"]
     if r.status is not None:
@@ -179,7 +188,7 @@ def _write(f: h5py.File, r) -> None:
         if r.bootstrap.converged is not None:
             b.create_dataset("converged", data=np.asarray(r.bootstrap.converged, dtype=bool))
         for name, dtype in (("choi_std", np.complex128), ("chi_std", np.complex128),
-                            ("ptm_std", np.float64)):
+                            ("ptm_std", np.float64), ("rho_std", np.complex128)):
             value = getattr(r.bootstrap, name)
             if value is not None:
                 b.create_dataset(name, data=np.asarray(value, dtype=dtype))
@@ -191,6 +200,8 @@ def _write(f: h5py.File, r) -> None:
 
     f.create_dataset("warnings", data=np.array([str(w) for w in r.warnings], dtype=object),
                      dtype=_STR, shape=(len(r.warnings),))
+
+    write_conditions(f, r.conditions)
 
     d = r.diagnostics
     if d is None:                      # the true channel of a simulation has no fit to test
@@ -210,41 +221,33 @@ def _write(f: h5py.File, r) -> None:
         dg.create_dataset("outlier_lines", data=np.asarray(d.outlier_lines, dtype=np.int64))
 
 
-# --------------------------------------------------------------------------
-# Parts that capabilities add: written and read here, absent from other files
-# --------------------------------------------------------------------------
-
-#: Root attributes and groups that capabilities add to a result. A result object that
-#: has the attribute (not None) writes it; a file that has it reads it back into the
-#: keyword arguments of `Result` (which then needs the field):
-#: ``kind`` (root attribute: what was estimated, e.g. "process" or "state") and
-#: ``conditions`` (group /conditions: one attribute per experimental condition).
-EXTENSION_ATTRIBUTES = ("kind",)
-EXTENSION_GROUPS = ("conditions",)
+def write_conditions(f: h5py.File, conditions: dict) -> None:
+    """/conditions: one attribute per condition, in the experiment file's order
+    (int64, float64 or UTF-8 text)."""
+    group = f.create_group("conditions", track_order=True)
+    for name, value in conditions.items():
+        if isinstance(value, str):
+            group.attrs.create(name, value, dtype=_STR)
+        else:
+            group.attrs[name] = np.int64(value) if isinstance(value, int) else np.float64(value)
 
 
-def _write_extensions(f: h5py.File, r) -> None:
-    for name in EXTENSION_ATTRIBUTES:
-        value = getattr(r, name, None)
-        if value is not None:
-            f.attrs[name] = value
-    for name in EXTENSION_GROUPS:
-        value = getattr(r, name, None)
-        if value is not None:
-            group = f.create_group(name)
-            for key, item in dict(value).items():
-                group.attrs[key] = item
+def read_conditions(f: h5py.File) -> dict:
+    """The conditions of /conditions (empty for a file without the group)."""
+    if "conditions" not in f:
+        return {}
+    group = f["conditions"]
+    return {name: _attr(group, name) for name in group.attrs}
 
 
-def _read_extensions(f: h5py.File) -> dict:
-    out = {}
-    for name in EXTENSION_ATTRIBUTES:
-        if name in f.attrs:
-            out[name] = _attr(f, name)
-    for name in EXTENSION_GROUPS:
-        if name in f:
-            out[name] = {key: _attr(f[name], key) for key in f[name].attrs}
-    return out
+def _write_state_model(model, r) -> None:
+    """/model of a state: the single-qubit effects and every setting's parts (the dense
+    effects of a six-qubit experiment would take gigabytes), and the target state."""
+    _put(model, "single_meas_effects", np.asarray(r.single_meas_effects, dtype=np.complex128))
+    _put(model, "meas_parts", np.asarray(r.meas_parts, dtype=np.int64))
+    if r.target is not None:
+        t = model.create_dataset("target_state", data=np.asarray(r.target, dtype=np.complex128))
+        t.attrs["name"] = r.target_name or ""
 
 
 def _attr(obj, key, default=None):
@@ -446,18 +449,33 @@ def _read(c: _Checked, verify: bool) -> dict:
             raise _Damaged(problems[0][0], f"the content does not match its checksums "
                                            f"({listed}{more}): the file was damaged or altered")
 
+    kind = c.attr("/", "kind", str, "process")        # files without it hold a process
+    if kind not in ("process", "state"):
+        raise _Damaged("/@kind", f"is {kind!r}, expected process or state")
+    state = kind == "state"
+
     # -- the estimate and its dimension, which every other part must agree with
-    choi = c.array("/estimate/choi", "fc", 2)
-    d2 = choi.shape[0]
-    d = int(round(np.sqrt(d2)))
-    if choi.shape != (d2, d2) or d * d != d2 or d < 2 or d & (d - 1) or d > 2 ** 6:
-        raise _Damaged("/estimate/choi", f"has shape {choi.shape}: not the Choi matrix of 1 to 6 "
-                                         "qubits (d² × d², d a power of two)")
-    chi = c.array("/estimate/chi", "fc", 2)
-    ptm = c.array("/estimate/ptm", "f", 2)
-    for name, m in (("chi", chi), ("ptm", ptm)):
-        if m.shape != (d2, d2):
-            raise _Damaged(f"/estimate/{name}", f"has shape {m.shape}, the Choi matrix {choi.shape}")
+    if state:
+        rho = c.array("/estimate/rho", "fc", 2)
+        d = rho.shape[0]
+        if rho.shape != (d, d) or d < 2 or d & (d - 1) or d > 2 ** 6:
+            raise _Damaged("/estimate/rho", f"has shape {rho.shape}: not the density matrix of "
+                                            "1 to 6 qubits (d × d, d a power of two)")
+        choi = chi = ptm = None
+    else:
+        rho = None
+        choi = c.array("/estimate/choi", "fc", 2)
+        d2 = choi.shape[0]
+        d = int(round(np.sqrt(d2)))
+        if choi.shape != (d2, d2) or d * d != d2 or d < 2 or d & (d - 1) or d > 2 ** 6:
+            raise _Damaged("/estimate/choi", f"has shape {choi.shape}: not the Choi matrix of 1 "
+                                             "to 6 qubits (d² × d², d a power of two)")
+        chi = c.array("/estimate/chi", "fc", 2)
+        ptm = c.array("/estimate/ptm", "f", 2)
+        for name, m in (("chi", chi), ("ptm", ptm)):
+            if m.shape != (d2, d2):
+                raise _Damaged(f"/estimate/{name}", f"has shape {m.shape}, the Choi matrix "
+                                                    f"{choi.shape}")
     intensities = c.array("/estimate/intensities", "f", 1)
     if intensities.size == 0 or np.any(intensities < 0):
         raise _Damaged("/estimate/intensities", "must hold one non-negative intensity per group")
@@ -474,7 +492,6 @@ def _read(c: _Checked, verify: bool) -> dict:
         if not re.fullmatch(r"[0-9a-f]{64}", value):
             raise _Damaged(f"{part}/@sha256", f"is {value!r}, not a SHA-256 in hexadecimal")
         hashes[where] = value
-
     # -- the input
     counts = {}
     group = c.node("/input/counts", h5py.Group)
@@ -485,7 +502,7 @@ def _read(c: _Checked, verify: bool) -> dict:
             counts[name] = np.array(c.strings(where), dtype=object)
         else:
             counts[name] = c.array(where, "iuf", 1)
-    for name in ("prep", "meas", "counts", "prep_index", "meas_index"):
+    for name in ("meas", "counts", "meas_index") + (() if state else ("prep", "prep_index")):
         if name not in counts:
             raise _Damaged(f"/input/counts/{name}", "missing")
     n_rows = len(counts["counts"])
@@ -498,26 +515,51 @@ def _read(c: _Checked, verify: bool) -> dict:
     for name in ("counts", "prep_index", "meas_index", "line"):
         if name in counts and (counts[name].dtype.kind not in "iu" or np.any(counts[name] < 0)):
             raise _Damaged(f"/input/counts/{name}", "must hold non-negative whole numbers")
-    prep_states = c.array("/model/prep_states", "fc", 3)
-    meas_effects = c.array("/model/meas_effects", "fc", 3)
-    for name, m, index in (("prep_states", prep_states, "prep_index"),
-                           ("meas_effects", meas_effects, "meas_index")):
-        if m.shape[1:] != (d, d):
-            raise _Damaged(f"/model/{name}", f"holds {m.shape[1]}×{m.shape[2]} matrices; the "
-                                             f"estimate needs {d}×{d}")
-        if np.any(counts[index] >= m.shape[0]):
-            raise _Damaged(f"/input/counts/{index}", f"points past the {m.shape[0]} entries of "
-                                                     f"/model/{name}")
+    model = {}
     target = target_name = None
-    if c.has("/model/target_unitary"):
-        target = c.array("/model/target_unitary", "fc", 2)
-        if target.shape != (d, d):
-            raise _Damaged("/model/target_unitary", f"has shape {target.shape}, expected {d}×{d}")
-        target_name = c.attr("/model/target_unitary", "name", str, "")
+    if state:
+        n = d.bit_length() - 1
+        effects = c.array("/model/single_meas_effects", "fc", 3)
+        parts = c.array("/model/meas_parts", "iu", 2)
+        if effects.shape[1:] != (2, 2):
+            raise _Damaged("/model/single_meas_effects", f"holds {effects.shape[1]}×"
+                                                         f"{effects.shape[2]} matrices, not 2×2")
+        if parts.shape[1] != n or np.any(parts < 0) or np.any(parts >= effects.shape[0]):
+            raise _Damaged("/model/meas_parts", f"is not a table of {n} indices into the "
+                                                f"{effects.shape[0]} single-qubit effects")
+        if np.any(counts["meas_index"] >= parts.shape[0]):
+            raise _Damaged("/input/counts/meas_index", f"points past the {parts.shape[0]} "
+                                                       "settings of /model/meas_parts")
+        model = dict(single_meas_effects=effects, meas_parts=parts, prep_states=None,
+                     meas_effects=None)
+        if c.has("/model/target_state"):
+            target = c.array("/model/target_state", "fc")
+            if target.shape not in ((d,), (d, d)):
+                raise _Damaged("/model/target_state", f"has shape {target.shape}, expected a "
+                                                      f"state of dimension {d}")
+            target_name = c.attr("/model/target_state", "name", str, "")
+    else:
+        prep_states = c.array("/model/prep_states", "fc", 3)
+        meas_effects = c.array("/model/meas_effects", "fc", 3)
+        for name, m, index in (("prep_states", prep_states, "prep_index"),
+                               ("meas_effects", meas_effects, "meas_index")):
+            if m.shape[1:] != (d, d):
+                raise _Damaged(f"/model/{name}", f"holds {m.shape[1]}×{m.shape[2]} matrices; the "
+                                                 f"estimate needs {d}×{d}")
+            if np.any(counts[index] >= m.shape[0]):
+                raise _Damaged(f"/input/counts/{index}", f"points past the {m.shape[0]} entries of "
+                                                         f"/model/{name}")
+        model = dict(prep_states=prep_states, meas_effects=meas_effects)
+        if c.has("/model/target_unitary"):
+            target = c.array("/model/target_unitary", "fc", 2)
+            if target.shape != (d, d):
+                raise _Damaged("/model/target_unitary", f"has shape {target.shape}, expected "
+                                                        f"{d}×{d}")
+            target_name = c.attr("/model/target_unitary", "name", str, "")
 
     # -- figures
     figures = {}
-    order = {name: k for k, name in enumerate(FIGURE_NAMES)}
+    order = {name: k for k, name in enumerate(STATE_FIGURE_ORDER if state else FIGURE_NAMES)}
     names = list(c.node("/figures", h5py.Group))
     for name in sorted(names, key=lambda n: (order.get(n, len(order)), n)):
         where = f"/figures/{name}"
@@ -529,8 +571,9 @@ def _read(c: _Checked, verify: bool) -> dict:
         figures[name] = Figure(float(value), ci, level,
                                determined=c.attr(where, "determined", bool, True))
 
-    required = ("purity", "trace", "min_eigenvalue") + (
-        ("process_fidelity", "average_gate_fidelity") if target is not None else ())
+    required = (("purity",) if state else ("purity", "trace", "min_eigenvalue")) + (
+        (("state_fidelity",) if state else ("process_fidelity", "average_gate_fidelity"))
+        if target is not None else ())
     for name in required:
         if name not in figures:
             raise _Damaged(f"/figures/{name}", "missing")
@@ -549,7 +592,7 @@ def _read(c: _Checked, verify: bool) -> dict:
             raise _Damaged(f"{b}/figures", f"has {values.shape[1]} columns for {len(bnames)} names")
         optional = {}
         for name, kinds in (("converged", "b"), ("choi_std", "fc"), ("chi_std", "fc"),
-                            ("ptm_std", "f")):
+                            ("ptm_std", "f"), ("rho_std", "fc")):
             optional[name] = (c.array(f"{b}/{name}", kinds, finite=False)
                               if c.has(f"{b}/{name}") else None)
         boot = Bootstrap(values, bnames, c.attr(b, "kind", str), c.attr(b, "seed", int),
@@ -599,8 +642,8 @@ def _read(c: _Checked, verify: bool) -> dict:
         experiment_toml = experiment_toml.decode("utf-8", "replace")
     if not isinstance(experiment_toml, str):
         raise _Damaged(toml_ds, "is not text")
-    return dict(
-        choi=choi, chi=chi, ptm=ptm, figures=figures, method=method,
+    return model | dict(
+        choi=choi, chi=chi, ptm=ptm, rho=rho, figures=figures, method=method,
         converged=c.attr("/estimate", "converged", bool),
         iterations=iterations,
         log_likelihood=c.attr("/estimate", "log_likelihood", float),
@@ -608,9 +651,22 @@ def _read(c: _Checked, verify: bool) -> dict:
         seconds=c.attr("/estimate", "seconds", float), intensities=intensities,
         diagnostics=diagnostics, provenance=prov, experiment_toml=experiment_toml,
         toml_sha256=hashes["toml"], csv_sha256=hashes["csv"],
-        counts_columns=counts, prep_states=prep_states, meas_effects=meas_effects,
-        target=target, target_name=target_name, bootstrap=boot,
+        counts_columns=counts, target=target, target_name=target_name, bootstrap=boot,
         created_utc=c.attr("/", "created_utc", str), figure_details=details, origin=origin,
-        warnings=warnings, status=c.attr("/estimate", "status", str, None),
-        **_read_extensions(f),
+        warnings=warnings, status=c.attr("/estimate", "status", str, None), kind=kind,
+        conditions=_checked_conditions(c),
     )
+
+
+def _checked_conditions(c: _Checked) -> dict:
+    """/conditions, each a whole number, a finite number or a text (empty without it)."""
+    if not c.has("/conditions"):
+        return {}
+    out = {}
+    for name in c.node("/conditions", h5py.Group).attrs:
+        value = c.attr("/conditions", name, object)
+        if isinstance(value, bool) or not isinstance(value, (int, float, str)) or \
+                (isinstance(value, float) and not np.isfinite(value)):
+            raise _Damaged(f"/conditions/@{name}", f"is {value!r}: a condition is a number or a text")
+        out[name] = value
+    return out

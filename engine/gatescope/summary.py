@@ -1,5 +1,5 @@
-"""A compact terminal summary of a `Result` (the `show` command), and the short
-summary `fit` prints.
+"""A compact terminal summary of a `Result` (the `show` command), of a process or a
+state, and the short summary `fit` prints.
 
 Honest screens: the warnings a fit raised come first; a figure the data do
 not determine is shown as such, with the estimator's value in brackets; a
@@ -15,11 +15,11 @@ import tomllib
 
 import numpy as np
 
-from .channels import dim_of_choi
 from .checks import PHYSICAL_TOLERANCE
 from .conventions import n_qubits_of
 from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
 from .errors import printable as clean
+from .estimators import MAXIMUM_LIKELIHOOD
 from .intervals import parameter_range
 from .result import Result
 
@@ -36,6 +36,21 @@ LABELS = {
     "concurrence": "concurrence of output",
     "diamond_distance": "diamond distance to target",
 }
+#: Labels of the state figures (``negativity_k`` is labelled by `_label`).
+STATE_LABELS = {
+    "state_fidelity": "state fidelity",
+    "purity": "purity (Tr ρ²)",
+    "von_neumann_entropy": "von Neumann entropy (bits)",
+    "linear_entropy": "linear entropy",
+    "concurrence": "concurrence",
+    "tangle": "tangle",
+    "entanglement_of_formation": "entanglement of formation",
+    "negativity": "negativity",
+    "log_negativity": "log-negativity",
+    "chsh_max": "largest CHSH value",
+}
+#: `show` prints the density matrix of states up to this many qubits.
+DENSITY_MATRIX_MAX_QUBITS = 2
 
 #: Outlier rows listed by `show` (the rest are counted).
 MAX_OUTLIERS_SHOWN = 20
@@ -44,6 +59,7 @@ MAX_OUTLIERS_SHOWN = 20
 #: Main figures of the short summary `fit` prints, in order.
 MAIN_FIGURES = ("process_fidelity", "average_gate_fidelity", "purity", "unitarity",
                 "truth_table_fidelity", "concurrence")
+STATE_MAIN_FIGURES = ("state_fidelity", "purity", "concurrence", "negativity", "chsh_max")
 
 
 def _num(x: float) -> str:
@@ -61,9 +77,8 @@ def status_of(r: Result) -> str:
         return r.status
     if r.origin == "truth":
         return "converged"
-    d = dim_of_choi(np.asarray(r.choi))
-    low = r.figures.get("min_eigenvalue")
-    if low is not None and np.isfinite(low.value) and low.value < -PHYSICAL_TOLERANCE * d:
+    low = r.figures.get("min_eigenvalue")           # a process's; a state's is not stored
+    if low is not None and np.isfinite(low.value) and low.value < -PHYSICAL_TOLERANCE * r.dim:
         return "unphysical"
     return "converged" if r.converged else "not converged"
 
@@ -78,18 +93,18 @@ def _status_text(r: Result) -> str:
     if status == "unphysical":
         low = r.figures.get("min_eigenvalue")
         return "UNPHYSICAL estimate" + (f" (smallest eigenvalue of J {_num(low.value)})"
-                                        if low is not None else "")
+                                        if low is not None and r.kind != "state" else "")
     return "NOT converged"
 
 
-def _out_of_range(name: str, value: float, dim: int) -> str:
-    bounds = parameter_range(name, dim)
+def _out_of_range(name: str, value: float, dim: int, kind: str = "process") -> str:
+    bounds = parameter_range(name, dim, kind)
     if bounds is None or not np.isfinite(value):
         return ""
     slack = 1e-9
     if value < bounds[0] - slack or value > bounds[1] + slack:
         return (f"  (!) outside [{_num(bounds[0])}, {_num(bounds[1])}], impossible for a physical "
-                "process")
+                + ("state" if kind == "state" else "process"))
     return ""
 
 
@@ -116,11 +131,11 @@ def title_of(r: Result) -> str:
         return ""
 
 
-def _figure_line(name: str, fig, dim: int) -> str:
-    label = f"  {LABELS.get(name, name):30s} "
+def _figure_line(name: str, fig, dim: int, kind: str = "process") -> str:
+    label = f"  {_label(name, kind == 'state'):30s} "
     if not fig.determined:
         return label + f"not determined by the data (the estimator's value: {_num(fig.value)})"
-    return label + _fmt_figure(fig) + _out_of_range(name, fig.value, dim)
+    return label + _fmt_figure(fig) + _out_of_range(name, fig.value, dim, kind)
 
 
 def _warning_lines(r: Result) -> list[str]:
@@ -131,15 +146,17 @@ def _warning_lines(r: Result) -> list[str]:
         out.append("")
     if r.origin != "truth" and status_of(r) == "unphysical" and \
             not any(w.startswith("[unphysical]") for w in r.warnings):
-        out.append(f"UNPHYSICAL ESTIMATE: the {r.method} estimate is not a physical process; "
-                   "figures marked (!) lie outside the range of every physical process, and the "
+        what = "state" if r.kind == "state" else "process"
+        out.append(f"UNPHYSICAL ESTIMATE: the {r.method} estimate is not a physical {what}; "
+                   f"figures marked (!) lie outside the range of every physical {what}, and the "
                    "likelihood is not defined where it predicts negative counts. Refit with mle "
                    "(or pls) for a physical estimate.")
         out.append("")
-    undetermined = [LABELS.get(k, k) for k, f in r.figures.items() if not f.determined]
+    undetermined = [_label(k, r.kind == "state") for k, f in r.figures.items() if not f.determined]
     if undetermined:
+        what = "states" if r.kind == "state" else "processes"
         out.append(f"NOT DETERMINED BY THE DATA: {', '.join(undetermined)} (their values depend "
-                   "on the estimator's choice among processes that fit the data equally well)")
+                   f"on the estimator's choice among {what} that fit the data equally well)")
         out.append("")
     return out
 
@@ -152,28 +169,36 @@ def summary(result: Result, *, source: str | None = None) -> str:
     r = result
     lines = []
     toml_title = title_of(r)
-    dim = dim_of_choi(r.choi)
+    dim = r.dim
     n = n_qubits_of(dim)
+    state = r.kind == "state"
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
-    lines.append(f"  qubits {n}, target {r.target_name or 'none'}, rows {len(r.counts_columns['counts'])}, "
+    lines.append(f"  {'state, ' if state else ''}qubits {n}, "
+                 f"target {'state ' if state else ''}{r.target_name or 'none'}, "
+                 f"rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
     if source:
         lines.append(f"  {source}")
+    if r.conditions:
+        lines.append("  conditions: " + ", ".join(f"{name} = {value!r}"
+                                                  for name, value in r.conditions.items()))
     lines.append("")
     lines.extend(_warning_lines(r))
     lines.append("figures of merit")
     for name, fig in r.figures.items():
-        lines.append(_figure_line(name, fig, dim))
-    lines.extend(_figure_details(r))
+        lines.append(_figure_line(name, fig, dim, r.kind))
+    lines.extend(_state_details(r) if state else _figure_details(r))
     if r.bootstrap is not None:
         b = r.bootstrap
         refit = f" refitted with {b.method}" if b.method else ""
         errors = f", {b.errors} raised an error" if b.errors else ""
         lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
                      f"seed {b.seed}; {b.failures} did not converge{errors})")
+    if state:
+        lines.extend(_density_matrix(r))
     lines.append("")
     if r.origin == "truth":
-        lines.append("true channel of a simulation (not a fit)")
+        lines.append(f"true {'state' if state else 'channel'} of a simulation (not a fit)")
         lines.append(f"  {r.stop_reason}")
         lines.append(f"  log-likelihood at the simulated counts {r.log_likelihood:.6f}")
     else:
@@ -200,6 +225,49 @@ def summary(result: Result, *, source: str | None = None) -> str:
     lines.append(f"  command: {pr.get('command_line', '')}")
     lines.append(f"  input sha256: experiment {r.toml_sha256[:12]}…, counts {r.csv_sha256[:12]}…")
     return "\n".join(clean(line) for line in lines)
+
+
+def _label(name: str, state: bool) -> str:
+    if not state:
+        return LABELS.get(name, name)
+    if name.startswith("negativity_"):
+        return f"negativity, qubit {name[len('negativity_'):]} | rest"
+    return STATE_LABELS.get(name, name)
+
+
+def _state_details(r: Result) -> list[str]:
+    """The CHSH settings that reach ``chsh_max``."""
+    det = r.figure_details
+    out = []
+    if "chsh_a" in det:
+        out.append("    CHSH settings reaching it, Bloch directions (<X>, <Y>, <Z>):")
+        for key, who in (("chsh_a", "a  (qubit 1)"), ("chsh_a_prime", "a' (qubit 1)"),
+                         ("chsh_b", "b  (qubit 2)"), ("chsh_b_prime", "b' (qubit 2)")):
+            out.append(f"      {who} (" + ", ".join(f"{round(x, 3) + 0.0:+.3f}" for x in det[key])
+                       + ")")
+    if "correlation_singular_values" in det:
+        t = np.asarray(det["correlation_singular_values"])
+        out.append("    singular values of the correlation matrix T_ij = Tr[ρ σ_i⊗σ_j]: "
+                   + ", ".join(f"{x:.4f}" for x in t))
+    return out
+
+
+def _density_matrix(r: Result) -> list[str]:
+    """For up to `DENSITY_MATRIX_MAX_QUBITS` qubits the density matrix, with its bootstrap
+    standard deviations when there are any."""
+    rho = np.asarray(r.rho)
+    out = []
+    if rho.shape[0] <= 2 ** DENSITY_MATRIX_MAX_QUBITS:
+        out.append("")
+        out.append("density matrix (rows; basis H = |0>, qubit 1 first)")
+        for row in rho:
+            out.append("  " + "  ".join(f"{z.real:+.4f}{z.imag:+.4f}j" for z in row))
+        std = None if r.bootstrap is None else r.bootstrap.rho_std
+        if std is not None:
+            out.append("  its bootstrap standard deviations (real part/imaginary part)")
+            for row in np.asarray(std):
+                out.append("  " + "  ".join(f" {z.real:.4f}/{z.imag:.4f}  " for z in row).rstrip())
+    return out
 
 
 def _degrees(phases) -> str:
@@ -244,11 +312,14 @@ def _row_table(r: Result, rows, heading: str, *, residual: bool) -> list[str]:
     cols = r.counts_columns
     name, numbers = row_numbers(r, rows)
     where = "CSV line, header = line 1" if name == "line" else "CSV data row, first = 1"
+    has_prep = "prep" in cols                          # a state has no preparations
     out = [f"  {heading} ({where}):",
-           f"    {name:>6s}  {'prep':10s} {'meas':10s} {'counts':>9s} {'expected':>11s}"
+           f"    {name:>6s}  " + (f"{'prep':10s} " if has_prep else "")
+           + f"{'meas':10s} {'counts':>9s} {'expected':>11s}"
            + (f" {'residual':>9s}" if residual else "")]
     for k, number in list(zip(rows, numbers))[:MAX_OUTLIERS_SHOWN]:
-        out.append(f"    {number:6d}  {str(cols['prep'][k]):10s} {str(cols['meas'][k]):10s} "
+        prep = f"{str(cols['prep'][k]):10s} " if has_prep else ""
+        out.append(f"    {number:6d}  {prep}{str(cols['meas'][k]):10s} "
                    f"{int(cols['counts'][k]):9d} {dg.expected_counts[k]:11.2f}"
                    + (f" {dg.pearson_residuals[k]:+9.2f}" if residual else ""))
     if len(rows) > MAX_OUTLIERS_SHOWN:
@@ -271,7 +342,7 @@ def _goodness_of_fit(r: Result) -> list[str]:
     else:
         out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance "
                f"{dg.deviance:.2f} (p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
-        if r.method != "mle":
+        if r.method not in MAXIMUM_LIKELIHOOD:
             out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these "
                        "p-values are lower than for the model itself; refit with mle to test the "
                        "model)")
@@ -296,11 +367,12 @@ def fit_summary(result: Result, path) -> str:
     status and p-value, the warnings (their first clause; `show` prints them whole) and
     the path of the result file."""
     r = result
-    dim = dim_of_choi(r.choi)
+    dim = r.dim
     lines = [f"gatescope fit: {title_of(r) or '(untitled)'}"]
-    shown = [k for k in MAIN_FIGURES if k in r.figures] or list(r.figures)[:4]
+    main = STATE_MAIN_FIGURES if r.kind == "state" else MAIN_FIGURES
+    shown = [k for k in main if k in r.figures] or list(r.figures)[:4]
     for name in shown:
-        lines.append(_figure_line(name, r.figures[name], dim))
+        lines.append(_figure_line(name, r.figures[name], dim, r.kind))
     fit = f"  fit: {r.method}, {_status_text(r).split(' (')[0]}"
     dg = r.diagnostics
     if dg is not None and np.isfinite(dg.p_value) and dg.dof > 0:
