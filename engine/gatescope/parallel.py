@@ -435,5 +435,4 @@ def _dask_client(address: str):
 
 
 __all__ = ["Runner", "chunk_sizes", "limit_threads", "single_threaded_blas", "blas_thread_counts",
-           "thread_settings",
-           "fork_is_safe", "THREAD_VARIABLES", "CHUNKS_PER_WORKER"]
+           "thread_settings", "fork_is_safe", "THREAD_VARIABLES", "CHUNKS_PER_WORKER"]

@@ -364,7 +364,7 @@ def _goodness_of_fit(r: Result) -> list[str]:
 
 def fit_summary(result: Result, path) -> str:
     """The short summary `fit` prints: the main figures with their intervals, the fit's
-    status and p-value, the warnings (their first clause; `show` prints them whole) and
+    status and p-value, the warnings (cut to one line; `show` prints them whole) and
     the path of the result file."""
     r = result
     dim = r.dim
@@ -383,8 +383,7 @@ def fit_summary(result: Result, path) -> str:
     if r.warnings:
         lines.append(f"  {len(r.warnings)} warning(s):")
         for w in r.warnings:
-            first = w.split(": ")[0] if len(w) > 100 else w
-            lines.append(f"    {first if len(first) <= 110 else first[:107] + '...'}")
+            lines.append(f"    {w if len(w) <= 110 else w[:107] + '...'}")
     else:
         lines.append("  no warnings")
     lines.append(f"  result written to {path} (gatescope show for everything)")
