@@ -14,6 +14,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import sys
+import tempfile
 import threading
 import time
 import warnings
@@ -39,7 +40,7 @@ from .options import workers as check_workers
 from .parallel import single_threaded_blas
 from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
-from .reader import Experiment
+from .reader import Experiment, read_experiment
 from .result import Result, build_result
 
 
@@ -149,10 +150,30 @@ def warm_marker(model, method: str) -> Path | None:
         source = Path(kernels.__file__).read_bytes()
     except (AttributeError, IndexError, OSError):
         return None
-    key = (f"{numba.__version__} {sys.version} {method} {model.kind} "
-           f"{model.kind == 'state' or model.dim <= KERNEL_MAX_DIM} {model.trace_decreasing}")
+    key = f"{numba.__version__} {sys.version} {method} {model.kind} {model.trace_decreasing}"
     digest = hashlib.sha256(source + key.encode("utf-8")).hexdigest()[:16]
     return folder / f"gatescope-warm-{digest}"
+
+
+def _surrogate(model):
+    """A one-qubit model of the same kind as ``model`` (process or state, trace preserving
+    or not), read from files as every experiment is, so that its arrays have the same
+    types: warming the estimator up on it compiles what ``model``'s fit will call, in
+    milliseconds whatever the size of ``model``."""
+    labels = ("H", "V", "D", "A", "R", "L")
+    if model.kind == "state":
+        toml = 'kind = "state"\nqubits = 1\ncounts = "counts.csv"\n'
+        rows = ["meas,counts"] + [f"{m},{10 + 3 * k}" for k, m in enumerate(labels)]
+    else:
+        toml = 'qubits = 1\ncounts = "counts.csv"\n'
+        if model.trace_decreasing:
+            toml += 'normalization = "global"\ntrace = "decreasing"\ninput_rate = 100.0\n'
+        rows = ["prep,meas,counts"] + [f"{p},{m},{10 + (3 * j + k) % 7}"
+                                       for j, p in enumerate(labels) for k, m in enumerate(labels)]
+    with tempfile.TemporaryDirectory(prefix="gatescope-warm-up-") as folder:
+        Path(folder, "experiment.toml").write_text(toml, encoding="utf-8")
+        Path(folder, "counts.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+        return build_model(read_experiment(folder))
 
 
 def compile_kernels(model, method: str = "mle", *, notify: bool = True,
@@ -161,10 +182,10 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
 
     Called before the estimator, so that the estimator's ``seconds`` measure the fit
     alone. Unless a warm-up of this kind finished before (`warm_marker`), a few
-    iterations of the estimator on the model compile everything it calls, and with
-    ``notify`` `COMPILE_NOTICE` goes to ``stream`` (stderr) once that takes longer than
-    `NOTICE_AFTER_SECONDS`. Returns the seconds spent when something was compiled,
-    else None.
+    iterations of the estimator on a one-qubit model of the same kind (`_surrogate`)
+    compile everything it calls, and with ``notify`` `COMPILE_NOTICE` goes to
+    ``stream`` (stderr) once that takes longer than `NOTICE_AFTER_SECONDS`. Returns the
+    seconds spent when something was compiled, else None.
     """
     stream = sys.stderr if stream is None else stream
     marker = warm_marker(model, method)
@@ -185,7 +206,7 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 try:
-                    estimate(model, method, maxiter=WARM_UP_ITERATIONS)
+                    estimate(_surrogate(model), method, maxiter=WARM_UP_ITERATIONS)
                 except (ArithmeticError, ValueError):   # the fit itself will say what fails
                     pass
             if marker is not None:

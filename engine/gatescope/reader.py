@@ -239,7 +239,9 @@ def _load_unitary_file(upath: Path, toml: _Toml) -> np.ndarray:
         raise toml.error("target.unitary", f"{upath} is an .npz archive; save the unitary alone "
                                            "with numpy.save (a .npy file)")
     if u.dtype.names is not None or u.dtype.kind not in "biufc":
-        raise toml.error("target.unitary", f"{upath} holds {u.dtype} values, not numbers")
+        what = "records" if u.dtype.names is not None else "text" if u.dtype.kind in "SU" else \
+            "objects" if u.dtype.kind == "O" else "values"
+        raise toml.error("target.unitary", f"{upath} holds {what} (dtype {u.dtype}), not numbers")
     if u.ndim != 2:
         raise toml.error("target.unitary", f"{upath} holds a {u.ndim}-dimensional array; "
                                            "the unitary is a square matrix")
