@@ -197,7 +197,8 @@ def test_fit_refuses_to_replace_a_result_and_force_replaces_it(small, capsys):
     ("under-a-file", "is a file, not a folder"),
     ("counts", "input of this result"),
     ("experiment", "input of this result"),
-], ids=["a-folder", "under-a-file", "the-counts-file", "the-experiment-file"])
+    ("unitary", "input of this result"),
+], ids=["a-folder", "under-a-file", "the-counts-file", "the-experiment-file", "the-target-file"])
 def test_bad_output_paths_are_refused_before_the_fit(small, capsys, monkeypatch, target, words):
     from gatescope import pipeline
 
@@ -206,8 +207,10 @@ def test_bad_output_paths_are_refused_before_the_fit(small, capsys, monkeypatch,
 
     monkeypatch.setattr(pipeline, "_fit", no_fit)
     folder = small.path.parent
+    np.save(folder / "u.npy", np.array([[1, 1], [1, -1]]) / np.sqrt(2))
+    small.path.write_text(small.path.read_text().replace('target = "H"', 'target = { unitary = "u.npy" }'))
     out = {"folder": folder, "under-a-file": small.counts_path / "r.h5",
-           "counts": small.counts_path, "experiment": small.path}[target]
+           "counts": small.counts_path, "experiment": small.path, "unitary": folder / "u.npy"}[target]
     before = small.counts_path.read_bytes()
     assert main(["fit", str(small.path), "-o", str(out), "--force"]) == 2
     err = capsys.readouterr().err

@@ -209,7 +209,7 @@ def _print_warnings_to_stderr(texts) -> None:
 def cmd_fit(args, command_line) -> int:
     from .fileio import check_output
     from .pipeline import check_fit_options, fit
-    from .reader import read_experiment
+    from .reader import input_files, read_experiment
 
     check_fit_options(method=args.method, bootstrap=args.bootstrap,
                       bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
@@ -217,7 +217,7 @@ def cmd_fit(args, command_line) -> int:
                       command_line=True)
     exp = read_experiment(args.experiment)
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
-    check_output(out, force=args.force, inputs=(exp.path, exp.counts_path),
+    check_output(out, force=args.force, inputs=tuple(input_files(exp.path).values()),
                  option=_typed(args.argv, "-o", "--output"))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
