@@ -99,7 +99,7 @@ def test_a_temporary_file_of_a_running_writer_is_kept(tmp_path):
     from gatescope.fileio import _host, atomic_write_text, remove_stale_temporaries
 
     mine = tmp_path / f".r.h5.{_host()}.{os.getppid()}.abcdefgh.tmp"      # a live process
-    other_host = tmp_path / f".r.h5.elsewhere.999999.abcdefgh.tmp"
+    other_host = tmp_path / ".r.h5.elsewhere.999999.abcdefgh.tmp"
     mine.write_text("x")
     other_host.write_text("x")
     assert remove_stale_temporaries(tmp_path / "r.h5") == []
