@@ -34,7 +34,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .conventions import GATE_NAMES
     from .estimators import METHODS
     from .intervals import DEFAULT_INTERVAL, INTERVALS
-    from .synth.noise import NOISE_KINDS
+    from .synth.noise import spec_forms
 
     p = _Parser(prog="gatescope", description="Quantum process tomography from laboratory counts.")
     p.add_argument("--version", action="store_true", help="print the version and exit")
@@ -61,10 +61,10 @@ def build_parser() -> argparse.ArgumentParser:
     m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel")
     src = m.add_mutually_exclusive_group(required=True)
     src.add_argument("--gate", help=f"a named gate ({' '.join(GATE_NAMES)})")
-    src.add_argument("--channel", metavar="SPEC", help="GATE[+KIND:P]... or random:RANK[:SEED]")
-    m.add_argument("--noise", action="append", default=[], metavar="KIND:P",
-                   help=f"noise after the gate, KIND:P with KIND one of {', '.join(NOISE_KINDS)} "
-                        "(repeatable)")
+    src.add_argument("--channel", metavar="SPEC",
+                     help="GATE[+TERM]... or random:RANK[:SEED][+TERM]... (README, Commands)")
+    m.add_argument("--noise", action="append", default=[], metavar="TERM",
+                   help=f"noise after the gate, one of {spec_forms()} (repeatable)")
     m.add_argument("--qubits", type=int, default=2, help="qubits of a random channel (default 2)")
     m.add_argument("--shots", type=float, default=1000.0, metavar="N",
                    help="expected counts per preparation and analyser basis (default 1000)")
@@ -150,7 +150,7 @@ def cmd_show(args, command_line) -> int:
 
 
 def cmd_simulate(args, command_line) -> int:
-    from .synth.noise import parse_noise
+    from .synth.noise import parse_term
     from .synth.simulate import run_simulation
 
     if args.gate is not None:
@@ -159,7 +159,7 @@ def cmd_simulate(args, command_line) -> int:
         options.choice(args.gate, GATE_NAMES, "--gate", "gate")
     for text in args.noise:
         try:
-            parse_noise(text)
+            parse_term(text)
         except ValueError as exc:
             raise InputError(str(exc), key="--noise") from None
     option = "--channel" if args.channel else "--gate"
