@@ -23,7 +23,7 @@ CORE = ["errors", "options", "fileio", "provenance", "progress", "parallel", "co
         "merit", "intervals", "bootstrap", "diagnostics", "result_file", "result", "pipeline",
         "summary", "__init__"]
 #: Capabilities, in the order they may build on each other.
-CAPABILITIES = ["synth"]
+CAPABILITIES = ["synth", "batch", "report", "bench"]
 #: The entry points, above everything.
 ENTRY = ["cli", "__main__"]
 ORDER = CORE + CAPABILITIES + ENTRY

@@ -91,7 +91,42 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("-o", "--output", required=True, metavar="SHEET.csv")
 
     sub.add_parser("demo", help="the whole job on the bundled data")
+    _add_bench_parser(sub)
     return p
+
+
+def _add_bench_parser(sub) -> None:
+    from .bench.run import DEFAULT_REPEATS
+    from .intervals import DEFAULT_INTERVAL, INTERVALS
+
+    b = sub.add_parser(
+        "bench", help="how good is an estimator: repeated fits of simulated data of known channels",
+        description="Simulate every channel at every count level many times, fit with every "
+                    "method, and tabulate the errors against the truth beside the Cramér-Rao "
+                    "bound (DIR/bench.csv, DIR/bench.h5, DIR/bench.png). A rerun in the same "
+                    "folder continues where it stopped.")
+    b.add_argument("--channel", action="append", required=True, metavar="SPEC",
+                   help="a channel SPEC as for simulate (repeatable)")
+    b.add_argument("--shots", default="100,1000,10000", metavar="N,N,...",
+                   help="count levels: expected counts per preparation and analyser basis "
+                        "(default 100,1000,10000)")
+    b.add_argument("--methods", default=None, metavar="M,M,...",
+                   help="estimators (default: all)")
+    b.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    b.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    b.add_argument("--qubits", type=int, default=2, help="qubits of random channels (default 2)")
+    b.add_argument("--repeats", type=int, default=DEFAULT_REPEATS, metavar="R",
+                   help=f"repetitions per channel, count level and method (default {DEFAULT_REPEATS})")
+    b.add_argument("--bootstrap", type=int, default=0, metavar="B",
+                   help="bootstrap resamples per repetition, for the coverage of the intervals")
+    b.add_argument("--interval", choices=INTERVALS, default=DEFAULT_INTERVAL,
+                   help=f"interval whose coverage is tabulated (default {DEFAULT_INTERVAL})")
+    b.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL")
+    b.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
+    b.add_argument("--dask", default=None, metavar="ADDRESS", help="a dask scheduler to run on")
+    b.add_argument("--seed", type=int, default=None, help="bench seed (recorded; a folder keeps its own)")
+    b.add_argument("--quiet", action="store_true", help="no progress bar")
+    b.add_argument("-o", "--output", required=True, metavar="DIR")
 
 
 def main(argv=None) -> int:
@@ -109,7 +144,7 @@ def main(argv=None) -> int:
     command_line = "gatescope " + " ".join(sys.argv[1:] if argv is None else argv)
     try:
         return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
-                "demo": cmd_demo}[args.command](args, command_line)
+                "demo": cmd_demo, "bench": cmd_bench}[args.command](args, command_line)
     except InputError as exc:
         print(f"gatescope: error: {exc}", file=sys.stderr)
         return 2
@@ -234,4 +269,23 @@ def cmd_demo(args, command_line) -> int:
                     inside = "  inside the interval" if fig.ci[0] <= t <= fig.ci[1] else "  OUTSIDE the interval"
                 print(f"  {name:24s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
     print(f"\nresult written to {out}")
+    return 0
+
+
+def cmd_bench(args, command_line) -> int:
+    from .bench import run_bench
+    from .bench.table import text_table
+
+    out = run_bench(args.channel, args.output, shots=args.shots, methods=args.methods,
+                    prep=args.prep, meas=args.meas, qubits=args.qubits, repeats=args.repeats,
+                    bootstrap=args.bootstrap, interval=args.interval, ci_level=args.ci_level,
+                    seed=args.seed, workers=args.workers, address=args.dask,
+                    progress=not args.quiet, command_line=command_line, flags=True)
+    print(text_table(out.rows))
+    print(f"\n{out.new} repetitions run now, {out.reused} taken from {out.folder} (seed {out.seed})")
+    for note in out.notes:
+        print(note)
+    for path in (out.csv, out.h5, out.plot):
+        if path is not None:
+            print(path)
     return 0
