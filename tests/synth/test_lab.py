@@ -381,6 +381,22 @@ def test_postselected_bench_is_written_as_a_trace_decreasing_experiment(tmp_path
                                rtol=1e-12)
 
 
+def test_longer_rows_are_stated_in_the_file(tmp_path):
+    """Rows of 2.5 s at the same counts: a rate shots/2.5 per second, and a seconds
+    column, so that a known input rate (per second) stays right."""
+    from gatescope.synth.simulate import write_experiment
+
+    channel = channel_from_spec("CZ+distinguishability:0.1")
+    acq = acquisition(channel, shots=1000.0, seconds=2.5)
+    assert acq.rate == pytest.approx(9000.0 / 2.5)
+    assert set(acq.columns()) == {"seconds"}
+    path = write_experiment(tmp_path, channel, acq.draw(1).rows, title="t",
+                            extra_toml=acq.toml_keys(), columns=acq.columns())
+    model = MeasurementModel(gs.read_experiment(path))
+    np.testing.assert_allclose(model.expected_counts(channel.choi, model.fixed_intensities),
+                               acq.draw(1).expected, rtol=1e-12, atol=1e-9)
+
+
 def test_rows_without_bench_kinds_are_the_ideal_model(tmp_path):
     """Expected counts of a plain SPEC: shots · Tr[(ρ^T ⊗ E) J] with the ideal states,
     as the model of the experiment file that simulate writes computes them."""

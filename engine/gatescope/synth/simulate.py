@@ -143,7 +143,6 @@ class Acquisition:
     background: np.ndarray | None
     detectors: int
     lab: LabNoise
-    trace_decreasing: bool
 
     def factors(self, seed=None) -> np.ndarray:
         """Drift factors of the rows (ones without drift)."""
@@ -170,17 +169,21 @@ class Acquisition:
         return SimulatedRun(self.prep, self.meas, nu, counts, factors)
 
     def columns(self) -> dict:
-        """Optional counts.csv columns the experiment states (``seconds`` and
-        ``background`` with accidentals)."""
-        if self.background is None:
-            return {}
-        return {"seconds": self.seconds, "background": self.background}
+        """Optional counts.csv columns the experiment states: ``seconds`` (with
+        accidentals, or rows that are not 1 s long) and ``background`` (with
+        accidentals)."""
+        out = {}
+        if self.background is not None or np.any(self.seconds != 1.0):
+            out["seconds"] = self.seconds
+        if self.background is not None:
+            out["background"] = self.background
+        return out
 
     def toml_keys(self) -> str:
         """experiment.toml lines beyond the usual ones: for the postselected gate,
         ``trace = "decreasing"`` with ``normalization = "global"`` and the known input
         rate, so that the fit's model contains the true process (docs/file-formats.md)."""
-        if not self.trace_decreasing:
+        if not self.lab.trace_decreasing:
             return ""
         return ('normalization = "global"\ntrace = "decreasing"\n'
                 f"input_rate = {self.rate!r}\n")
@@ -235,8 +238,7 @@ def acquisition(channel: Channel, *, shots: float, prep_set=LABEL_SETS["pauli6"]
     return Acquisition(
         prep=tuple(p for p in preps for _ in meass), meas=tuple(m for _ in preps for m in meass),
         probabilities=np.maximum(table, 0.0).reshape(-1), rate=source_rate(channel, shots) / seconds,
-        seconds=secs, background=background, detectors=detectors, lab=channel.lab,
-        trace_decreasing=channel.lab.trace_decreasing)
+        seconds=secs, background=background, detectors=detectors, lab=channel.lab)
 
 
 def simulate_counts(channel: Channel, *, shots: float, prep_set=LABEL_SETS["pauli6"],
