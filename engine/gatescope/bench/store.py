@@ -95,10 +95,13 @@ class Journal:
 
 
 def _put(group, name: str, data):
+    """A dataset; text as fixed-length UTF-8 (which compresses, unlike a variable-length
+    heap), gzip for large arrays, as in the result file."""
     data = np.asarray(data)
     if data.dtype.kind in "OUS":
-        data = np.array([str(v) for v in data.reshape(-1)], dtype=object).reshape(data.shape)
-        return group.create_dataset(name, data=data, dtype=_STR)
+        encoded = [str(v).encode("utf-8") for v in data.reshape(-1)]
+        width = max((len(e) for e in encoded), default=1) or 1
+        data = np.array(encoded, dtype=h5py.string_dtype("utf-8", width)).reshape(data.shape)
     if data.size >= 4096 and data.ndim >= 1:
         return group.create_dataset(name, data=data, compression="gzip", compression_opts=4,
                                     shuffle=True)
@@ -181,7 +184,7 @@ def read_bench(path) -> dict:
         return out
 
     def data(ds):
-        if ds.dtype.kind == "O":
+        if h5py.check_string_dtype(ds.dtype) is not None:
             return np.array([v.decode() if isinstance(v, bytes) else v for v in ds[...].reshape(-1)],
                             dtype=object).reshape(ds.shape)
         return ds[...]
