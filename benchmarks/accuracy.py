@@ -92,19 +92,24 @@ def _fmt(v, spec=".3g"):
     return "" if v is None or (isinstance(v, float) and not np.isfinite(v)) else format(v, spec)
 
 
-def markdown(done, out: Path, workers) -> str:
+def code_version() -> str:
+    """The commit of the code, and whether the engine differs from it (taken at the start)."""
+    commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
+                            text=True, cwd=HERE).stdout.strip() or "unknown"
+    dirty = subprocess.run(["git", "status", "--porcelain", "--", "../engine"],
+                           capture_output=True, text=True, cwd=HERE).stdout.strip()
+    return commit + (" (engine modified)" if dirty else "")
+
+
+def markdown(done, out: Path, workers, version: str, started: float) -> str:
     """The README section: when, where, commands, tables."""
     import platform
 
     import gatescope
 
-    commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True,
-                            text=True, cwd=HERE).stdout.strip() or "unknown"
-    dirty = subprocess.run(["git", "status", "--porcelain", "--", "engine"], capture_output=True,
-                           text=True, cwd=HERE).stdout.strip()
     lines = [BEGIN, "",
-             f"Run {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())} at commit {commit}"
-             f"{' (engine modified)' if dirty else ''}, gatescope {gatescope.__version__}, "
+             f"Run started {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime(started))} at commit "
+             f"{version}, gatescope {gatescope.__version__}, "
              f"Python {platform.python_version()}, {workers or 'all'} worker(s) on a shared "
              "2-core machine (nice 10). Seed "
              f"{SEED}; full six-state sets; shots = expected counts per preparation and "
@@ -165,19 +170,25 @@ def overhead(repeats: int, rounds: int) -> None:
         runs = [acq.draw(repetition_seed(seed, spec, 2, shots, "mle", r)).counts
                 for r in range(repeats)]
         estimate(model, "mle", counts=runs[0].astype(float))           # compile / load kernels
+        ratios, inside = [], []
         for k in range(rounds):
             t0 = time.perf_counter()
             out = run_bench([spec], Path(tmp) / f"bench{k}", shots=[shots], methods=["mle"],
                             repeats=repeats, seed=seed, workers=1, plot=False)
             bench = time.perf_counter() - t0
-            fit_seconds = sum(r["seconds_per_fit"] for r in out.rows) * repeats
+            fit_seconds = out.rows[0]["seconds_per_fit"] * repeats
             t0 = time.perf_counter()
             for counts in runs:
                 estimate(model, "mle", counts=counts.astype(float))
             alone = time.perf_counter() - t0
-            print(f"round {k}: bench {repeats / bench:.2f} fits/s ({bench:.1f} s, of which the "
-                  f"estimator {fit_seconds:.1f} s); fits alone {repeats / alone:.2f} fits/s "
-                  f"({alone:.1f} s); bench / alone = {bench / alone:.3f}")
+            ratios.append(bench / alone)
+            inside.append(bench / fit_seconds)
+            print(f"round {k}: bench {repeats / bench:.2f} fits/s ({bench:.2f} s, of which the "
+                  f"estimator {fit_seconds:.2f} s: {bench / fit_seconds:.3f}); fits alone "
+                  f"{repeats / alone:.2f} fits/s ({alone:.2f} s); bench / alone = "
+                  f"{bench / alone:.3f}")
+        print(f"median over {rounds} rounds: bench / fits alone {np.median(ratios):.3f}, "
+              f"bench / its own estimator time {np.median(inside):.3f}")
 
 
 def main(argv=None) -> int:
@@ -197,8 +208,9 @@ def main(argv=None) -> int:
     if args.overhead:
         overhead(args.overhead_repeats, args.overhead_rounds)
         return 0
+    version, started = code_version(), time.time()
     done = run_suite(args.parts, args.out, args.workers, args.repeats, args.quiet)
-    section = markdown(done, args.out, args.workers)
+    section = markdown(done, args.out, args.workers, version, started)
     if args.readme:
         write_readme(section)
     else:
