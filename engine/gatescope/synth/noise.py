@@ -39,12 +39,11 @@ a SPEC from the user turn them into an `InputError` naming the option.
 from __future__ import annotations
 
 import itertools
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..channels import choi_from_kraus, choi_from_unitary, compose
-from dataclasses import dataclass, field
-
 from ..conventions import GATE_NAMES, kron_all, n_qubits_of, named_gate
 from .lab import LAB_FORMS, LAB_KINDS, LabNoise, distinguishability_gate, lab_noise, parse_lab_term
 
