@@ -83,3 +83,46 @@ def report_and_sleep(shared, item):
     Path(shared, f"worker-{os.getpid()}").write_text(str(os.getpid()))
     time.sleep(120)
     return item
+
+
+def dark_experiment(folder, spec, *, shots=1000.0, seed=7, n_dark=6, n_qubits=2):
+    """Simulated data plus 1–2 counts in ``n_dark`` rows expected below 1e−3 of the shots
+    (dark counts, accidentals: a few counts where the gate predicts almost none)."""
+    channel = channel_from_spec(spec, n_qubits)
+    rows = list(simulate_counts(channel, shots=shots, seed=seed))
+    rng = np.random.default_rng(seed + 1000)
+    low = [k for k, row in enumerate(rows) if row[2] < 1e-3 * shots]
+    for k in rng.choice(low, size=n_dark, replace=False):
+        p, m, e, c = rows[k]
+        rows[k] = (p, m, e, c + int(rng.integers(1, 3)))
+    return read_experiment(write_experiment(folder, channel, rows, title=f"dark {spec}")), channel.choi
+
+
+def compile_in_worker(shared, item):
+    """A task that compiles a new numba function where it runs (every compile makes
+    numba re-read its environment) and returns shared + item from it."""
+    import numba
+
+    @numba.njit
+    def add(a, b):
+        return a + b
+
+    return add(shared, item)
+
+
+def experiment_tree(root, names, *, spec: str = "H+depolarizing:0.1", n_qubits: int = 1,
+                    shots: float = 500.0, conditions: bool = True):
+    """Simulated experiments in ``root/<name>/`` (names may contain slashes), each with
+    its own seed and, with ``conditions``, a ``[conditions]`` table (delay_ps = 10·k,
+    run = "night 1"); returns the experiment files."""
+    from pathlib import Path
+
+    paths = []
+    for k, name in enumerate(names):
+        exp, _ = simulated_experiment(Path(root, name), spec, shots=shots, seed=100 + k,
+                                      n_qubits=n_qubits)
+        if conditions:
+            with open(exp.path, "a", encoding="utf-8") as fh:
+                fh.write(f'\n[conditions]\ndelay_ps = {10 * k}\nrun = "night 1"\n')
+        paths.append(exp.path)
+    return paths

@@ -97,6 +97,48 @@ def test_demo_runs_and_matches_truth(tmp_path):
         assert f["estimate"].attrs["method"] == "mle"
 
 
+def test_batch_exit_status_and_table_path(tmp_path, capsys):
+    from support import experiment_tree
+
+    experiment_tree(tmp_path / "data", ["a"])
+    assert main(["batch", str(tmp_path / "data"), "-o", str(tmp_path / "out"), "--workers", "1",
+                 "--seed", "2"]) == 0
+    assert capsys.readouterr().out.strip() == str(tmp_path / "out" / "summary.csv")
+    (tmp_path / "data" / "broken").mkdir()
+    (tmp_path / "data" / "broken" / "experiment.toml").write_text("qubits = 1\n")
+    assert main(["batch", str(tmp_path / "data"), "-o", str(tmp_path / "out"), "--workers", "1",
+                 "--seed", "2"]) == 1
+    assert "broken: " in capsys.readouterr().err
+    # the result records the batch's command line
+    res = gs.load_result(tmp_path / "out" / "a.h5")
+    assert res.provenance["command_line"].startswith("gatescope batch ")
+
+
+def test_batch_without_the_dask_extra_exits_2(tmp_path, monkeypatch, capsys):
+    from support import experiment_tree
+
+    experiment_tree(tmp_path / "data", ["a"])
+    monkeypatch.setitem(sys.modules, "dask.distributed", None)      # as if not installed
+    assert main(["batch", str(tmp_path / "data"), "-o", str(tmp_path / "out"),
+                 "--dask", "tcp://127.0.0.1:8786"]) == 2
+    assert "option --dask: needs the dask extra" in capsys.readouterr().err
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("args, needle", [
+    (["--watch", "0"], "option --watch"),
+    (["--bootstrap", "1"], "option --bootstrap"),
+    (["--workers", "0"], "option --workers"),
+    (["--method", "magic"], "invalid choice"),
+    ([], "the following arguments are required: -o"),
+])
+def test_batch_bad_options_exit_2(tmp_path, args, needle):
+    out = [] if not args else ["-o", "out"]
+    r = run("batch", "data", *out, *args, cwd=tmp_path)
+    assert r.returncode == 2 and needle in r.stderr, r.stderr
+    assert not (tmp_path / "out").exists()
+
+
 def test_cli_bench_prints_the_table_and_writes_the_folder(tmp_path, capsys):
     out = tmp_path / "bench"
     assert main(["bench", "--channel", "H+depolarizing:0.2", "--channel", "random:2:1",

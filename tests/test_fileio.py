@@ -5,6 +5,7 @@ half-way leaves no partial file and keeps the old one.
 from __future__ import annotations
 
 import dataclasses
+from pathlib import Path
 
 import gatescope as gs
 import pytest
@@ -56,3 +57,27 @@ def test_a_crash_half_way_leaves_no_file_and_keeps_the_old_one(cz_fit, tmp_path,
         res.save(tmp_path / "new.h5")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["r.h5"]
     assert out.read_bytes() == before
+
+
+def test_leftover_temporaries_are_found_by_target_name(tmp_path):
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    from gatescope.fileio import leftover_temporaries
+
+    # a process killed while writing leaves the writer's temporary file behind
+    kill = ("import os, sys\n"
+            "from gatescope.fileio import atomic_path\n"
+            "writer = atomic_path(sys.argv[1])\n"
+            "writer.__enter__().write_text('half a file')\n"
+            "os.kill(os.getpid(), 9)\n")
+    for target in (tmp_path / "sub" / "a.h5", tmp_path / "summary.csv", tmp_path / "notes.txt"):
+        run = subprocess.run([sys.executable, "-c", kill, str(target)],
+                             env=dict(os.environ, PYTHONPATH=str(Path(gs.__file__).parents[1])))
+        assert run.returncode == -signal.SIGKILL and not target.exists()
+    found = leftover_temporaries(tmp_path, ["*.h5", "summary.csv"])
+    assert sorted(p.parent.name + "/" + p.name.split(".tmp")[0].rsplit(".", 1)[0] for p in found) \
+        == ["sub/.a.h5", f"{tmp_path.name}/.summary.csv"]
+    assert all(p.read_text() == "half a file" for p in found)

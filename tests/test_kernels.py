@@ -101,3 +101,38 @@ def test_hermitian_solve_matches_numpy(rng):
         a = g @ g.conj().T + 0.1 * np.eye(n)
         b = rng.normal(size=n) + 1j * rng.normal(size=n)
         np.testing.assert_allclose(kernels.hermitian_solve(a, b), np.linalg.solve(a, b), rtol=1e-9, atol=1e-11)
+
+
+def _stiefel_point(rng, d, r, slack=0):
+    z = rng.normal(size=(d, d * r + slack)) + 1j * rng.normal(size=(d, d * r + slack))
+    return kernels.polar_rows_numpy(z)
+
+
+def _tangent_vector(rng, z):
+    return kernels.tangent_project_numpy(z, rng.normal(size=z.shape) + 1j * rng.normal(size=z.shape))
+
+
+@pytest.mark.parametrize("d, r, slack", [(2, 3, 0), (4, 16, 0), (4, 3, 4), (8, 5, 0)])
+def test_kernels_match_their_twins(rng, d, r, slack):
+    z = _stiefel_point(rng, d, r, slack)
+    x = rng.normal(size=z.shape) + 1j * rng.normal(size=z.shape)
+    np.testing.assert_allclose(kernels.tangent_project(z, x),
+                               kernels.tangent_project_numpy(z, x), atol=1e-13)
+    np.testing.assert_allclose(kernels.polar_rows(z + 0.1 * x),
+                               kernels.polar_rows_numpy(z + 0.1 * x), atol=1e-12)
+    m = 6
+    s = np.array([_tangent_vector(rng, z) for _ in range(m)])
+    y = 3.0 * s + 0.2 * np.array([_tangent_vector(rng, z) for _ in range(m)])
+    rho = 1.0 / np.einsum("kij,kij->k", s.conj(), y).real
+    order = np.array([3, 4, 5, 0, 1], dtype=np.int64)     # a ring buffer, oldest first
+    g = _tangent_vector(rng, z)
+    cols = d * r
+    cinv = kernels.gram_inverse(z, d, cols, 0.1)
+    a = kernels.lbfgs_direction(g, z, s, y, rho, order, d, cols, cinv)
+    b = kernels.lbfgs_direction_numpy(g, z, s, y, rho, order, d, cols, cinv)
+    np.testing.assert_allclose(a[0], b[0], rtol=1e-10, atol=1e-12 * np.abs(b[0]).max())
+    assert a[1] == pytest.approx(b[1], rel=1e-10)
+    pa = kernels.lbfgs_pair(z, x, g, s[0])
+    pb = kernels.lbfgs_pair_numpy(z, x, g, s[0])
+    for u, v in zip(pa, pb):
+        np.testing.assert_allclose(u, v, rtol=1e-12, atol=1e-12)

@@ -26,6 +26,16 @@ def test_workers_run_single_threaded():
     assert set(blas) == {1}
 
 
+def test_workers_can_compile_numba_code():
+    # a worker that compiles (its first fit, a kernel not in the cache) re-reads numba's
+    # environment, which must agree with the thread pool the worker set up
+    from support import compile_in_worker
+
+    with parallel.Runner(2, shared=10) as runner:
+        out = dict(runner.map(compile_in_worker, range(4), chunk=1))
+    assert out == {i: 10 + i for i in range(4)}
+
+
 @pytest.mark.parametrize("samples, workers", [(200, 2), (7, 3), (1, 4), (1000, 8)])
 def test_chunks_cover_every_resample_and_shrink_towards_the_end(samples, workers):
     sizes = parallel.chunk_sizes(samples, workers)

@@ -62,11 +62,15 @@ def test_fit_fills_every_figure_and_its_details(cz_result):
     assert det["nearest_unitary"].shape == (4, 4) and det["nearest_unitary"].dtype == complex
     assert det["local_phases_before"].shape == (2,) and det["local_phases_after"].shape == (2,)
     assert det["concurrence_input"] == "D D"
-    # the estimate's figures are near the true channel's (2000 counts per basis)
+    # the estimate's figures are within 5σ of the true channel's, σ the bootstrap spread
+    # of each figure at this design and 2000 counts per basis (measured with 50 resamples:
+    # 0.0012, 0.0006, 0.0006, 0.0008, 0.005)
     truth = fig.compute_figures(true_choi, GATES["CZ"])
-    for name in ("unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
-                 "truth_table_fidelity", "concurrence"):
-        assert res.figures[name].value == pytest.approx(truth[name], abs=0.03), name
+    five_sigma = {"unitarity": 0.006, "nearest_unitary_fidelity": 0.003,
+                  "process_fidelity_local_phases": 0.003, "truth_table_fidelity": 0.004,
+                  "concurrence": 0.025}
+    for name, tol in five_sigma.items():
+        assert res.figures[name].value == pytest.approx(truth[name], abs=tol), name
     # the ZZ error is not a local phase: the local-phase fidelity gains little over the
     # plain one, the nearest unitary (which holds the ZZ phase) gains more
     assert res.figures["process_fidelity_local_phases"].value < \

@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from gatescope import cli
 from gatescope.model import MeasurementModel
+from gatescope.reader import input_files, read_conditions
 
 
 def write_case(folder: Path, toml: str, csv: str | None, csv_name: str = "counts.csv") -> Path:
@@ -339,3 +340,42 @@ def test_underscored_numbers_are_rejected(tmp_path):
     path = write_case(tmp_path, toml_1q(), "prep,meas,counts\nH,H,1_000\n")
     with pytest.raises(gs.InputError, match="line 2"):
         gs.read_experiment(path)
+
+
+def test_conditions_are_free_names_of_numbers_and_short_strings(tmp_path):
+    exp = read(tmp_path, toml_1q('[conditions]\ndelay_ps = 120\npump_mW = 40.5\nrun = "night 3"\n'
+                                 '"beam splitter" = "BS-2"\nqubits = 7\n'), GOOD_1Q)
+    assert exp.conditions == {"delay_ps": 120, "pump_mW": 40.5, "run": "night 3",
+                              "beam splitter": "BS-2", "qubits": 7}
+    assert list(exp.conditions) == ["delay_ps", "pump_mW", "run", "beam splitter", "qubits"]
+    assert gs.read_experiment(write_case(tmp_path / "none", toml_1q(), GOOD_1Q)).conditions == {}
+
+
+@pytest.mark.parametrize("table, key, words", [
+    ("aligned = true\n", "conditions.aligned", "got bool"),
+    ("angles = [1, 2]\n", "conditions.angles", "got list"),
+    ("power.pump = 3\n", "conditions.power", "got a table"),
+    (f"note = \"{'x' * 201}\"\n", "conditions.note", "201 characters"),
+    ("gain = nan\n", "conditions.gain", "not finite"),
+    ("big = 99999999999999999999\n", "conditions.big", "64-bit"),
+    ('"" = 1\n', "conditions.", "printable"),
+], ids=["bool", "list", "nested-table", "long-text", "nan", "huge-int", "empty-name"])
+def test_bad_conditions_name_their_key(tmp_path, table, key, words):
+    path = write_case(tmp_path, toml_1q("[conditions]\n" + table), GOOD_1Q)
+    for reader in (gs.read_experiment, read_conditions):
+        with pytest.raises(gs.InputError, match=words) as info:
+            reader(path)
+        assert info.value.key == key and info.value.file == str(path)
+
+
+def test_conditions_read_alone_and_the_input_files(tmp_path):
+    path = write_case(tmp_path, toml_1q('target = { unitary = "u.npy" }\n[conditions]\nrun = 3\n'),
+                      None)
+    # the conditions are read even when the counts file is missing
+    assert read_conditions(path) == {"run": 3}
+    assert input_files(path) == {"experiment": path, "counts": tmp_path / "counts.csv",
+                                 "target": tmp_path / "u.npy"}
+    (tmp_path / "experiment.toml").write_text("qubits = [")
+    assert input_files(path) == {"experiment": path}
+    with pytest.raises(gs.InputError, match="not valid TOML"):
+        read_conditions(path)

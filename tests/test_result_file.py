@@ -270,3 +270,26 @@ def test_origin_is_recorded(cz_fit):
     _, _, path = cz_fit
     with h5py.File(path) as f:
         assert text(f.attrs["origin"]) == "fit"
+
+
+def test_conditions_group_round_trip(tmp_path):
+    folder = tmp_path / "data"
+    exp, _ = simulated_experiment(folder, "H", shots=200, seed=2, n_qubits=1)
+    with open(exp.path, "a", encoding="utf-8") as fh:
+        fh.write('\n[conditions]\ndelay_ps = 120\npump_mW = 40.5\nrun = "night 3"\n')
+    res = gs.fit(gs.read_experiment(exp.path))
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path) as f:                      # as any HDF5 tool sees it
+        attrs = f["conditions"].attrs
+        assert list(attrs) == ["delay_ps", "pump_mW", "run"]     # the file's order
+        assert attrs["delay_ps"].dtype == np.int64 and attrs["delay_ps"] == 120
+        assert attrs["pump_mW"].dtype == np.float64 and attrs["pump_mW"] == 40.5
+        assert text(attrs["run"]) == "night 3"
+    back = gs.load_result(path).conditions
+    assert back == {"delay_ps": 120, "pump_mW": 40.5, "run": "night 3"}
+    assert type(back["delay_ps"]) is int and type(back["pump_mW"]) is float
+    # without conditions the group is there and empty
+    bare = gs.fit(simulated_experiment(tmp_path / "bare", "H", shots=200, seed=2, n_qubits=1)[0])
+    with h5py.File(bare.save(tmp_path / "bare.h5")) as f:
+        assert len(f["conditions"].attrs) == 0
+    assert gs.load_result(tmp_path / "bare.h5").conditions == {}

@@ -99,3 +99,14 @@ def test_show_prints_the_test_the_warning_and_the_outliers(fits):
     assert cols["prep"][worst] in line and cols["meas"][worst] in line
     assert str(int(cols["counts"][worst])) in line
     assert f"{dg.expected_counts[worst]:.2f}" in line and f"{dg.pearson_residuals[worst]:+.2f}" in line
+
+
+def test_show_prints_the_conditions(tmp_path):
+    from support import simulated_experiment
+
+    exp, _ = simulated_experiment(tmp_path / "data", "H", shots=200, seed=2, n_qubits=1)
+    with open(exp.path, "a", encoding="utf-8") as fh:
+        fh.write('\n[conditions]\ndelay_ps = 120\nrun = "night 3"\n')
+    text = summary(gs.fit(gs.read_experiment(exp.path)))
+    assert "  conditions: delay_ps = 120, run = 'night 3'" in text.splitlines()
+    assert "conditions" not in summary(gs.fit(exp))

@@ -13,9 +13,10 @@ The modules at this level follow the data, one step each: `reader` →
 merit) → `intervals`, `bootstrap` → `diagnostics` → `result_file`,
 `result` → `pipeline`; `summary` and `cli` present it. Capabilities built
 on the pipeline live in subpackages that this level never imports
-(`synth`: simulation and the run sheet). Conventions (Choi, chi, Pauli
-transfer matrix, labels, wave plates) are stated in the README and in
-:mod:`gatescope.conventions` and :mod:`gatescope.channels`.
+(`synth`: simulation and the run sheet; `batch`: overnight batches).
+Conventions (Choi, chi, Pauli transfer matrix, labels, wave plates) are
+stated in the README and in :mod:`gatescope.conventions` and
+:mod:`gatescope.channels`.
 """
 
 from importlib import metadata as _metadata

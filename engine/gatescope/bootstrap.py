@@ -50,7 +50,7 @@ import numpy as np
 
 from .channels import choi_to_chi, choi_to_ptm
 from .errors import GatescopeWarning, InputError, NumericalError
-from .estimators import Fit, estimate
+from .estimators import MAXIMUM_LIKELIHOOD, Fit, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL, INTERVALS
 from .merit import compute_figures
@@ -359,11 +359,12 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     # when the estimate itself is nearly unbiased (the resampled world is purer than the
     # real one); the normal interval does not use that bias and keeps its coverage
     # (benchmarks/README.md, "Bootstrap coverage"), so the warning would mislead there.
-    biased = ([] if method == "mle" and interval == "normal"
+    biased = ([] if method in MAXIMUM_LIKELIHOOD and interval == "normal"
               else biased_figures(names, figures, [point_figures[n] for n in names]))
     if biased:
         listed = "; ".join(f"{n} (bias {b:+.2g}, spread {sp:.2g})" for n, b, sp in biased)
-        advice = (" the mle estimator is much less biased near pure processes" if method != "mle"
+        advice = (" the mle estimator is much less biased near pure processes"
+                  if method not in MAXIMUM_LIKELIHOOD
                   else " more counts reduce it")
         warnings.warn(f"the bootstrap shows a bias larger than the spread for {listed}: the "
                       f"estimate sits at the boundary of the physical set or the estimator is "

@@ -91,6 +91,27 @@ def build_parser() -> argparse.ArgumentParser:
     pl.add_argument("-o", "--output", required=True, metavar="SHEET.csv")
 
     sub.add_parser("demo", help="the whole job on the bundled data")
+
+    b = sub.add_parser(
+        "batch", help="fit every experiment under some folders into one output folder",
+        description="Fit every experiment (PATH: an experiment file, or a folder searched for "
+                    "experiment.toml) into OUTDIR: one result file per experiment, summary.csv "
+                    "and batch.log. Resumable (results whose input and settings match are kept), "
+                    "safe to stop at any moment; exit status 1 when an experiment failed.")
+    b.add_argument("paths", nargs="+", metavar="PATH", help="experiment file or folder")
+    b.add_argument("-o", "--output", required=True, metavar="OUTDIR", help="output folder")
+    b.add_argument("--workers", type=int, default=None, metavar="W",
+                   help="local processes (default: all cores; not used with --dask)")
+    b.add_argument("--bootstrap", type=int, default=0, metavar="B",
+                   help="resamples per experiment for error bars (default 0)")
+    b.add_argument("--method", choices=METHODS, default="mle", help="estimator (default mle)")
+    b.add_argument("--seed", type=int, default=None, metavar="S",
+                   help="batch seed (drawn and recorded when not given)")
+    b.add_argument("--force", action="store_true", help="refit experiments that have a result")
+    b.add_argument("--watch", type=float, default=None, metavar="SECONDS",
+                   help="keep looking for new or changed experiments every SECONDS until stopped")
+    b.add_argument("--dask", default=None, metavar="ADDRESS",
+                   help="run on this dask.distributed scheduler (needs the dask extra)")
     _add_bench_parser(sub)
     return p
 
@@ -144,7 +165,8 @@ def main(argv=None) -> int:
     command_line = "gatescope " + " ".join(sys.argv[1:] if argv is None else argv)
     try:
         return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
-                "demo": cmd_demo, "bench": cmd_bench}[args.command](args, command_line)
+                "demo": cmd_demo, "batch": cmd_batch, "bench": cmd_bench}[args.command](
+                    args, command_line)
     except InputError as exc:
         print(f"gatescope: error: {exc}", file=sys.stderr)
         return 2
@@ -270,6 +292,14 @@ def cmd_demo(args, command_line) -> int:
                 print(f"  {name:24s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
     print(f"\nresult written to {out}")
     return 0
+
+
+def cmd_batch(args, command_line) -> int:
+    from .batch import run_batch
+
+    return run_batch(args.paths, args.output, workers=args.workers, bootstrap=args.bootstrap,
+                     method=args.method, seed=args.seed, force=args.force, watch=args.watch,
+                     dask=args.dask, command_line=command_line).exit_status
 
 
 def cmd_bench(args, command_line) -> int:

@@ -12,12 +12,15 @@ import tempfile
 from pathlib import Path
 
 
+_TEMPORARY_SUFFIX = ".tmp"
+
+
 @contextlib.contextmanager
 def atomic_path(path):
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=_TEMPORARY_SUFFIX, dir=path.parent)
     os.close(fd)
     umask = os.umask(0)
     os.umask(umask)
@@ -35,3 +38,13 @@ def atomic_write_text(path, text: str) -> None:
     """Write UTF-8 text to ``path`` atomically."""
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
+
+
+def leftover_temporaries(folder, names) -> list[Path]:
+    """Temporary files that `atomic_path` left below ``folder`` (in any subfolder) when
+    its process was killed before it could remove them, for targets whose names
+    match one of the glob patterns ``names`` (``["*.h5", "summary.csv"]``)."""
+    found = []
+    for pattern in names:
+        found += Path(folder).rglob(f".{pattern}.*{_TEMPORARY_SUFFIX}")
+    return sorted(set(found))

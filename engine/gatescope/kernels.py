@@ -379,3 +379,173 @@ def tp_congruence(j, d, min_eigenvalue):
                 for row in range(n):
                     out[row, k * d + b] += tmp[row, kp * d + b] * mk
     return 0.5 * (out + out.conj().T)
+
+
+# --------------------------------------------------------------------------
+# Riemannian L-BFGS on the Stiefel manifold (gatescope.estimators.factored): Z is a
+# d × n matrix with orthonormal rows; <A, B> = Re Tr A†B.
+# --------------------------------------------------------------------------
+
+@njit(cache=True)
+def _re_inner(a, b):
+    """Re Tr a†b for two complex arrays of one shape (contiguous)."""
+    fa = a.reshape(-1)
+    fb = b.reshape(-1)
+    acc = 0.0
+    for i in range(fa.shape[0]):
+        acc += fa[i].real * fb[i].real + fa[i].imag * fb[i].imag
+    return acc
+
+
+@njit(cache=True)
+def _tangent_nb(z, x):
+    """X − sym(X Z†) Z with explicit loops (small d: no BLAS call, quick to compile)."""
+    d, n = z.shape
+    a = np.zeros((d, d), dtype=np.complex128)
+    for i in range(d):
+        for j in range(d):
+            acc = 0.0 + 0.0j
+            for c in range(n):
+                acc += x[i, c] * np.conj(z[j, c])
+            a[i, j] = acc
+    out = x.copy()
+    for i in range(d):
+        for j in range(d):
+            h = 0.5 * (a[i, j] + np.conj(a[j, i]))
+            for c in range(n):
+                out[i, c] -= h * z[j, c]
+    return out
+
+
+@njit(cache=True)
+def _gram_apply(x, z, cinv, d, cols):
+    """P_Z(M x): the Kraus columns of x (its first ``cols`` columns, as d² × r) times
+    ``cinv`` on the right, the completion block unchanged, then the tangent projection."""
+    r = cols // d
+    out = x.copy()
+    for i in range(d):
+        for a in range(d):
+            base = a * r
+            for k in range(r):
+                acc = 0.0 + 0.0j
+                for l in range(r):
+                    acc += x[i, base + l] * cinv[l, k]
+                out[i, base + k] = acc
+    return _tangent_nb(z, out)
+
+
+@njit(cache=True)
+def lbfgs_direction(g, z, s_mem, y_mem, rho, order, d, cols, cinv):
+    """Descent direction −P_Z(H g) of L-BFGS on the Stiefel manifold.
+
+    Two-loop recursion (Nocedal & Wright, Algorithm 7.4) over the stored pairs
+    s_mem[k], y_mem[k] (complex, Z-shaped; ``order`` lists the rows in use oldest
+    first; rho[k] = 1/<s_k, y_k>, <A, B> = Re Tr A†B), with the initial matrix
+    H₀ = γ·P_Z∘M∘P_Z, M(X) = X_W·cinv acting on the Kraus columns X_W (the first
+    ``cols`` columns of X as a d² × r matrix; identity on the completion block),
+    ``cinv`` = (W†W + δ·Tr(W†W)·I)^{-1} from :func:`gram_inverse`, and
+    γ = <s, y>/<y, H₀y> for the newest pair. Returns (direction, <g, direction>);
+    the caller checks the sign.
+    """
+    m = order.shape[0]
+    q = g.copy()
+    alpha = np.empty(m)
+    for idx in range(m - 1, -1, -1):
+        k = order[idx]
+        a = rho[k] * _re_inner(s_mem[k], q)
+        alpha[idx] = a
+        q -= a * y_mem[k]
+    k = order[m - 1]
+    hy = _gram_apply(_tangent_nb(z, y_mem[k]), z, cinv, d, cols)
+    gamma = 1.0 / (rho[k] * _re_inner(y_mem[k], hy))
+    out = gamma * _gram_apply(_tangent_nb(z, q), z, cinv, d, cols)
+    for idx in range(m):
+        k = order[idx]
+        b = rho[k] * _re_inner(y_mem[k], out)
+        out += (alpha[idx] - b) * s_mem[k]
+    p = -_tangent_nb(z, out)
+    return p, _re_inner(g, p)
+
+
+def lbfgs_direction_numpy(g, z, s_mem, y_mem, rho, order, d, cols, cinv):
+    """NumPy twin of :func:`lbfgs_direction`."""
+    def inner(a, b):
+        return float(np.vdot(a, b).real)
+
+    def metric(x):
+        x = tangent_project_numpy(z, x)
+        out = x.copy()
+        out[:, :cols] = (x[:, :cols].reshape(d * d, -1) @ cinv).reshape(d, cols)
+        return tangent_project_numpy(z, out)
+
+    q = g.copy()
+    alpha = np.empty(len(order))
+    for idx in range(len(order) - 1, -1, -1):
+        k = order[idx]
+        alpha[idx] = rho[k] * inner(s_mem[k], q)
+        q = q - alpha[idx] * y_mem[k]
+    k = order[-1]
+    gamma = 1.0 / (rho[k] * inner(y_mem[k], metric(y_mem[k])))
+    out = gamma * metric(q)
+    for idx in range(len(order)):
+        k = order[idx]
+        out = out + (alpha[idx] - rho[k] * inner(y_mem[k], out)) * s_mem[k]
+    p = -tangent_project_numpy(z, out)
+    return p, inner(g, p)
+
+
+def gram_inverse(z, d: int, cols: int, shift: float) -> np.ndarray:
+    """(W†W + shift·Tr(W†W)·I)^{-1}, W the Kraus columns (first ``cols`` columns of Z as
+    a d² × r matrix). Kept out of the kernel: a compiled inverse adds seconds of JIT."""
+    w = z[:, :cols].reshape(d * d, -1)
+    c = w.conj().T @ w
+    c[np.diag_indices(c.shape[0])] += shift * np.trace(c).real
+    return np.linalg.inv(c)
+
+
+@njit(cache=True)
+def lbfgs_pair(z, step, g_old, rgrad):
+    """The new L-BFGS pair at Z (after the step): s = P_Z(step), y = −rgrad − P_Z(g_old)
+    (``rgrad`` the Riemannian gradient of ℓ at Z, ``g_old`` the previous gradient of −ℓ),
+    with <s, y>, <s, s>, <y, y> (vector transport by projection)."""
+    s = _tangent_nb(z, step)
+    y = -rgrad - _tangent_nb(z, g_old)
+    return s, y, _re_inner(s, y), _re_inner(s, s), _re_inner(y, y)
+
+
+def lbfgs_pair_numpy(z, step, g_old, rgrad):
+    """NumPy twin of :func:`lbfgs_pair`."""
+    s = tangent_project_numpy(z, step)
+    y = -rgrad - tangent_project_numpy(z, g_old)
+    return (s, y, float(np.vdot(s, y).real), float(np.vdot(s, s).real),
+            float(np.vdot(y, y).real))
+
+
+@njit(cache=True)
+def polar_rows(x):
+    """(X X†)^{-1/2} X: the matrix with orthonormal rows nearest to X (X of full row rank)."""
+    h = x @ np.ascontiguousarray(x.conj().T)
+    h = 0.5 * (h + np.ascontiguousarray(h.conj().T))
+    w, q = np.linalg.eigh(h)
+    m = (q / np.sqrt(w)) @ np.ascontiguousarray(q.conj().T)
+    return m @ x
+
+
+def polar_rows_numpy(x):
+    """NumPy twin of :func:`polar_rows`."""
+    h = x @ x.conj().T
+    w, q = np.linalg.eigh(0.5 * (h + h.conj().T))
+    return ((q / np.sqrt(w)) @ q.conj().T) @ x
+
+
+@njit(cache=True)
+def tangent_project(z, x):
+    """P_Z(X) = X − sym(X Z†) Z, the orthogonal projection onto the tangent space
+    {ξ : Zξ† + ξZ† = 0} of the Stiefel manifold at Z (Z Z† = I)."""
+    return _tangent_nb(z, x)
+
+
+def tangent_project_numpy(z, x):
+    """NumPy twin of :func:`tangent_project`."""
+    a = x @ z.conj().T
+    return x - 0.5 * (a + a.conj().T) @ z

@@ -120,6 +120,17 @@ def limit_threads() -> None:
         os.environ[var] = "1"
     try:
         import numba
+        from numba.core import config
+        from numba.np.ufunc import parallel
+
+        # Every compile re-reads the environment, and numba refuses a NUMBA_NUM_THREADS
+        # other than its thread pool's once the pool exists: so the configuration follows
+        # the environment before the pool starts (below), or the environment follows the
+        # pool that a forked or reused process already has.
+        if getattr(parallel, "_is_initialized", False):
+            os.environ["NUMBA_NUM_THREADS"] = str(config.NUMBA_NUM_THREADS)
+        else:
+            config.reload_config()
         numba.set_num_threads(1)
     except (ImportError, ValueError, RuntimeError):    # numba's threading layer unavailable
         pass

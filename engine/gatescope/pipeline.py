@@ -13,8 +13,8 @@ import time
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
 from .diagnostics import diagnostics, warn_if_poor_fit
+from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
-from .estimators import estimate
 from .intervals import DEFAULT_INTERVAL
 from .merit import compute_figures
 from .model import MeasurementModel
@@ -54,7 +54,7 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     ----------
     experiment : Experiment
         From :func:`gatescope.read_experiment`.
-    method : {"mle", "pls", "lin"}
+    method : {"mle", "mle-pg", "pls", "lin"}
         The estimator (see :mod:`gatescope.estimators`).
     bootstrap : int
         Number of resamples for error bars (0: none).
@@ -109,7 +109,7 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
-    if point.method == "mle":
+    if point.method in MAXIMUM_LIKELIHOOD:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²
         # reference even for a model that fits: the test is for the ML estimate only
         warn_if_poor_fit(diag)

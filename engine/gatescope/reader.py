@@ -28,10 +28,12 @@ from .errors import InputError
 NORMALIZATIONS = ("per-preparation", "global", "per-group")
 TRACE_KINDS = ("preserving", "decreasing")
 TOP_KEYS = ("title", "qubits", "target", "counts", "normalization", "trace",
-            "input_rate", "conventions", "states")
+            "input_rate", "conventions", "states", "conditions")
 REQUIRED_COLUMNS = ("prep", "meas", "counts")
 OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
 MAX_QUBITS = 6
+#: Longest text of a condition's value (and name): a label for a table column, not a notebook.
+MAX_CONDITION_TEXT = 200
 
 
 def _frozen(a: np.ndarray) -> np.ndarray:
@@ -86,6 +88,8 @@ class Experiment:
     toml_sha256: str
     csv_sha256: str
     custom_states: tuple[str, ...] = field(default=())
+    #: the ``[conditions]`` table: name → int, float or str, in the file's order
+    conditions: dict = field(default_factory=dict)
 
     @property
     def dim(self) -> int:
@@ -325,24 +329,7 @@ def read_experiment(path) -> Experiment:
         For every problem, naming the file, the line or key, and what is wrong.
     """
     path = Path(path)
-    try:
-        raw_bytes = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("file not found", file=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file: {exc.strerror}", file=str(path)) from None
-    try:
-        text = raw_bytes.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        raise InputError(f"not UTF-8 text (byte {exc.start})", file=str(path)) from None
-    if not text.strip():
-        raise InputError("the experiment file is empty", file=str(path))
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        m = re.search(r"line (\d+)", str(exc))
-        raise InputError(f"not valid TOML: {exc}", file=str(path),
-                         line=int(m.group(1)) if m else None) from None
+    raw_bytes, text, data = _load_toml(path)
     toml = _Toml(path, text)
 
     for key in data:
@@ -395,6 +382,8 @@ def read_experiment(path) -> Experiment:
 
     custom = _read_custom_states(data.get("states", {}), toml)
 
+    conditions = _read_conditions(data.get("conditions", {}), toml)
+
     counts_name = data["counts"]
     if not isinstance(counts_name, str) or not counts_name.strip():
         raise toml.error("counts", "expected the CSV file name as a string")
@@ -406,8 +395,92 @@ def read_experiment(path) -> Experiment:
         target_name=target_name, target=target, normalization=normalization,
         trace=trace, input_rate=input_rate, right_circular=right_circular,
         toml_text=text, toml_sha256=_sha256(raw_bytes), custom_states=tuple(custom),
-        **table,
+        conditions=conditions, **table,
     )
+
+
+def _load_toml(path: Path):
+    """(bytes, text, table) of an experiment file; InputError when it cannot be read or parsed."""
+    try:
+        raw_bytes = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError("file not found", file=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read file: {exc.strerror}", file=str(path)) from None
+    try:
+        text = raw_bytes.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start})", file=str(path)) from None
+    if not text.strip():
+        raise InputError("the experiment file is empty", file=str(path))
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"line (\d+)", str(exc))
+        raise InputError(f"not valid TOML: {exc}", file=str(path),
+                         line=int(m.group(1)) if m else None) from None
+    return raw_bytes, text, data
+
+
+def _read_conditions(raw, toml: _Toml) -> dict:
+    """The ``[conditions]`` table: free names, each a whole number, a finite number or a
+    string of at most MAX_CONDITION_TEXT characters (docs/file-formats.md, "Input")."""
+    if not isinstance(raw, dict):
+        raise toml.error("conditions", "expected a table [conditions]")
+    out = {}
+    for name, value in raw.items():
+        key = f"conditions.{name}"
+        if not name.strip() or len(name) > MAX_CONDITION_TEXT \
+                or any(ord(c) < 32 or ord(c) == 127 for c in name):
+            raise toml.error(key, f"condition name {name!r} must be 1 to {MAX_CONDITION_TEXT} "
+                                  "printable characters")
+        if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+            what = "a table" if isinstance(value, dict) else type(value).__name__
+            raise toml.error(key, f"a condition is a number or a string of at most "
+                                  f"{MAX_CONDITION_TEXT} characters, got {what} {value!r}")
+        if isinstance(value, int) and not -2**63 <= value < 2**63:
+            raise toml.error(key, f"{value} does not fit a 64-bit integer")
+        if isinstance(value, float) and not math.isfinite(value):
+            raise toml.error(key, f"{value!r} is not finite")
+        if isinstance(value, str) and len(value) > MAX_CONDITION_TEXT:
+            raise toml.error(key, f"the text has {len(value)} characters, more than "
+                                  f"{MAX_CONDITION_TEXT}")
+        out[name] = value
+    return out
+
+
+def read_conditions(path) -> dict:
+    """The ``[conditions]`` table of an experiment file alone (name → int, float or str;
+    empty without one), checked as `read_experiment` checks it; nothing else is read.
+
+    Raises
+    ------
+    InputError
+        When the file cannot be read or parsed, or a condition is not allowed.
+    """
+    path = Path(path)
+    _, text, data = _load_toml(path)
+    return _read_conditions(data.get("conditions", {}), _Toml(path, text))
+
+
+def input_files(path) -> dict:
+    """The files an experiment is read from, as far as its experiment file can be read:
+    ``{"experiment": path, "counts": the counts file, "target": a target unitary's
+    .npy file}``, the last two only when the experiment file names them. Nothing is
+    validated (`read_experiment` does that)."""
+    path = Path(path)
+    files = {"experiment": path}
+    try:
+        _, _, data = _load_toml(path)
+    except InputError:
+        return files
+    counts = data.get("counts")
+    if isinstance(counts, str) and counts.strip():
+        files["counts"] = path.parent / counts
+    target = data.get("target")
+    if isinstance(target, dict) and isinstance(target.get("unitary"), str):
+        files["target"] = path.parent / target["unitary"]
+    return files
 
 
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$|^[+-]?(nan|inf|infinity)$", re.I)

@@ -49,6 +49,8 @@ class Result:
     origin : "fit" for an estimate from data, "truth" for the true channel
         of a simulation (`gatescope.synth.simulate`), which has no fit to
         test and so no diagnostics
+    conditions : the experiment's ``[conditions]`` (name → int, float or
+        str), stored as the attributes of /conditions
     """
 
     choi: np.ndarray
@@ -76,6 +78,7 @@ class Result:
     created_utc: str = field(default_factory=lambda: _dt.datetime.now(_dt.timezone.utc).isoformat())
     figure_details: dict = field(default_factory=dict)
     origin: str = "fit"
+    conditions: dict = field(default_factory=dict)
 
     def save(self, path) -> Path:
         """Write the result file (docs/file-formats.md) to ``path`` atomically; returns the path."""
@@ -135,6 +138,7 @@ def build_result(exp: Experiment, choi: np.ndarray, figures: dict, details: dict
         csv_sha256=exp.csv_sha256, counts_columns=counts_columns(exp),
         prep_states=np.asarray(exp.prep_states), meas_effects=np.asarray(exp.meas_effects),
         target=exp.target, target_name=exp.target_name, figure_details=details, origin=origin,
+        conditions=dict(exp.conditions),
     )
 
 

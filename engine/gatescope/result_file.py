@@ -132,6 +132,8 @@ def _write(f: h5py.File, r) -> None:
     for key, value in r.provenance.items():
         prov.attrs[key] = "" if value is None else value
 
+    write_conditions(f, r.conditions)
+
     d = r.diagnostics
     if d is None:                      # the true channel of a simulation has no fit to test
         return
@@ -145,6 +147,25 @@ def _write(f: h5py.File, r) -> None:
     dg.attrs["chi2_p_value"] = float(d.chi2_p_value)
     dg.attrs["deviance_p_value"] = float(d.deviance_p_value)
     dg.create_dataset("outlier_rows", data=np.asarray(d.outlier_rows, dtype=np.int64))
+
+
+def write_conditions(f: h5py.File, conditions: dict) -> None:
+    """/conditions: one attribute per condition, in the experiment file's order
+    (int64, float64 or UTF-8 text)."""
+    group = f.create_group("conditions", track_order=True)
+    for name, value in conditions.items():
+        if isinstance(value, str):
+            group.attrs.create(name, value, dtype=_STR)
+        else:
+            group.attrs[name] = np.int64(value) if isinstance(value, int) else np.float64(value)
+
+
+def read_conditions(f: h5py.File) -> dict:
+    """The conditions of /conditions (empty for a file without the group)."""
+    if "conditions" not in f:
+        return {}
+    group = f["conditions"]
+    return {name: _attr(group, name) for name in group.attrs}
 
 
 def _attr(obj, key, default=None):
@@ -248,4 +269,5 @@ def read(path) -> dict:
             prep_states=f["model/prep_states"][()], meas_effects=f["model/meas_effects"][()],
             target=target, target_name=target_name, bootstrap=boot,
             created_utc=_attr(f, "created_utc"), figure_details=details, origin=origin,
+            conditions=read_conditions(f),
         )

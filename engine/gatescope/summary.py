@@ -9,6 +9,7 @@ import numpy as np
 from .channels import dim_of_choi
 from .conventions import n_qubits_of
 from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
+from .estimators import MAXIMUM_LIKELIHOOD
 from .result import Result
 
 LABELS = {
@@ -62,6 +63,9 @@ def summary(result: Result) -> str:
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
     lines.append(f"  qubits {n}, target {r.target_name or 'none'}, rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
+    if r.conditions:
+        lines.append("  conditions: " + ", ".join(f"{name} = {value!r}"
+                                                  for name, value in r.conditions.items()))
     lines.append("")
     lines.append("figures of merit")
     for name, fig in r.figures.items():
@@ -127,7 +131,7 @@ def _goodness_of_fit(r: Result) -> list[str]:
     dg = r.diagnostics
     out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance {dg.deviance:.2f} "
            f"(p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
-    if r.method != "mle":
+    if r.method not in MAXIMUM_LIKELIHOOD:
         out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these p-values "
                    "are lower than for the model itself; refit with mle to test the model)")
     elif dg.poor_fit:

@@ -32,8 +32,9 @@ def test_postselected_cz_success_one_ninth(tmp_path):
     d = 4
     assert f["average_gate_fidelity"].value == pytest.approx(
         (d * f["process_fidelity"].value + f["trace"].value) / (d + 1), abs=1e-12)
+    # 5σ, σ = 2.1e-4 the bootstrap spread of this estimate (measured, 50 resamples)
     assert res.figures["process_fidelity"].value == pytest.approx(
-        (1 / 9) * (1 - 0.05 * 15 / 16), abs=2e-3)
+        (1 / 9) * (1 - 0.05 * 15 / 16), abs=1e-3)
 
 
 def test_projected_least_squares_overestimates_the_trace(tmp_path):

@@ -4,8 +4,11 @@ Every estimator is a function ``(model, *, counts=None, start=None, tol,
 maxiter) -> Fit`` registered in `ESTIMATORS`, one module per family:
 
 * `linear` — ``lin`` (linear inversion) and ``pls`` (projected least squares);
-* `mle` — ``mle``, Poisson maximum likelihood by accelerated projected
-  gradient.
+* `factored` — ``mle``, Poisson maximum likelihood by Riemannian L-BFGS over
+  the Kraus operators (the fastest exact path, measured in
+  benchmarks/README.md);
+* `mle` — ``mle-pg``, the same maximum by accelerated projected gradient in
+  the Choi matrix, kept for comparison.
 
 Options share their names across estimators: ``tol`` (relative change of
 the log-likelihood) and ``maxiter``. ``counts`` replaces the experiment's
@@ -22,11 +25,14 @@ from ..errors import InputError
 from ..model import MeasurementModel
 from ..options import choice
 from .base import Fit
+from .factored import fit_mle_factored
 from .linear import fit_lin, fit_pls
 from .mle import fit_mle
 
-ESTIMATORS = {"lin": fit_lin, "pls": fit_pls, "mle": fit_mle}
+ESTIMATORS = {"lin": fit_lin, "pls": fit_pls, "mle": fit_mle_factored, "mle-pg": fit_mle}
 METHODS = tuple(ESTIMATORS)
+#: The estimators that maximise the likelihood (their goodness of fit is a test of the model).
+MAXIMUM_LIKELIHOOD = ("mle", "mle-pg")
 
 
 def check_options(method: str, options: dict, *, key: str = "method") -> None:
@@ -55,5 +61,5 @@ def estimate(model: MeasurementModel, method: str = "mle", *, counts=None, start
     return ESTIMATORS[method](model, counts=counts, start=start, **options)
 
 
-__all__ = ["Fit", "ESTIMATORS", "METHODS", "estimate", "check_options", "fit_lin", "fit_pls",
-           "fit_mle"]
+__all__ = ["Fit", "ESTIMATORS", "METHODS", "MAXIMUM_LIKELIHOOD", "estimate", "check_options",
+           "fit_lin", "fit_pls", "fit_mle", "fit_mle_factored"]

@@ -1,4 +1,5 @@
-"""Poisson maximum likelihood over the physical set (``mle``).
+"""Poisson maximum likelihood over the physical set by accelerated projected gradient
+(``mle-pg``; the ``mle`` of processes is `gatescope.estimators.factored`).
 
 Accelerated projected gradient ascent, the intensities profiled out: FISTA
 with backtracking (Beck & Teboulle, SIAM J. Imaging Sci. 2, 183 (2009))
@@ -160,7 +161,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
             stop_reason = "relative likelihood change and optimality residual below tolerance"
             break
         step *= STEP_GROWTH
-    return Fit("mle", x, ev_x.intensities, ev_x.log_likelihood, converged, it, stop_reason,
+    return Fit("mle-pg", x, ev_x.intensities, ev_x.log_likelihood, converged, it, stop_reason,
                time.perf_counter() - t0,
                {"optimality_residual": float(residual), "restarts": restarts,
                 "projections": n_proj, "multiplier": mult})
