@@ -24,7 +24,7 @@ import pytest
 import gatescope as gs
 from gatescope.bench import crb
 from gatescope.channels import partial_trace_output
-from gatescope.estimators import fit_mle
+from gatescope.estimators import estimate
 from gatescope.likelihood import PoissonLikelihood
 from gatescope.model import MeasurementModel
 from gatescope.synth.simulate import Channel, channel_from_spec, simulate_counts
@@ -269,8 +269,8 @@ def test_mle_reaches_the_bound_at_ten_thousand_counts(tmp_path):
     bound = crb.hs_crb(model, choi, lam)
     nu = model.expected_counts(choi, lam)
     rng = np.random.default_rng(2027)
-    errors = np.array([np.linalg.norm(fit_mle(model, counts=rng.poisson(nu).astype(float)).choi
-                                      - choi) ** 2 for _ in range(2000)])
+    errors = np.array([np.linalg.norm(estimate(model, "mle", counts=rng.poisson(nu).astype(float))
+                                      .choi - choi) ** 2 for _ in range(2000)])
     ratio = errors.mean() / bound
     stderr = errors.std(ddof=1) / np.sqrt(errors.size) / bound      # about 0.01
     assert stderr < 0.03
