@@ -198,3 +198,18 @@ def test_two_qubit_mle_error_falls_as_one_over_n_and_reaches_the_bound(tmp_path)
     low, high = out.rows
     assert -1.15 <= high["hs_mse_slope"] <= -0.85
     assert 0.8 <= high["hs_mse_over_crb"] <= 1.3
+
+
+@pytest.mark.slow
+def test_a_dask_cluster_gives_the_same_table_as_local_workers(tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                       host="127.0.0.1", dashboard_address=None)
+    try:
+        remote = run_bench([ONE_QUBIT], tmp_path / "remote", qubits=1,
+                           address=cluster.scheduler_address, **SMALL)
+    finally:
+        cluster.close()
+    local = run_bench([ONE_QUBIT], tmp_path / "local", qubits=1, workers=2, **SMALL)
+    assert remote.new == local.new == 16
+    assert _table(remote.csv) == _table(local.csv)
