@@ -61,7 +61,7 @@ SPECS = {1: "H+depolarizing:0.05+amplitude-damping:0.02",
          4: "CNOT⊗CNOT+zz:0.1+depolarizing:0.03"}
 SHOTS = 1000
 SEED = 7
-METHODS = ("lin", "pls", "mle")
+METHODS = ("lin", "pls", "mle", "mle-pg")
 SOLVERS = ("CLARABEL", "SCS")
 LIKELIHOOD_RTOL = 1e-6
 REFERENCE_TIMEOUT_3Q = 600.0

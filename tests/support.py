@@ -30,6 +30,39 @@ def simulated_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int 
     return read_experiment(path), channel.choi
 
 
+def random_density(d: int, rank: int, seed: int) -> np.ndarray:
+    """ρ = G G†/Tr(G G†), G a d × rank matrix of complex Gaussian entries (rank-deficient
+    when rank < d)."""
+    rng = np.random.default_rng(seed)
+    g = rng.normal(size=(d, rank)) + 1j * rng.normal(size=(d, rank))
+    rho = g @ g.conj().T
+    return rho / np.trace(rho).real
+
+
+def random_ket(d: int, seed: int) -> np.ndarray:
+    """A normalised vector of d complex Gaussian entries."""
+    rng = np.random.default_rng(seed)
+    v = rng.normal(size=d) + 1j * rng.normal(size=d)
+    return v / np.linalg.norm(v)
+
+
+def simulated_state_experiment(folder, spec: str, *, shots: float = 1000.0, seed: int = 1,
+                               meas=("H", "V", "D", "A", "R", "L"), n_qubits: int = 2,
+                               exact: bool = False):
+    """Write and read back a simulated state experiment (`gatescope.synth.state`); returns
+    (Experiment, true density matrix). ``exact=True`` writes the expected counts rounded
+    to whole numbers instead of Poisson draws."""
+    from gatescope.synth.state import (simulate_state_counts, state_from_spec,
+                                       write_state_experiment)
+
+    state = state_from_spec(spec, n_qubits)
+    rows = simulate_state_counts(state, shots=shots, meas_set=meas, seed=seed)
+    if exact:
+        rows = [(m, e, int(round(e))) for m, e, _ in rows]
+    path = write_state_experiment(folder, state, rows, title=f"test state {spec}")
+    return read_experiment(path), state.choi
+
+
 def postselected_experiment(folder, success, seed=5, noise=(("depolarizing", 0.05),),
                             rate: float = POSTSELECTED_RATE, exact: bool = False):
     """A CZ that succeeds with probability ``success``, Φ = success · (CZ + noise), as a

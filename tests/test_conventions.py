@@ -78,3 +78,43 @@ def test_bloch_density_and_kron_order():
     assert np.allclose(rho, np.diag([1, 0]))            # (0, 0, 1) is H
     assert np.allclose(cv.kron_all([np.diag([1, 0]), np.diag([0, 1])]), np.diag([0, 1, 0, 0]))
     assert cv.n_qubits_of(8) == 3
+
+
+def test_named_states_follow_the_readme():
+    # README, Conventions: phi± = (HH ± VV)/√2, psi± = (HV ± VH)/√2, qubit 1 first, H = |0>
+    from gatescope.conventions import NAMED_STATES, builtin_states, named_state
+
+    states = builtin_states()
+    h, v = states["H"], states["V"]
+    hh, hv, vh, vv = (np.kron(x, y) for x, y in ((h, h), (h, v), (v, h), (v, v)))
+    sq = 1 / np.sqrt(2)
+    np.testing.assert_allclose(named_state("phi+", 2), (hh + vv) * sq, atol=1e-15)
+    np.testing.assert_allclose(named_state("phi-", 2), (hh - vv) * sq, atol=1e-15)
+    np.testing.assert_allclose(named_state("psi+", 2), (hv + vh) * sq, atol=1e-15)
+    np.testing.assert_allclose(named_state("psi-", 2), (hv - vh) * sq, atol=1e-15)
+    np.testing.assert_allclose(named_state("HV", 2), hv, atol=0)
+    np.testing.assert_allclose(named_state("+i 0", 2), np.kron(states["+i"], states["0"]), atol=0)
+    # the handedness option swaps R and L
+    np.testing.assert_allclose(named_state("R", 1, right_circular="H+iV"), states["L"], atol=0)
+    ghz = named_state("GHZ", 3)
+    assert ghz[0] == ghz[7] == pytest.approx(sq) and np.count_nonzero(ghz) == 2
+    w = named_state("W", 3)
+    # |100>, |010>, |001> with qubit 1 most significant: indices 4, 2, 1
+    assert set(np.nonzero(w)[0]) == {1, 2, 4}
+    np.testing.assert_allclose(w[[1, 2, 4]], 1 / np.sqrt(3), atol=1e-15)
+    for name in NAMED_STATES:
+        n = 2 if name.startswith(("phi", "psi")) else 4
+        assert np.linalg.norm(named_state(name, n)) == pytest.approx(1, abs=1e-15)
+
+
+@pytest.mark.parametrize("name,n,words", [
+    ("phi+", 3, "two-qubit"), ("GHZ", 2, "three qubits"), ("W", 1, "three qubits"),
+    ("ghz", 3, "'GHZ'"), ("HX", 2, "unknown state label 'X'"), ("HVH", 2, "names 3 qubit"),
+    ("", 2, "empty"), ("Phi+", 2, "'phi+'"), (3, 2, "must be text"),
+])
+def test_bad_state_names_say_what_to_do(name, n, words):
+    from gatescope.conventions import named_state
+
+    with pytest.raises(ValueError) as info:
+        named_state(name, n)
+    assert words in str(info.value)

@@ -87,3 +87,18 @@ def test_intervals_stay_in_the_range_of_the_true_figure():
     assert iv.parameter_range("purity", 4) == (1 / 16, 1.0)
     assert iv.parameter_range("min_eigenvalue", 4) == (0.0, 0.25)
     assert iv.parameter_range("no_such_figure", 4) is None
+
+
+def test_ranges_of_the_state_figures():
+    # a state on d dimensions: purity in [1/d, 1], entropy in [0, log₂ d] bits (common
+    # practice); a qubit against the rest has negativity at most (2 − 1)/2 (Vidal & Werner,
+    # PRA 65, 032314 (2002)); Tsirelson's bound 2√2 (Cirel'son, Lett. Math. Phys. 4, 93 (1980))
+    assert iv.parameter_range("purity", 4, "state") == (0.25, 1.0)
+    assert iv.parameter_range("purity", 4) == (1 / 16, 1.0)            # a process
+    assert iv.parameter_range("von_neumann_entropy", 8, "state") == (0.0, 3.0)
+    assert iv.parameter_range("negativity_3", 16, "state") == (0.0, 0.5)
+    assert iv.parameter_range("chsh_max", 4, "state") == (0.0, 2 * np.sqrt(2))
+    for name in ("state_fidelity", "concurrence", "tangle", "entanglement_of_formation",
+                 "linear_entropy", "log_negativity"):
+        assert iv.parameter_range(name, 4, "state") == (0.0, 1.0), name
+    assert iv.parameter_range("unitarity", 4, "state") is None

@@ -136,3 +136,14 @@ def test_kernels_match_their_twins(rng, d, r, slack):
     pb = kernels.lbfgs_pair_numpy(z, x, g, s[0])
     for u, v in zip(pa, pb):
         np.testing.assert_allclose(u, v, rtol=1e-12, atol=1e-12)
+@pytest.mark.parametrize("d", [1, 2, 4, 8, 32])
+@pytest.mark.parametrize("scale", [0.05, 1.0, 10.0])
+def test_project_density_kernel_matches_twin(rng, d, scale):
+    from gatescope.projection import project_density_numpy
+
+    g = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    x = np.ascontiguousarray(scale * (g + g.conj().T) / 2 + np.eye(d) / d)
+    a = kernels.project_density_kernel(x)
+    b = project_density_numpy(x)
+    np.testing.assert_allclose(a, b, atol=1e-14 * max(1.0, scale))
+    assert np.array_equal(a, a.conj().T)

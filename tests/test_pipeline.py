@@ -129,3 +129,66 @@ def test_unknown_method_or_estimator_option_is_an_input_error(make_experiment):
         gs.fit(exp, "mle", tolerance=1e-6)
     with pytest.raises(gs.InputError, match="no option 'opt_tol'"):
         gs.fit(exp, "lin", opt_tol=1e-6)
+
+
+def test_fit_of_a_state_experiment_fills_every_state_figure(make_state_experiment):
+    # a two-qubit pair source: every state figure, with an interval, from one fit
+    import warnings
+
+    from gatescope.merit import state_figure_names
+
+    exp, rho = make_state_experiment("psi-+visibility:0.9+depolarizing:0.05", shots=2000, seed=3)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = gs.fit(exp, "mle", bootstrap=30, seed=2, workers=1, diamond=True)
+    assert res.kind == "state" and res.rho.shape == (4, 4) and res.choi is None
+    assert list(res.figures) == list(state_figure_names(2, True))
+    for name, figure in res.figures.items():
+        assert figure.ci is not None and figure.ci[0] <= figure.value <= figure.ci[1], name
+    messages = [str(w.message) for w in caught]
+    assert any("diamond distance skipped" in m for m in messages)
+    # psi− with a visibility has t₂ = t₃ (its X and Y correlations are equal)
+    assert any("chsh_max" in m and "biased upward" in m for m in messages)
+    # 36 rows − 15 state parameters − 1 intensity
+    assert res.diagnostics.dof == 20
+    # the fidelity to psi−, (1 + v)/2 · 0.95 + 0.05/4 = 0.915, within 5 of its bootstrap
+    # standard errors (each interval half-width is 1.96 of them)
+    fid = res.figures["state_fidelity"]
+    assert abs(fid.value - 0.915) < 5 * (fid.ci[1] - fid.ci[0]) / (2 * 1.96)
+
+
+@pytest.mark.parametrize("method", ["lin", "pls", "mle"])
+def test_fit_of_a_three_qubit_state(make_state_experiment, method):
+    from gatescope.merit import state_figure_names
+
+    exp, rho = make_state_experiment("GHZ+depolarizing:0.1", n_qubits=3, shots=500, seed=5)
+    res = gs.fit(exp, method)
+    assert list(res.figures) == list(state_figure_names(3, True))
+    # GHZ with white noise p: fidelity (1 − p) + p/8 (direct calculation); 500 counts per
+    # basis give a standard error near 0.01
+    assert res.figures["state_fidelity"].value == pytest.approx(0.9 + 0.1 / 8, abs=0.05)
+
+
+@pytest.mark.slow
+def test_six_qubit_state_through_the_whole_job(make_state_experiment):
+    # 46,656 rows. Ideal data (expected counts rounded at 1e8 per analyser basis) give back
+    # the true state by least squares (rounding noise only: the estimator battery's bound)
+    from gatescope.likelihood import PoissonLikelihood
+    from gatescope.model import build_model
+
+    exp, rho = make_state_experiment("GHZ+depolarizing:0.1", n_qubits=6, shots=1e8, exact=True)
+    assert exp.n_rows == 6 ** 6
+    res = gs.fit(exp, "pls")
+    assert np.abs(res.rho - rho).max() < 1e-6
+    # GHZ with white noise p: fidelity (1 − p) + p/64 (direct calculation)
+    assert res.figures["state_fidelity"].value == pytest.approx(0.9 + 0.1 / 64, abs=1e-6)
+    assert [f"negativity_{k}" for k in range(1, 7)] == list(res.figures)[4:]
+    # Poisson data at 1000 counts per basis: the maximum-likelihood state is at least as
+    # likely as the truth and as the pls estimate (to the rounding of ℓ, 1e-10 relative)
+    exp, rho = make_state_experiment("GHZ+depolarizing:0.1", n_qubits=6, shots=1000, seed=3)
+    res = gs.fit(exp, "mle")
+    lik = PoissonLikelihood(build_model(exp))
+    assert res.converged
+    for other in (rho, gs.fit(exp, "pls").rho):
+        floor = lik.evaluate(other).log_likelihood
+        assert res.log_likelihood >= floor - 1e-10 * abs(floor)

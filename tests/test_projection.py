@@ -61,3 +61,52 @@ def test_projection_with_conjugate_gradients_matches_direct(rng, monkeypatch):
     monkeypatch.setattr(projection, "MATRIX_FREE_DIM", 8)
     iterative = projection.project_cptp_numpy(x)
     np.testing.assert_allclose(iterative.choi, direct.choi, atol=1e-10)
+
+
+def test_simplex_projection_fixed_points_and_examples():
+    # Held, Wolfe & Crowder, Math. Program. 6, 62 (1974): the projection of (2, 0) onto the
+    # simplex is (1, 0), of (−1, −1) its centre; a point of the simplex is its own
+    from gatescope.projection import project_simplex
+
+    np.testing.assert_allclose(project_simplex(np.array([2.0, 0.0])), [1, 0])
+    np.testing.assert_allclose(project_simplex(np.array([-1.0, -1.0])), [0.5, 0.5])
+    np.testing.assert_allclose(project_simplex(np.array([0.2, 0.3, 0.5])), [0.2, 0.3, 0.5],
+                               atol=1e-16)
+
+
+@pytest.mark.parametrize("d", [2, 4, 8, 64])
+def test_density_projection_is_the_nearest_density_matrix(d):
+    # projection theorem (common practice for convex sets): Re Tr[(X − ρ*)(σ − ρ*)] ≤ 0 for
+    # every density matrix σ; a density matrix is its own projection
+    from gatescope.projection import project_density
+
+    rng = np.random.default_rng(d)
+    g = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    x = 0.5 * (g + g.conj().T) / np.sqrt(d)
+    proj = project_density(x)
+    rho = proj.choi
+    assert proj.converged and proj.iterations == 1 and proj.multiplier is None
+    assert np.linalg.eigvalsh(rho)[0] >= -1e-15 and abs(np.trace(rho).real - 1) < 1e-13
+    for s in range(5):
+        h = rng.normal(size=(d, 1 + s)) + 1j * rng.normal(size=(d, 1 + s))
+        sigma = h @ h.conj().T / np.linalg.norm(h) ** 2
+        assert np.vdot(x - rho, sigma - rho).real <= 1e-12
+    np.testing.assert_allclose(project_density(rho).choi, rho, atol=1e-14)
+
+
+def test_project_physical_dispatches_on_the_model_kind():
+    from types import SimpleNamespace
+
+    from gatescope.projection import project_density, project_physical
+
+    x = np.diag([0.9, 0.3, -0.1, -0.2]).astype(complex)
+    state = SimpleNamespace(kind="state", trace_decreasing=False)
+    np.testing.assert_array_equal(project_physical(state, x).choi, project_density(x).choi)
+    process = SimpleNamespace(kind="process", trace_decreasing=False)
+    np.testing.assert_allclose(kernels_free_partial_trace(project_physical(process, x).choi),
+                               np.eye(2), atol=1e-12)
+
+
+def kernels_free_partial_trace(choi):
+    """Tr_out of a 4 × 4 Choi matrix, written out (input factor first)."""
+    return np.einsum("iaja->ij", choi.reshape(2, 2, 2, 2))

@@ -36,6 +36,14 @@ def toml_2q(extra: str = "") -> str:
 GOOD_1Q = "prep,meas,counts\nH,H,90\nH,V,10\nD,D,80\n"
 
 
+def toml_state(extra: str = "", qubits: int = 2) -> str:
+    return f'title = "pair source"\nkind = "state"\nqubits = {qubits}\ncounts = "counts.csv"\n' + extra
+
+
+GOOD_STATE = "meas,counts\nHH,90\nHV,4\nVV,88\nDD,80\nRL,77\n"
+SQ_RHO = 0.5 * np.outer([1, 0, 0, 1], [1, 0, 0, 1])            # |phi+><phi+|
+
+
 def case(id, toml, csv, *, file, line=None, key=None, words=()):
     return pytest.param(dict(toml=toml, csv=csv, file=file, line=line, key=key, words=words), id=id)
 
@@ -101,6 +109,35 @@ BAD_INPUTS = [
          file="toml", line=5, key="states.Nothing.vector", words=("zero",)),
     case("unknown-plate-kind", toml_1q('[states.Hmis]\nplates = [ { kind = "full", angle_deg = 0.4 } ]\n'),
          GOOD_1Q, file="toml", line=5, key="states.Hmis.plates", words=("full",)),
+    # -- state experiments (kind = "state"; README, "State tomography")
+    case("prep-column-in-a-state", toml_state(), "prep,meas,counts\nHH,HH,5\n",
+         file="csv", line=1, words=("'prep'", "state")),
+    case("no-prep-column-in-a-process", toml_2q(), "meas,counts\nHH,5\n",
+         file="csv", line=1, words=("'prep'", 'kind = "state"')),
+    case("target-in-a-state", toml_state('target = "CZ"\n'), GOOD_STATE,
+         file="toml", line=5, key="target", words=("target_state",)),
+    case("target-state-in-a-process", toml_2q('target_state = "phi+"\n'), GOOD_1Q.replace("H,", "HH,"),
+         file="toml", line=4, key="target_state", words=("kind",)),
+    case("unknown-kind", 'kind = "channel"\nqubits = 1\ncounts = "counts.csv"\n', GOOD_1Q,
+         file="toml", line=1, key="kind", words=("channel", "'state'")),
+    case("per-preparation-state", toml_state('normalization = "per-preparation"\n'), GOOD_STATE,
+         file="toml", line=5, key="normalization", words=("global",)),
+    case("trace-in-a-state", toml_state('trace = "decreasing"\n'), GOOD_STATE,
+         file="toml", line=5, key="trace", words=("state",)),
+    case("bell-state-on-three-qubits", toml_state('target_state = "phi+"\n', qubits=3),
+         "meas,counts\nHHH,5\n", file="toml", line=5, key="target_state", words=("two-qubit",)),
+    case("misspelt-bell-state", toml_state('target_state = "Psi-"\n'), GOOD_STATE,
+         file="toml", line=5, key="target_state", words=("'psi-'",)),
+    case("vector-of-wrong-length", toml_state('target_state = { vector = [1, 0, 0] }\n'),
+         GOOD_STATE, file="toml", line=5, key="target_state.vector", words=("3 entries",)),
+    case("zero-vector-target", toml_state('target_state = { vector = [0, 0, 0, 0] }\n'),
+         GOOD_STATE, file="toml", line=5, key="target_state.vector", words=("zero",)),
+    case("unknown-target-table-key", toml_state('target_state = { ket = [1, 0, 0, 0] }\n'),
+         GOOD_STATE, file="toml", line=5, key="target_state.ket", words=("vector",)),
+    case("missing-density-file", toml_state('target_state = { density = "rho.npy" }\n'),
+         GOOD_STATE, file="toml", line=5, key="target_state.density", words=("not found",)),
+    case("state-label-wrong-qubits", toml_state(), "meas,counts\nHH,5\nHVH,3\n",
+         file="csv", line=3, words=("HVH",)),
 ]
 
 
@@ -379,3 +416,54 @@ def test_conditions_read_alone_and_the_input_files(tmp_path):
     assert input_files(path) == {"experiment": path}
     with pytest.raises(gs.InputError, match="not valid TOML"):
         read_conditions(path)
+# --------------------------------------------------------------------------
+# State experiments (kind = "state"): README, "State tomography"
+# --------------------------------------------------------------------------
+
+def test_state_experiment_is_read(tmp_path):
+    exp = read(tmp_path, toml_state('target_state = "phi+"\n'), GOOD_STATE)
+    assert exp.kind == "state" and exp.normalization == "global" and exp.n_groups == 1
+    assert exp.prep == () and exp.prep_labels == () and exp.prep_index is None
+    assert exp.prep_states is None and exp.meas_effects is None and exp.target is None
+    assert exp.meas_labels == ("H H", "H V", "V V", "D D", "R L")
+    assert exp.target_state_name == "phi+"
+    np.testing.assert_allclose(exp.target_state, [SQ, 0, 0, SQ], atol=1e-15)
+    # the effect of a setting is the product of its single-qubit effects, qubit 1 first
+    m = exp.meas_labels.index("R L")
+    r, l_ = (exp.single_meas_effects[i] for i in exp.meas_parts[m])
+    np.testing.assert_allclose(np.kron(r, l_), np.kron(proj(KET["H-iV"]), proj(KET["H+iV"])),
+                               atol=1e-15)
+
+
+def test_state_targets_from_a_vector_and_a_density_file(tmp_path):
+    exp = read(tmp_path / "v", toml_state('target_state = { vector = ["1", "0", "0", "1j"] }\n'),
+               GOOD_STATE)
+    np.testing.assert_allclose(exp.target_state, [SQ, 0, 0, 1j * SQ], atol=1e-15)
+    folder = tmp_path / "d"
+    folder.mkdir()
+    np.save(folder / "rho.npy", 0.9 * SQ_RHO + 0.1 * np.eye(4) / 4)
+    exp = read(folder, toml_state('target_state = { density = "rho.npy" }\n'), GOOD_STATE)
+    np.testing.assert_allclose(exp.target_state, 0.9 * SQ_RHO + 0.1 * np.eye(4) / 4, atol=1e-15)
+    assert exp.target_state_name == "density matrix from rho.npy"
+
+
+@pytest.mark.parametrize("matrix, words", [
+    (2 * SQ_RHO, "trace 2"), (np.diag([1.2, -0.2, 0, 0]), "negative eigenvalue"),
+    (SQ_RHO + np.triu(np.ones((4, 4)), 1) * 0.1, "not Hermitian"), (np.eye(2) / 2, "4 × 4"),
+])
+def test_bad_target_density_matrices_are_refused(tmp_path, matrix, words):
+    np.save(tmp_path / "rho.npy", matrix)
+    path = write_case(tmp_path, toml_state('target_state = { density = "rho.npy" }\n'),
+                      GOOD_STATE)
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    assert info.value.key == "target_state.density" and words in str(info.value)
+
+
+def test_state_per_group_normalization_needs_its_column(tmp_path):
+    path = write_case(tmp_path, toml_state('normalization = "per-group"\n'), GOOD_STATE)
+    with pytest.raises(gs.InputError, match="group"):
+        gs.read_experiment(path)
+    exp = read(tmp_path / "g", toml_state('normalization = "per-group"\n'),
+               "meas,counts,group\nHH,5,z\nHV,1,z\nDD,4,x\n")
+    assert exp.group_names == ("z", "x") and exp.group_index.tolist() == [0, 0, 1]

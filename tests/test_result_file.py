@@ -293,3 +293,75 @@ def test_conditions_group_round_trip(tmp_path):
     with h5py.File(bare.save(tmp_path / "bare.h5")) as f:
         assert len(f["conditions"].attrs) == 0
     assert gs.load_result(tmp_path / "bare.h5").conditions == {}
+# --------------------------------------------------------------------------
+# State results (docs/file-formats.md, "Result file": kind = "state")
+# --------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def pair_fit(tmp_path_factory):
+    from support import simulated_state_experiment
+
+    folder = tmp_path_factory.mktemp("pair")
+    exp, rho = simulated_state_experiment(folder / "data", "phi++visibility:0.9", shots=800,
+                                          seed=3)
+    res = gs.fit(exp, "mle", bootstrap=12, seed=4, workers=1)
+    path = res.save(folder / "out" / "result.h5")
+    return exp, res, path
+
+
+def test_state_result_layout(pair_fit):
+    exp, res, path = pair_fit
+    with h5py.File(path, "r") as f:
+        assert text(f.attrs["kind"]) == "state"
+        est = f["estimate"]
+        assert set(est) == {"rho", "intensities"}
+        rho = est["rho"][()]
+        assert rho.dtype == np.complex128 and rho.shape == (4, 4)
+        model = f["model"]
+        assert "prep_states" not in model and "meas_effects" not in model
+        single, parts = model["single_meas_effects"][()], model["meas_parts"][()]
+        assert single.shape == (6, 2, 2) and parts.shape == (36, 2) and parts.dtype == np.int64
+        # each row's setting is the product of its single-qubit effects, qubit 1 first
+        meas_index = f["input/counts/meas_index"][()]
+        for label, m in zip(f["input/counts/meas"][()], meas_index):
+            np.testing.assert_allclose(np.kron(single[parts[m, 0]], single[parts[m, 1]]),
+                                       proj(text(label)), atol=1e-15)
+        assert "prep" not in f["input/counts"] and "prep_index" not in f["input/counts"]
+        target = model["target_state"]
+        assert text(target.attrs["name"]) == "phi+"
+        np.testing.assert_allclose(target[()], [SQ, 0, 0, SQ], atol=1e-15)
+        b = f["bootstrap"]
+        assert b["rho_std"].shape == (4, 4) and b["rho_std"].dtype == np.complex128
+        assert "choi_std" not in b and "chi_std" not in b and "ptm_std" not in b
+        assert "chsh_a" in f["figures_extra"]
+        # Tr ρ = 1 and the fidelity to phi+ is <phi+|ρ|phi+> (Nielsen & Chuang §9.2.2)
+        psi = np.array([SQ, 0, 0, SQ])
+        assert float(f["figures/state_fidelity"][()]) == pytest.approx(
+            np.vdot(psi, rho @ psi).real, abs=1e-14)
+    assert np.trace(rho).real == pytest.approx(1, abs=1e-13)
+
+
+def test_state_result_round_trips_exactly(pair_fit):
+    _, res, path = pair_fit
+    back = gs.load_result(path)
+    assert back.kind == "state" and back.choi is None and back.chi is None and back.ptm is None
+    np.testing.assert_array_equal(back.rho, res.rho)
+    assert list(back.figures) == list(res.figures)
+    for name, fig in res.figures.items():
+        assert back.figures[name].value == fig.value and back.figures[name].ci == fig.ci
+    np.testing.assert_array_equal(back.bootstrap.rho_std, res.bootstrap.rho_std)
+    np.testing.assert_array_equal(back.meas_parts, res.meas_parts)
+    np.testing.assert_array_equal(back.figure_details["correlation_singular_values"],
+                                  res.figure_details["correlation_singular_values"])
+    assert back.target_name == "phi+" and back.dim == 4
+
+
+def test_a_file_without_kind_is_a_process(cz_fit, tmp_path):
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r+") as f:
+        assert text(f.attrs["kind"]) == "process"
+        del f.attrs["kind"]
+    back = gs.load_result(path)
+    assert back.kind == "process" and back.rho is None
+    np.testing.assert_array_equal(back.choi, res.choi)

@@ -110,3 +110,25 @@ def test_show_prints_the_conditions(tmp_path):
     text = summary(gs.fit(gs.read_experiment(exp.path)))
     assert "  conditions: delay_ps = 120, run = 'night 3'" in text.splitlines()
     assert "conditions" not in summary(gs.fit(exp))
+def test_show_of_a_state_prints_its_figures_and_density_matrix(make_state_experiment, tmp_path):
+    exp, _ = make_state_experiment("phi++visibility:0.9", shots=500, seed=2)
+    res = gs.fit(exp, "mle", bootstrap=10, seed=1, workers=1)
+    text = summary(gs.load_result(res.save(tmp_path / "r.h5")))
+    for word in ("state, qubits 2, target state phi+", "state fidelity", "purity (Tr ρ²)",
+                 "von Neumann entropy (bits)", "linear entropy", "concurrence", "tangle",
+                 "entanglement of formation", "negativity", "log-negativity",
+                 "largest CHSH value", "CHSH settings", "a' (qubit 1)", "b' (qubit 2)",
+                 "singular values of the correlation matrix", "density matrix (rows",
+                 "its bootstrap standard deviations", "10 parametric resamples"):
+        assert word in text, word
+    rows = text.split("density matrix (rows")[1].splitlines()[1:5]
+    assert f"{res.rho[0, 3].real:+.4f}" in rows[0]
+    assert "process fidelity" not in text and "diamond" not in text
+
+
+def test_show_of_a_three_qubit_state_names_each_cut(make_state_experiment):
+    exp, _ = make_state_experiment("GHZ", n_qubits=3, shots=200, seed=2)
+    text = summary(gs.fit(exp, "pls"))
+    for k in (1, 2, 3):
+        assert f"negativity, qubit {k} | rest" in text
+    assert "density matrix" not in text                   # printed up to two qubits only

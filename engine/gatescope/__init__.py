@@ -1,4 +1,4 @@
-"""gatescope: quantum process tomography from laboratory counts.
+"""gatescope: quantum process (and state) tomography from laboratory counts.
 
 The public API (README, "Python API")::
 
@@ -13,10 +13,11 @@ The modules at this level follow the data, one step each: `reader` →
 merit) → `intervals`, `bootstrap` → `diagnostics` → `result_file`,
 `result` → `pipeline`; `summary` and `cli` present it. Capabilities built
 on the pipeline live in subpackages that this level never imports
-(`synth`: simulation and the run sheet; `batch`: overnight batches).
-Conventions (Choi, chi, Pauli transfer matrix, labels, wave plates) are
-stated in the README and in :mod:`gatescope.conventions` and
-:mod:`gatescope.channels`.
+(`synth`: simulation and the run sheet; `batch`: overnight batches). A
+state experiment (``kind = "state"``) goes through the same steps with the
+state model of `model` and the state figures of `merit`. Conventions (Choi,
+chi, Pauli transfer matrix, labels, wave plates) are stated in the README
+and in :mod:`gatescope.conventions` and :mod:`gatescope.channels`.
 """
 
 from importlib import metadata as _metadata

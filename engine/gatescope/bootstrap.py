@@ -11,8 +11,8 @@ law, and is refitted with the estimator of the point fit:
 Every refit is warm-started from the point estimate (``start=``; the
 closed-form ``lin`` and ``pls`` ignore it). The figures of merit of every
 resample are kept (``Bootstrap.figures``, one row per resample); the Choi,
-chi and Pauli-transfer matrices are summarised by their element-wise
-standard deviations.
+chi and Pauli-transfer matrices of a process, or the density matrix of a
+state, are summarised by their element-wise standard deviations.
 
 Reproducibility. Resample i draws its counts from
 ``numpy.random.default_rng(SeedSequence(seed).spawn(B)[i])``, whatever the
@@ -29,10 +29,10 @@ Failures. A refit that reports ``converged = False`` is a failure; it is
 counted (``Bootstrap.failures``, and per resample in
 ``Bootstrap.converged``) and a `GatescopeWarning` is raised when more than
 1% of the resamples fail. Its estimate is *kept* in the intervals: ``pls``
-and ``mle`` return an exactly CPTP matrix at every iteration, so a
-non-converged refit is still a physical process, only not the exact
-optimum, and dropping it would bias the spread towards the resamples that
-are easy to fit. A refit that raises a numerical error has no estimate:
+and ``mle`` return an exactly CPTP matrix (a density matrix, for a state)
+at every iteration, so a non-converged refit is still physical, only not
+the exact optimum, and dropping it would bias the spread towards the
+resamples that are easy to fit. A refit that raises a numerical error has no estimate:
 its row of figures is NaN, it is counted in ``Bootstrap.errors`` (and as a
 failure) and necessarily left out of the intervals and standard deviations.
 
@@ -54,7 +54,7 @@ from .estimators import MAXIMUM_LIKELIHOOD, Fit, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL, INTERVALS
 from .merit import compute_figures
-from .model import MeasurementModel
+from .model import MeasurementModel, StateModel
 from .options import choice, seed as check_seed, whole, workers as check_workers
 from .parallel import Runner
 from .progress import Progress
@@ -86,6 +86,8 @@ class Bootstrap:
     choi_std, chi_std : complex arrays, element-wise standard deviations over
         the resamples: std of the real parts + 1j × std of the imaginary parts
     ptm_std : float array, element-wise standard deviation of the PTM
+    rho_std : complex array, for a state (whose choi_std, chi_std and ptm_std are
+        None): the element-wise standard deviation of the density matrix
     method : estimator of the refits
     workers : processes used (the figures do not depend on it)
     seconds : wall time of the bootstrap
@@ -106,13 +108,14 @@ class Bootstrap:
     method: str = ""
     workers: int = 1
     seconds: float = 0.0
+    rho_std: np.ndarray | None = None
 
 
 # --------------------------------------------------------------------------
 # Resampling
 # --------------------------------------------------------------------------
 
-def resample_means(model: MeasurementModel, point: Fit, kind: str) -> np.ndarray:
+def resample_means(model: MeasurementModel | StateModel, point: Fit, kind: str) -> np.ndarray:
     """Poisson means of every row for a bootstrap of ``kind``.
 
     Parametric: the point fit's expected counts (clipped at 0, which only
@@ -140,7 +143,7 @@ def resample_counts(means: np.ndarray, seed_sequence: np.random.SeedSequence) ->
 class Refitter:
     """Everything a resample needs, sent once to every worker."""
 
-    model: MeasurementModel
+    model: MeasurementModel | StateModel
     means: np.ndarray
     start: np.ndarray
     target: np.ndarray | None
@@ -161,10 +164,18 @@ class Refitter:
                            **self.options)
         except (NumericalError, np.linalg.LinAlgError) as exc:
             return {"ok": False, "error": f"{type(exc).__name__}: {exc}"}
-        figs = compute_figures(fit.choi, self.target)
-        return {"ok": True, "converged": bool(fit.converged),
-                "figures": np.array([figs[name] for name in self.names], dtype=float),
-                "choi": fit.choi, "chi": choi_to_chi(fit.choi), "ptm": choi_to_ptm(fit.choi)}
+        figs = compute_figures(fit.choi, self.target, kind=self.model.kind)
+        out = {"ok": True, "converged": bool(fit.converged),
+               "figures": np.array([figs[name] for name in self.names], dtype=float)}
+        return out | _matrices(self.model.kind, fit.choi)
+
+
+def _matrices(kind: str, estimate: np.ndarray) -> dict:
+    """The matrices whose element-wise spread the bootstrap keeps: Choi, chi and Pauli
+    transfer matrix of a process, the density matrix of a state."""
+    if kind == "state":
+        return {"rho": estimate}
+    return {"choi": estimate, "chi": choi_to_chi(estimate), "ptm": choi_to_ptm(estimate)}
 
 
 def _refit_task(refitter: Refitter, seed_sequence) -> dict:
@@ -273,7 +284,7 @@ def check_options(*, samples, kind: str = "parametric", workers=None,
     return samples, workers
 
 
-def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
+def run_bootstrap(model: MeasurementModel | StateModel, point: Fit, target, *, samples: int,
                   kind: str = "parametric", seed: int | None = None, workers: int | None = None,
                   method: str | None = None, options: dict | None = None,
                   progress: bool = False, interval: str = DEFAULT_INTERVAL,
@@ -282,11 +293,12 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
 
     Parameters
     ----------
-    model : MeasurementModel
+    model : MeasurementModel or StateModel
     point : Fit
         The point estimate (centre of the parametric resampling, warm start).
     target : (d, d) array or None
-        Target unitary of the target figures (``compute_figures``).
+        Target unitary of the target figures (``compute_figures``); for a state
+        model the target state (a ket or a density matrix).
     samples : int
         Number of resamples B (at least 2).
     kind : {"parametric", "nonparametric"}
@@ -303,7 +315,7 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     interval : {"normal", "percentile", "basic", "bc"}
         The construction the intervals will use (stored in the result).
     point_figures : dict, optional
-        ``compute_figures(point.choi, target)`` when the caller has it; every
+        ``compute_figures(point.choi, target, kind=model.kind)`` when the caller has it; every
         figure in it but the diamond distance (not bootstrapped) is resampled.
 
     Returns
@@ -323,7 +335,7 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
 
     t0 = time.perf_counter()
     if point_figures is None:
-        point_figures = compute_figures(point.choi, target)
+        point_figures = compute_figures(point.choi, target, kind=model.kind)
     names = tuple(name for name in point_figures if name != "diamond_distance")
     point_choi = np.asarray(point.choi, dtype=complex)
     refitter = Refitter(model=model, means=resample_means(model, point, kind), start=point_choi,
@@ -333,8 +345,7 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
     figures = np.full((samples, len(names)), np.nan)
     converged = np.zeros(samples, dtype=bool)
     errors: list[tuple[int, str]] = []
-    acc = _Accumulator({"choi": point_choi, "chi": choi_to_chi(point_choi),
-                        "ptm": choi_to_ptm(point_choi)})
+    acc = _Accumulator(_matrices(model.kind, point_choi))
     with Runner(workers, shared=refitter) as runner, \
             Progress(samples, "bootstrap", "fit", enabled=progress) as bar:
         for index, out in runner.map(_refit_task, seeds):
@@ -370,10 +381,13 @@ def run_bootstrap(model: MeasurementModel, point: Fit, target, *, samples: int,
                       f"estimate sits at the boundary of the physical set or the estimator is "
                       f"strongly biased here, and the intervals of these figures may not reach "
                       f"their level;{advice}", GatescopeWarning, stacklevel=2)
+    spread = ({"rho_std": acc.std("rho")} if model.kind == "state" else
+              {"choi_std": acc.std("choi"), "chi_std": acc.std("chi"),
+               "ptm_std": acc.std("ptm").real})
     boot = Bootstrap(figures=figures, names=names, kind=kind, seed=seed, samples=samples,
                      failures=failures, interval=interval, converged=converged, errors=n_errors,
-                     choi_std=acc.std("choi"), chi_std=acc.std("chi"), ptm_std=acc.std("ptm").real,
-                     method=method, workers=used_workers, seconds=time.perf_counter() - t0)
+                     method=method, workers=used_workers, seconds=time.perf_counter() - t0,
+                     **spread)
     return boot, seed
 
 

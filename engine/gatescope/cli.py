@@ -34,9 +34,11 @@ def build_parser() -> argparse.ArgumentParser:
     from .conventions import GATE_NAMES
     from .estimators import METHODS
     from .intervals import DEFAULT_INTERVAL, INTERVALS
-    from .synth.noise import spec_forms
+    from .synth.noise import NOISE_KINDS, spec_forms
+    from .synth.state import STATE_NOISE_KINDS
 
-    p = _Parser(prog="gatescope", description="Quantum process tomography from laboratory counts.")
+    p = _Parser(prog="gatescope",
+                description="Quantum process and state tomography from laboratory counts.")
     p.add_argument("--version", action="store_true", help="print the version and exit")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
@@ -58,17 +60,24 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("show", help="print a summary of a result file")
     s.add_argument("result", help="result.h5")
 
-    m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel")
+    m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel or state")
     src = m.add_mutually_exclusive_group(required=True)
     src.add_argument("--gate", help=f"a named gate ({' '.join(GATE_NAMES)})")
     src.add_argument("--channel", metavar="SPEC",
                      help="GATE[+TERM]... or random:RANK[:SEED][+TERM]... (README, Commands)")
+    src.add_argument("--state", metavar="SPEC",
+                     help="a state experiment: STATE[+KIND:P]... (STATE a product label, phi+, "
+                          "phi-, psi+, psi-, GHZ or W) or random:RANK[:SEED]")
     m.add_argument("--noise", action="append", default=[], metavar="TERM",
-                   help=f"noise after the gate, one of {spec_forms()} (repeatable)")
-    m.add_argument("--qubits", type=int, default=2, help="qubits of a random channel (default 2)")
+                   help=f"noise after the gate, one of {spec_forms()} (for a state "
+                        f"{', '.join(STATE_NOISE_KINDS)}; repeatable)")
+    m.add_argument("--qubits", type=int, default=2,
+                   help="qubits of a random channel, or of a GHZ, W or random state (default 2)")
     m.add_argument("--shots", type=float, default=1000.0, metavar="N",
-                   help="expected counts per preparation and analyser basis (default 1000)")
-    m.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6, pauli4 or a comma list")
+                   help="expected counts per preparation and analyser basis (per analyser basis "
+                        "for a state; default 1000)")
+    m.add_argument("--prep", default=None, metavar="SET",
+                   help="pauli6 (default), pauli4 or a comma list; not for a state")
     m.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6, pauli4 or a comma list")
     m.add_argument("--seed", type=int, default=None)
     m.add_argument("--title", default=None)
@@ -82,15 +91,18 @@ def build_parser() -> argparse.ArgumentParser:
                     "half-wave, H polariser). It lists optical settings only; your local "
                     "laser-safety rules apply.")
     pl.add_argument("--qubits", type=int, required=True, metavar="N", help="number of qubits")
-    pl.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    pl.add_argument("--prep", default=None, metavar="SET",
+                    help="pauli6 (default), pauli4 or a comma list; not with --state")
     pl.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
     pl.add_argument("--right-circular", default="H-iV", metavar="H-iV|H+iV",
                     help="which state R is (default H-iV)")
     pl.add_argument("--seconds", type=float, default=None, metavar="T",
                     help="integration time per row: adds a seconds column and prints the total")
+    pl.add_argument("--state", action="store_true",
+                    help="the sheet of a state experiment: analysers only, one row per projector")
     pl.add_argument("-o", "--output", required=True, metavar="SHEET.csv")
 
-    sub.add_parser("demo", help="the whole job on the bundled data")
+    sub.add_parser("demo", help="the whole job on the bundled data (a gate, then a pair source)")
 
     b = sub.add_parser(
         "batch", help="fit every experiment under some folders into one output folder",
@@ -210,6 +222,9 @@ def cmd_simulate(args, command_line) -> int:
     from .synth.noise import parse_term
     from .synth.simulate import run_simulation
 
+    if args.state is not None:
+        return _simulate_state(args, command_line)
+
     if args.gate is not None:
         from .conventions import GATE_NAMES
 
@@ -221,9 +236,29 @@ def cmd_simulate(args, command_line) -> int:
             raise InputError(str(exc), key="--noise") from None
     option = "--channel" if args.channel else "--gate"
     spec = "+".join([args.channel or args.gate] + list(args.noise))
-    path = run_simulation(spec, Path(args.output), shots=args.shots, prep=args.prep, meas=args.meas,
-                          seed=args.seed, n_qubits=args.qubits, title=args.title,
-                          command_line=command_line, spec_option=option)
+    path = run_simulation(spec, Path(args.output), shots=args.shots,
+                          prep=args.prep or "pauli6", meas=args.meas, seed=args.seed,
+                          n_qubits=args.qubits, title=args.title, command_line=command_line,
+                          spec_option=option)
+    print(path)
+    return 0
+
+
+def _simulate_state(args, command_line) -> int:
+    """``simulate --state SPEC``: a synthetic state experiment (analysers only)."""
+    from .synth.state import parse_state_noise, run_state_simulation
+
+    if args.prep is not None:
+        raise InputError("a state experiment has no preparations", key="--prep")
+    for text in args.noise:
+        try:
+            parse_state_noise(text)
+        except ValueError as exc:
+            raise InputError(str(exc), key="--noise") from None
+    spec = "+".join([args.state] + list(args.noise))
+    path = run_state_simulation(spec, Path(args.output), shots=args.shots, meas=args.meas,
+                                seed=args.seed, n_qubits=args.qubits, title=args.title,
+                                command_line=command_line)
     print(path)
     return 0
 
@@ -232,10 +267,11 @@ def cmd_plan(args, command_line) -> int:
     from .synth.plan import format_duration, run_sheet, write_run_sheet
 
     sheet = run_sheet(args.qubits, args.prep, args.meas, right_circular=args.right_circular,
-                      seconds=args.seconds)
+                      seconds=args.seconds, state=args.state)
     path = write_run_sheet(args.output, sheet)
     print(path)
-    print(f"{len(sheet.rows)} rows; plate angles in degrees from H, in [0, 180)")
+    print(f"{len(sheet.rows)} rows{' (analysers only)' if sheet.state else ''}; "
+          "plate angles in degrees from H, in [0, 180)")
     if sheet.total_seconds is not None:
         print(f"total integration time {format_duration(sheet.total_seconds)}, "
               "not counting plate changes")
@@ -243,22 +279,19 @@ def cmd_plan(args, command_line) -> int:
     return 0
 
 
-def find_demo_data() -> Path | None:
-    """The bundled dataset: the repository's synthetic_data/, beside the package source."""
+def find_demo_data(dataset: str = DEMO_DATASET) -> Path | None:
+    """A bundled dataset: the repository's synthetic_data/, beside the package source."""
     here = Path(__file__).resolve()
     for base in [here.parents[2], Path.cwd()]:
-        candidate = base / "synthetic_data" / DEMO_DATASET / "experiment.toml"
+        candidate = base / "synthetic_data" / dataset / "experiment.toml"
         if candidate.exists():
             return candidate
     return None
 
 
 def cmd_demo(args, command_line) -> int:
-    from .pipeline import fit
-    from .reader import read_experiment
-    from .result import load_result
-    from .summary import summary
     from .synth.simulate import DEMO_RECIPE, run_simulation
+    from .synth.state import STATE_DEMO_RECIPE, run_state_simulation
 
     outdir = Path(DEMO_OUTPUT)
     source = find_demo_data()
@@ -270,17 +303,39 @@ def cmd_demo(args, command_line) -> int:
         source = run_simulation(DEMO_RECIPE["channel"], outdir / "data", shots=DEMO_RECIPE["shots"],
                                 prep="pauli6", meas="pauli6", seed=DEMO_RECIPE["seed"],
                                 n_qubits=2, title=DEMO_RECIPE["title"], command_line=command_line)
+    _demo_fit(source, DEMO_RECIPE, outdir / "result.h5", command_line)
+    recipe = STATE_DEMO_RECIPE
+    source = find_demo_data(recipe["folder"])
+    if source is None:
+        print("bundled pair-source data not found beside the package; regenerating it from "
+              "its recipe", file=sys.stderr)
+        source = run_state_simulation(recipe["state"], outdir / "pair-data", shots=recipe["shots"],
+                                      seed=recipe["seed"], title=recipe["title"],
+                                      command_line=command_line)
+    print("\n" + "=" * 78 + "\n")
+    _demo_fit(source, recipe, outdir / "pair-source-result.h5", command_line)
+    return 0
+
+
+def _demo_fit(source: Path, recipe: dict, out: Path, command_line) -> None:
+    """Fit one bundled dataset as the demo does, print its summary and its figures next to
+    the true values of the simulation, and write the result to ``out``."""
+    from .pipeline import fit
+    from .reader import read_experiment
+    from .result import load_result
+    from .summary import summary
+
     exp = read_experiment(source)
     print(f"demo: fitting {source}", file=sys.stderr)
-    result = fit(exp, "mle", bootstrap=DEMO_RECIPE["bootstrap"], seed=DEMO_RECIPE["seed"],
+    result = fit(exp, "mle", bootstrap=recipe["bootstrap"], seed=recipe["seed"],
                  progress=True, command_line=command_line)
-    out = outdir / "result.h5"
     result.save(out)
     print(summary(result))
     truth_path = source.parent / "truth.h5"
     if truth_path.exists():
         truth = load_result(truth_path)
-        print("\nagainst the true channel of the simulation (truth.h5):")
+        what = "state" if truth.kind == "state" else "channel"
+        print(f"\nagainst the true {what} of the simulation (truth.h5):")
         # trace is fixed by trace preservation and min_eigenvalue sits on the boundary of
         # the physical set for a maximum-likelihood estimate: neither is a test of accuracy.
         for name, fig in result.figures.items():
@@ -289,7 +344,7 @@ def cmd_demo(args, command_line) -> int:
                 inside = ""
                 if fig.ci is not None:
                     inside = "  inside the interval" if fig.ci[0] <= t <= fig.ci[1] else "  OUTSIDE the interval"
-                print(f"  {name:24s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
+                print(f"  {name:25s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
     print(f"\nresult written to {out}")
     return 0
 

@@ -8,6 +8,10 @@ Everything here is stated in the README's Conventions:
   ``right_circular = "H+iV"`` swaps R and L. The generic aliases ``0 1 + -
   +i -i`` are the Pauli eigenstates whatever that option says.
 * Bloch vectors are (<X>, <Y>, <Z>); (0, 0, 1) is H.
+* Named states (targets of state experiments): the Bell states ``phi+`` =
+  (HH + VV)/√2, ``phi-`` = (HH − VV)/√2, ``psi+`` = (HV + VH)/√2, ``psi-`` =
+  (HV − VH)/√2 (qubit 1 first); for n ≥ 3 qubits ``GHZ`` =
+  (|0…0> + |1…1>)/√2 and ``W`` = (|10…0> + |01…0> + … + |0…01>)/√n.
 * Pauli strings are ordered lexicographically with I < X < Y < Z and qubit 1
   most significant (so for two qubits: II, IX, IY, IZ, XI, ...).
 * A wave plate with retardance δ and fast axis at θ from H is
@@ -128,6 +132,94 @@ def kron_all(matrices) -> np.ndarray:
     for m in matrices:
         out = np.kron(out, m)
     return out
+
+
+# --------------------------------------------------------------------------
+# Named multi-qubit states
+# --------------------------------------------------------------------------
+
+BELL_STATES = ("phi+", "phi-", "psi+", "psi-")
+MANY_QUBIT_STATES = ("GHZ", "W")
+NAMED_STATES = BELL_STATES + MANY_QUBIT_STATES
+
+_STATE_HELP = ("a target state is a product label with one built-in single-qubit label per "
+               f"qubit (from {' '.join(BUILTIN_LABELS)}, e.g. \"HV\" or \"+i 0\"), a Bell "
+               f"state ({', '.join(BELL_STATES)}; two qubits) or GHZ or W (three qubits or more)")
+
+
+def bell_state(name: str) -> np.ndarray:
+    """The Bell state ``phi+``, ``phi-``, ``psi+`` or ``psi-`` as a 4-vector (HH, HV, VH, VV):
+    phi± = (HH ± VV)/√2, psi± = (HV ± VH)/√2, qubit 1 first."""
+    s = SQRT_HALF
+    vectors = {"phi+": [s, 0, 0, s], "phi-": [s, 0, 0, -s],
+               "psi+": [0, s, s, 0], "psi-": [0, s, -s, 0]}
+    try:
+        return np.array(vectors[name], dtype=complex)
+    except KeyError:
+        raise ValueError(f"unknown Bell state {name!r}; the Bell states are "
+                         f"{', '.join(BELL_STATES)}") from None
+
+
+def ghz_state(n_qubits: int) -> np.ndarray:
+    """(|0…0> + |1…1>)/√2 on n qubits."""
+    v = np.zeros(2 ** n_qubits, dtype=complex)
+    v[0] = v[-1] = SQRT_HALF
+    return v
+
+
+def w_state(n_qubits: int) -> np.ndarray:
+    """(|10…0> + |01…0> + … + |0…01>)/√n: one excitation shared by n qubits."""
+    v = np.zeros(2 ** n_qubits, dtype=complex)
+    v[[2 ** k for k in range(n_qubits)]] = 1.0 / np.sqrt(n_qubits)
+    return v
+
+
+def named_state(name: str, n_qubits: int, right_circular: str = "H-iV") -> np.ndarray:
+    """The state a target name means on ``n_qubits`` qubits, as a normalised vector.
+
+    Parameters
+    ----------
+    name : str
+        A product label of built-in single-qubit labels (``"HV"``, ``"+i 0"``;
+        `split_label`), ``phi+``, ``phi-``, ``psi+``, ``psi-`` (two qubits),
+        ``GHZ`` or ``W`` (three qubits or more). Names are case-sensitive.
+    n_qubits : int
+    right_circular : {"H-iV", "H+iV"}
+        Meaning of the labels R and L.
+
+    Raises
+    ------
+    ValueError
+        For an unknown name, a name that does not fit the number of qubits, or
+        a product label with the wrong number of parts; the message says what
+        to write instead (the reader adds the file and key).
+    """
+    if not isinstance(name, str):
+        raise ValueError(f"a target state name must be text, got {type(name).__name__}; "
+                         + _STATE_HELP)
+    if name in BELL_STATES:
+        if n_qubits != 2:
+            raise ValueError(f"{name!r} is a two-qubit Bell state but the experiment has "
+                             f"{n_qubits} qubit(s)"
+                             + ("; use GHZ or W, or a product label" if n_qubits >= 3
+                                else "; use a single-qubit label such as H or D"))
+        return bell_state(name)
+    if name in MANY_QUBIT_STATES:
+        if n_qubits < 3:
+            raise ValueError(f"{name!r} is defined here for three qubits or more but the "
+                             f"experiment has {n_qubits}"
+                             + ("; for two qubits use a Bell state (phi+ is (HH + VV)/√2)"
+                                if n_qubits == 2 else ""))
+        return ghz_state(n_qubits) if name == "GHZ" else w_state(n_qubits)
+    states = builtin_states(right_circular)
+    lowered = {s.lower(): s for s in NAMED_STATES}
+    try:
+        parts = split_label(name, n_qubits, states)
+    except ValueError as exc:
+        near = lowered.get(name.strip().lower())
+        hint = f" (names are case-sensitive: did you mean {near!r}?)" if near else ""
+        raise ValueError(f"target state {name!r}: {exc}{hint}; {_STATE_HELP}") from None
+    return kron_all([states[p][:, None] for p in parts])[:, 0]
 
 
 # --------------------------------------------------------------------------

@@ -71,20 +71,41 @@ class Figure:
         return float(self.value)
 
 
-def parameter_range(name: str, dim: int):
-    """The values the true figure ``name`` can take for a CPTP process on ``dim`` dimensions.
+def parameter_range(name: str, dim: int, kind: str = "process"):
+    """The values the true figure ``name`` can take for a CPTP process on ``dim`` dimensions
+    (or, with ``kind="state"``, for a state on ``dim`` dimensions).
 
     ``None`` for a figure without a known range. Fidelities, the trace,
     the unitarity and the concurrence lie in [0, 1]; the purity Tr J²/d² in
     [1/d², 1]; the smallest eigenvalue of a Choi matrix (trace d, d²
-    eigenvalues) in [0, 1/d]; a diamond distance in [0, 2].
+    eigenvalues) in [0, 1/d]; a diamond distance in [0, 2]. For a state
+    (`state_parameter_range`): the purity in [1/d, 1], the von Neumann entropy
+    in [0, log₂ d] bits, the negativities in [0, 1/2], the log-negativity in
+    [0, 1], ``chsh_max`` in [0, 2√2] (Cirel'son, Lett. Math. Phys. 4, 93
+    (1980)), the other state figures in [0, 1].
     """
+    if kind == "state":
+        return state_parameter_range(name, dim)
     unit = (0.0, 1.0)
     ranges = {"process_fidelity": unit, "average_gate_fidelity": unit, "trace": unit,
               "purity": (1.0 / dim**2, 1.0), "min_eigenvalue": (0.0, 1.0 / dim),
               "unitarity": unit, "nearest_unitary_fidelity": unit,
               "process_fidelity_local_phases": unit, "truth_table_fidelity": unit,
               "concurrence": unit, "diamond_distance": (0.0, 2.0)}
+    return ranges.get(name)
+
+
+def state_parameter_range(name: str, dim: int):
+    """The values the true state figure ``name`` can take for a state on ``dim``
+    dimensions (`parameter_range`); None for an unknown name."""
+    unit = (0.0, 1.0)
+    if name.startswith("negativity_"):
+        return (0.0, 0.5)                   # one qubit against the rest: (2 − 1)/2 at most
+    ranges = {"state_fidelity": unit, "purity": (1.0 / dim, 1.0),
+              "von_neumann_entropy": (0.0, math.log2(dim)), "linear_entropy": unit,
+              "concurrence": unit, "tangle": unit, "entanglement_of_formation": unit,
+              "negativity": (0.0, 0.5), "log_negativity": unit,
+              "chsh_max": (0.0, 2.0 * math.sqrt(2.0))}
     return ranges.get(name)
 
 

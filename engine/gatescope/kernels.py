@@ -549,3 +549,35 @@ def tangent_project_numpy(z, x):
     """NumPy twin of :func:`tangent_project`."""
     a = x @ z.conj().T
     return x - 0.5 * (a + a.conj().T) @ z
+@njit(cache=True)
+def project_density_kernel(x):
+    """Euclidean projection of a Hermitian matrix onto density matrices: the eigenvalues
+    projected onto the probability simplex, the eigenvectors kept.
+
+    Twin: `gatescope.projection.project_density_numpy` (the definition is there).
+    Returns the Hermitian density matrix.
+    """
+    d = x.shape[0]
+    w, v = np.linalg.eigh(x)
+    # eigh returns increasing eigenvalues: walk them in decreasing order for the threshold
+    css = 0.0
+    theta = 0.0
+    for i in range(d):
+        css += w[d - 1 - i]
+        t = (css - 1.0) / (i + 1)
+        if w[d - 1 - i] - t > 0.0:
+            theta = t
+    rho = np.zeros((d, d), dtype=np.complex128)
+    for k in range(d):
+        mu = w[k] - theta
+        if mu <= 0.0:
+            continue
+        for a in range(d):
+            va = mu * v[a, k]
+            for b in range(a, d):
+                rho[a, b] += va * np.conj(v[b, k])
+    for a in range(d):
+        rho[a, a] = rho[a, a].real
+        for b in range(a + 1, d):
+            rho[b, a] = np.conj(rho[a, b])
+    return rho

@@ -1,4 +1,5 @@
-"""The main job as one function: `fit` turns an `Experiment` into a `Result`.
+"""The main job as one function: `fit` turns an `Experiment` into a `Result`, for a
+process or a state experiment alike.
 
 Data flow, one module a step: the experiment (`reader`) → its measurement
 model (`model`) → the estimate (`estimators`) → figures of merit (`merit`)
@@ -9,15 +10,19 @@ model (`model`) → the estimate (`estimators`) → figures of merit (`merit`)
 from __future__ import annotations
 
 import time
+import warnings
+
+import numpy as np
 
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
 from .diagnostics import diagnostics, warn_if_poor_fit
+from .errors import GatescopeWarning
 from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL
-from .merit import compute_figures
-from .model import MeasurementModel
+from .merit import chsh_gap_warning, compute_figures
+from .model import build_model
 from .options import flag, fraction, whole
 from .provenance import provenance
 from .reader import Experiment
@@ -48,12 +53,14 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         bootstrap_kind: str = "parametric", ci_level: float = 0.95, seed: int | None = None,
         workers: int | None = None, progress: bool = False, command_line: str | None = None,
         diamond: bool = False, interval: str | None = None, **options) -> Result:
-    """Reconstruct the process of an experiment and compute its figures of merit.
+    """Reconstruct the process (or the state) of an experiment and compute its figures of
+    merit.
 
     Parameters
     ----------
     experiment : Experiment
-        From :func:`gatescope.read_experiment`.
+        From :func:`gatescope.read_experiment`; a process or a state experiment
+        (``experiment.kind``).
     method : {"mle", "mle-pg", "pls", "lin"}
         The estimator (see :mod:`gatescope.estimators`).
     bootstrap : int
@@ -77,7 +84,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         without it). Off by default: it adds about 1 s to a two-qubit fit
         (mostly loading cvxpy; the fit itself takes a fraction of a
         second), about 2 s for a trace-decreasing estimate, and 2 s of
-        solving from three qubits on. Not bootstrapped.
+        solving from three qubits on. Not bootstrapped. A state has no
+        diamond distance: for a state experiment a `GatescopeWarning` says so.
     **options
         Passed to the estimator (``tol``, ``maxiter``, ...).
 
@@ -97,14 +105,19 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                       options=options)
     started = time.time()
     t0 = time.perf_counter()
-    model = MeasurementModel(experiment)
+    model = build_model(experiment)
     ident = model.warn_if_undetermined()
     point = estimate(model, method, **options)
     details = {}
-    values = compute_figures(point.choi, experiment.target, diamond=diamond, details=details)
+    target = experiment.target_state if model.kind == "state" else experiment.target
+    if diamond and model.kind == "state":
+        warnings.warn("diamond distance skipped: it is a figure of processes, and this is a "
+                      "state experiment", GatescopeWarning, stacklevel=2)
+    values = compute_figures(point.choi, target, diamond=diamond, details=details,
+                             kind=model.kind)
     boot = None
     if bootstrap:
-        boot, seed = run_bootstrap(model, point, experiment.target, samples=bootstrap,
+        boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
@@ -122,4 +135,9 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                           diagnostics=diag, provenance=prov)
     if boot is not None:
         result.attach_bootstrap(boot, ci_level)
+        if "chsh_max" in boot.names:
+            values = boot.figures[:, boot.names.index("chsh_max")]
+            text = chsh_gap_warning(details, float(np.nanstd(values, ddof=1)))
+            if text:
+                warnings.warn(text, GatescopeWarning, stacklevel=2)
     return result

@@ -1,6 +1,7 @@
-"""Euclidean projection onto the CPTP set {J ⪰ 0, Tr_out J = I}.
+"""Euclidean projections onto the physical sets: CPTP maps {J ⪰ 0, Tr_out J = I}, trace
+non-increasing CP maps, and density matrices (`project_density`, at the end).
 
-We solve the dual problem. For a Hermitian X, the projection
+For CPTP maps we solve the dual problem. For a Hermitian X, the projection
 ``argmin ½‖J − X‖_F²  s.t.  J ⪰ 0, Tr_out J = I`` is ``J(Y) = [X + Y ⊗ I]_+``
 (positive part), where the Hermitian multiplier Y (d × d, acting on the
 input factor) maximises the concave, once-differentiable dual
@@ -336,10 +337,79 @@ def project_cptni(x: np.ndarray, *, tol: float = 1e-12, maxiter: int = 20000) ->
                       tp_residual=excess, converged=bool(change <= tol * max(1.0, np.linalg.norm(j))))
 
 
+# --------------------------------------------------------------------------
+# Density matrices: {ρ ⪰ 0, Tr ρ = 1}
+# --------------------------------------------------------------------------
+
+def project_simplex(v: np.ndarray, total: float = 1.0) -> np.ndarray:
+    """Euclidean projection of a real vector onto {x ≥ 0, Σ x = total}.
+
+    Sort-based algorithm (Held, Wolfe & Crowder, Math. Program. 6, 62
+    (1974); Duchi, Shalev-Shwartz, Singer & Chandra, ICML 2008; Condat,
+    Math. Program. 158, 575 (2016)): with u the entries in decreasing order,
+    the threshold is θ = (Σ_{i≤r} u_i − total)/r for the largest r with
+    u_r > θ_r, and x = max(v − θ, 0).
+    """
+    v = np.asarray(v, dtype=float)
+    u = np.sort(v)[::-1]
+    css = np.cumsum(u) - total
+    idx = np.arange(1, u.size + 1)
+    r = int(np.nonzero(u - css / idx > 0)[0][-1]) + 1
+    theta = css[r - 1] / r
+    return np.maximum(v - theta, 0.0)
+
+
+#: Up to this d the density projection runs in the compiled kernel; above it the NumPy
+#: twin, whose BLAS products win from about d = 64 (benchmarks/README.md, "States").
+DENSITY_KERNEL_MAX_DIM = 32
+
+
+def project_density_numpy(x: np.ndarray) -> np.ndarray:
+    """The projection of `project_density` in NumPy (the twin of
+    `gatescope.kernels.project_density_kernel`, and the path from d = 64): the
+    Hermitian density matrix nearest to the Hermitian part of ``x``."""
+    x = np.asarray(x, dtype=complex)
+    w, v = np.linalg.eigh(0.5 * (x + x.conj().T))
+    mu = project_simplex(w)
+    keep = mu > 0
+    vk = v[:, keep]
+    rho = (vk * mu[keep]) @ vk.conj().T
+    return 0.5 * (rho + rho.conj().T)
+
+
+def project_density(x: np.ndarray) -> Projection:
+    """Exact Euclidean (Frobenius) projection of a matrix onto density matrices.
+
+    The Hermitian part X = V diag(λ) V† is projected to V diag(μ) V†, μ the
+    Euclidean projection of λ onto the probability simplex (`project_simplex`).
+    This is the projection onto {ρ ⪰ 0, Tr ρ = 1}: the set is unitarily
+    invariant, so its nearest point shares X's eigenvectors, and the distance
+    then reduces to that of the eigenvalue vectors (the same step as in
+    Smolin, Gambetta & Smith, Phys. Rev. Lett. 108, 070502 (2012)). One
+    Hermitian eigen-decomposition; exact up to rounding. The compiled kernel
+    up to `DENSITY_KERNEL_MAX_DIM`, its NumPy twin above.
+
+    Returns a `Projection` whose ``choi`` is the density matrix, ``multiplier``
+    None, ``iterations`` 1, ``tp_residual`` |Tr ρ − 1| (rounding) and
+    ``converged`` True.
+    """
+    x = np.asarray(x, dtype=complex)
+    if x.shape[0] <= DENSITY_KERNEL_MAX_DIM:
+        rho = kernels.project_density_kernel(np.ascontiguousarray(0.5 * (x + x.conj().T)))
+    else:
+        rho = project_density_numpy(x)
+    return Projection(choi=rho, multiplier=None, iterations=1,
+                      tp_residual=float(abs(np.trace(rho).real - 1.0)), converged=True)
+
+
 def project_physical(model, x: np.ndarray, *, multiplier=None,
                      tol: float = 1e-12, maxiter: int = 100):
-    """Euclidean projection onto the model's physical set: CPTP maps, or completely
-    positive trace non-increasing maps for ``trace = "decreasing"``."""
+    """Euclidean projection onto the model's physical set: CPTP maps, completely
+    positive trace non-increasing maps for ``trace = "decreasing"``, density matrices
+    for a state model (``model.kind == "state"``; exact in one step, so ``multiplier``,
+    ``tol`` and ``maxiter`` do not apply)."""
+    if model.kind == "state":
+        return project_density(x)
     if model.trace_decreasing:
         return project_cptni(x, tol=tol)
     return project_cptp(x, multiplier=multiplier, tol=tol, maxiter=maxiter)

@@ -10,18 +10,29 @@ import datetime as _dt
 import platform
 import socket
 import sys
+from functools import lru_cache
 from importlib import metadata
 
 #: The core dependencies whose versions every result records.
 DEPENDENCIES = ("numpy", "scipy", "numba", "h5py", "tqdm")
 
 
+@lru_cache(maxsize=None)
 def version(dist: str) -> str:
-    """Installed version of a distribution, or "not installed"."""
+    """Installed version of a distribution, or "not installed".
+
+    Cached: reading a distribution's metadata takes milliseconds (a file is
+    parsed each time), and a batch or a bench records it for every result.
+    """
     try:
         return metadata.version(dist)
     except metadata.PackageNotFoundError:
         return "not installed"
+
+
+@lru_cache(maxsize=1)
+def _platform() -> str:
+    return platform.platform()
 
 
 def provenance(*, seed=None, command_line=None, started: float, wall: float) -> dict:
@@ -47,7 +58,7 @@ def provenance(*, seed=None, command_line=None, started: float, wall: float) -> 
         "end_utc": _dt.datetime.fromtimestamp(started + wall, utc).isoformat(),
         "wall_seconds": float(wall),
         "host": socket.gethostname(),
-        "platform": platform.platform(),
+        "platform": _platform(),
         "python": sys.version.split()[0],
     }
     for dep in DEPENDENCIES:

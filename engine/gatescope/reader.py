@@ -21,17 +21,30 @@ import numpy as np
 
 from .conventions import (
     BUILTIN_LABELS, GATE_NAMES, RIGHT_CIRCULAR_CHOICES, bloch_density, builtin_states,
-    check_unitary, density, kron_all, named_gate, split_label, wave_plate,
+    check_unitary, density, kron_all, named_gate, named_state, split_label, wave_plate,
 )
 from .errors import InputError
 
 NORMALIZATIONS = ("per-preparation", "global", "per-group")
 TRACE_KINDS = ("preserving", "decreasing")
 TOP_KEYS = ("title", "qubits", "target", "counts", "normalization", "trace",
-            "input_rate", "conventions", "states", "conditions")
+            "input_rate", "conventions", "states", "conditions", "kind", "target_state")
 REQUIRED_COLUMNS = ("prep", "meas", "counts")
 OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
 MAX_QUBITS = 6
+#: What an experiment characterises: a process (prepared inputs, analysed outputs) or a
+#: state (analysed only; its counts file has no prep column).
+KINDS = ("process", "state")
+STATE_REQUIRED_COLUMNS = ("meas", "counts")
+#: Keys of a process experiment that a state experiment may not have, and why.
+PROCESS_ONLY_KEYS = {
+    "target": "a state experiment names its target with target_state",
+    "trace": "a state has trace 1: trace is a key of process experiments",
+    "input_rate": "input_rate belongs to lossy processes (trace = \"decreasing\")",
+}
+#: A user's target density matrix may deviate from Hermiticity, unit trace and
+#: positivity by this much (it is typed or saved to a few digits).
+TARGET_STATE_TOLERANCE = 1e-6
 #: Longest text of a condition's value (and name): a label for a table column, not a notebook.
 MAX_CONDITION_TEXT = 200
 
@@ -51,6 +64,15 @@ class Experiment:
     ``meas_effects[meas_index[k]]``; its model is (docs/file-formats.md, "Input"):
     ``E[counts_k] = λ_g · seconds_k · efficiency_k · Tr[(ρ^T ⊗ E) J] +
     background_k`` with g = ``group_index[k]``.
+
+    A state experiment (``kind == "state"``) has no preparations: its row
+    model is ``λ_g · seconds_k · efficiency_k · Tr(E ρ) + background_k``;
+    ``prep``, ``prep_labels`` are empty and ``prep_states``, ``prep_parts``,
+    ``single_prep_states``, ``prep_index`` None, and so is ``meas_effects``
+    (a six-qubit experiment has 46,656 settings of 64 × 64: the effect of
+    setting m is the product of ``single_meas_effects[meas_parts[m, k]]``).
+    Its target is ``target_state`` (a normalised ket, or a density matrix) named
+    ``target_state_name``; ``target`` is None.
     """
 
     path: Path
@@ -90,6 +112,9 @@ class Experiment:
     custom_states: tuple[str, ...] = field(default=())
     #: the ``[conditions]`` table: name → int, float or str, in the file's order
     conditions: dict = field(default_factory=dict)
+    kind: str = "process"
+    target_state: np.ndarray | None = None
+    target_state_name: str | None = None
 
     @property
     def dim(self) -> int:
@@ -231,6 +256,67 @@ def _read_target(raw, n_qubits: int, toml: _Toml, base: Path):
     return name, _frozen(u)
 
 
+def _read_target_state(raw, n_qubits: int, right_circular: str, toml: _Toml, base: Path):
+    """(name, normalised ket or density matrix) of the ``target_state`` key."""
+    d = 2 ** n_qubits
+    if isinstance(raw, str):
+        try:
+            return raw, _frozen(named_state(raw, n_qubits, right_circular))
+        except ValueError as exc:
+            raise toml.error("target_state", str(exc)) from None
+    if not isinstance(raw, dict) or len(raw) != 1 or not set(raw) <= {"vector", "density"}:
+        extra = sorted(set(raw) - {"vector", "density"}) if isinstance(raw, dict) else []
+        where = f"target_state.{extra[0]}" if extra else "target_state"
+        raise toml.error(where, "expected a state name, { vector = [...] } or "
+                                "{ density = \"rho.npy\" }")
+    if "vector" in raw:
+        where = "target_state.vector"
+        values = raw["vector"]
+        if not isinstance(values, list):
+            raise toml.error(where, "expected a list of amplitudes")
+        v = np.array([_parse_complex(x, where, toml) for x in values], dtype=complex)
+        if v.size != d:
+            raise toml.error(where, f"the vector has {v.size} entries; {n_qubits} qubit(s) need "
+                                    f"{d} (amplitudes of |0…0>, |0…01>, …, qubit 1 most "
+                                    f"significant)")
+        norm = np.linalg.norm(v)
+        if norm == 0:
+            raise toml.error(where, "the zero vector is not a state")
+        return "user vector", _frozen(v / norm)
+    where = "target_state.density"
+    spec = raw["density"]
+    if not isinstance(spec, str):
+        raise toml.error(where, "expected the name of a .npy file")
+    mpath = base / spec
+    try:
+        m = np.load(mpath, allow_pickle=False)
+    except FileNotFoundError:
+        raise toml.error(where, f"file not found: {mpath}") from None
+    except Exception as exc:  # numpy raises several kinds for a bad file
+        raise toml.error(where, f"cannot read {mpath} as a .npy array: {exc}") from None
+    if m.shape != (d, d) or m.dtype.kind not in "iufc":
+        raise toml.error(where, f"the density matrix in {spec} has shape {m.shape} "
+                                f"({m.dtype}); {n_qubits} qubit(s) need a {d} × {d} numeric array")
+    m = m.astype(complex)
+    tol = TARGET_STATE_TOLERANCE
+    if not np.all(np.isfinite(m)):
+        raise toml.error(where, f"the density matrix in {spec} has an entry that is not finite")
+    asym = float(np.abs(m - m.conj().T).max())
+    if asym > tol:
+        raise toml.error(where, f"the matrix in {spec} is not Hermitian (largest |ρ − ρ†| "
+                                f"entry {asym:.3g} > {tol:g})")
+    m = 0.5 * (m + m.conj().T)
+    trace = float(np.trace(m).real)
+    if abs(trace - 1.0) > tol:
+        raise toml.error(where, f"the matrix in {spec} has trace {trace:.6g}; a density "
+                                f"matrix has trace 1")
+    low = float(np.linalg.eigvalsh(m)[0])
+    if low < -tol:
+        raise toml.error(where, f"the matrix in {spec} has a negative eigenvalue ({low:.3g}); "
+                                f"a density matrix is positive semidefinite")
+    return f"density matrix from {spec}", _frozen(m)
+
+
 PLATE_KINDS = {"half": 180.0, "quarter": 90.0}
 
 
@@ -349,9 +435,23 @@ def read_experiment(path) -> Experiment:
     if not 1 <= n_qubits <= MAX_QUBITS:
         raise toml.error("qubits", f"must lie in 1..{MAX_QUBITS}, got {n_qubits}")
 
-    normalization = data.get("normalization", "per-preparation")
+    kind = data.get("kind", "process")
+    if kind not in KINDS:
+        raise toml.error("kind", f"{kind!r} is not one of {', '.join(map(repr, KINDS))}")
+    if kind == "state":
+        for key, why in PROCESS_ONLY_KEYS.items():
+            if key in data:
+                raise toml.error(key, f"not a key of a state experiment (kind = \"state\"): {why}")
+    elif "target_state" in data:
+        raise toml.error("target_state", "target_state is the target of a state experiment "
+                                         "(kind = \"state\"); a process names its gate with target")
+
+    normalization = data.get("normalization", "per-preparation" if kind == "process" else "global")
     if normalization not in NORMALIZATIONS:
         raise toml.error("normalization", f"{normalization!r} is not one of {', '.join(NORMALIZATIONS)}")
+    if kind == "state" and normalization == "per-preparation":
+        raise toml.error("normalization", "a state experiment has no preparations: use \"global\" "
+                                          "(the default for states) or \"per-group\"")
     trace = data.get("trace", "preserving")
     if trace not in TRACE_KINDS:
         raise toml.error("trace", f"{trace!r} is not one of {', '.join(TRACE_KINDS)}")
@@ -380,6 +480,11 @@ def read_experiment(path) -> Experiment:
     if "target" in data:
         target_name, target = _read_target(data["target"], n_qubits, toml, path.parent)
 
+    target_state_name, target_state = (None, None)
+    if "target_state" in data:
+        target_state_name, target_state = _read_target_state(
+            data["target_state"], n_qubits, right_circular, toml, path.parent)
+
     custom = _read_custom_states(data.get("states", {}), toml)
 
     conditions = _read_conditions(data.get("conditions", {}), toml)
@@ -388,14 +493,15 @@ def read_experiment(path) -> Experiment:
     if not isinstance(counts_name, str) or not counts_name.strip():
         raise toml.error("counts", "expected the CSV file name as a string")
     counts_path = path.parent / counts_name
-    table = _read_counts(counts_path, n_qubits, right_circular, custom, normalization)
+    table = _read_counts(counts_path, n_qubits, right_circular, custom, normalization, kind)
 
     return Experiment(
         path=path, counts_path=counts_path, title=title, n_qubits=n_qubits,
         target_name=target_name, target=target, normalization=normalization,
         trace=trace, input_rate=input_rate, right_circular=right_circular,
         toml_text=text, toml_sha256=_sha256(raw_bytes), custom_states=tuple(custom),
-        conditions=conditions, **table,
+        conditions=conditions, kind=kind, target_state=target_state,
+        target_state_name=target_state_name, **table,
     )
 
 
@@ -527,8 +633,9 @@ def _state_tables(n_qubits, right_circular, custom):
 
 
 def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: dict,
-                 normalization: str) -> dict:
+                 normalization: str, kind: str = "process") -> dict:
     file = str(counts_path)
+    is_state = kind == "state"
     try:
         raw = counts_path.read_bytes()
     except FileNotFoundError:
@@ -559,9 +666,17 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
     for col in set(header):
         if header.count(col) > 1:
             raise InputError(f"column {col!r} appears twice", file=file, line=header_line)
-    for col in REQUIRED_COLUMNS:
+    if is_state and "prep" in header:
+        raise InputError("column 'prep': a state experiment (kind = \"state\") has no "
+                         "preparations; remove the column, or describe a process", file=file,
+                         line=header_line)
+    required = STATE_REQUIRED_COLUMNS if is_state else REQUIRED_COLUMNS
+    for col in required:
         if col not in header:
-            raise InputError(f"missing required column {col!r}", file=file, line=header_line)
+            hint = (" (the counts of a state, analysed only, go with kind = \"state\" in the "
+                    "experiment file)" if col == "prep" else "")
+            raise InputError(f"missing required column {col!r}{hint}", file=file,
+                             line=header_line)
     if normalization == "per-group" and "group" not in header:
         raise InputError("normalization = \"per-group\" needs a 'group' column",
                          file=file, line=header_line)
@@ -590,9 +705,10 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
             parsed[column][label] = parts
         idx = settings.get(parts)
         if idx is None:
-            idx = len(mats)
+            idx = len(names)
             settings[parts] = idx
-            mats.append(kron_all(table[p] for p in parts))
+            if not is_state:          # a state's effects stay in product form (Experiment)
+                mats.append(kron_all(table[p] for p in parts))
             names.append(" ".join(parts))
             index = single_index[column]
             part_rows[column].append([index.setdefault(p, len(index)) for p in parts])
@@ -606,11 +722,12 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         if len(cells) != len(header):
             raise InputError(f"expected {len(header)} cells, found {len(cells)}", file=file, line=line)
         cells = [c.strip() for c in cells]
-        for col in REQUIRED_COLUMNS:
+        for col in required:
             if not cells[pos[col]]:
                 raise InputError(f"empty cell in required column '{col}'", file=file, line=line)
-        prep_index.append(setting(cells[pos["prep"]], prep_settings, prep_mats, prep_names,
-                                  prep_1q, line, "prep"))
+        if not is_state:
+            prep_index.append(setting(cells[pos["prep"]], prep_settings, prep_mats, prep_names,
+                                      prep_1q, line, "prep"))
         meas_index.append(setting(cells[pos["meas"]], meas_settings, meas_mats, meas_names,
                                   meas_1q, line, "meas"))
         for col in header:
@@ -649,6 +766,10 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         names = sorted(single_index[column], key=single_index[column].get)
         return _frozen(np.array([table[nm] for nm in names]))
 
+    prep_columns = {}
+    if is_state:
+        prep_columns = dict(single_prep_states=None, prep_parts=None, prep_labels=(),
+                            prep_states=None, prep=(), prep_index=None, meas_effects=None)
     return dict(
         single_prep_states=singles("prep", prep_1q),
         prep_parts=_frozen(np.array(part_rows["prep"], dtype=np.int64)),
@@ -656,7 +777,7 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         meas_parts=_frozen(np.array(part_rows["meas"], dtype=np.int64)),
         prep_labels=tuple(prep_names), meas_labels=tuple(meas_names),
         prep_states=_frozen(np.array(prep_mats)), meas_effects=_frozen(np.array(meas_mats)),
-        prep=tuple(cols["prep"]), meas=tuple(cols["meas"]),
+        prep=tuple(cols.get("prep", ())), meas=tuple(cols["meas"]),
         prep_index=_frozen(prep_index), meas_index=_frozen(np.array(meas_index, dtype=np.int64)),
         counts=_frozen(np.array(cols["counts"], dtype=np.int64)),
         seconds=_frozen(np.array(cols["seconds"], dtype=float) if "seconds" in cols else ones),
@@ -666,4 +787,4 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         group=tuple(cols["group"]) if "group" in cols else None,
         group_index=_frozen(group_index), group_names=group_names,
         columns=tuple(header), csv_sha256=_sha256(raw),
-    )
+    ) | prep_columns

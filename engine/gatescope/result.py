@@ -29,7 +29,9 @@ class Result:
 
     Attributes
     ----------
-    choi, chi, ptm : arrays in the conventions of the README ("Conventions")
+    choi, chi, ptm : arrays in the conventions of the README ("Conventions");
+        None for a state
+    rho : the density matrix of a state (``kind == "state"``), else None
     figures : dict name → Figure
     method, converged, iterations, log_likelihood, stop_reason, seconds :
         the estimator's report (`gatescope.estimators.Fit`)
@@ -39,8 +41,13 @@ class Result:
     experiment_toml, toml_sha256, csv_sha256 : the input files
     counts_columns : dict column → array, the CSV as read (plus
         ``prep_index`` and ``meas_index``)
-    prep_states, meas_effects : the model's density matrices and effects
-    target : the target unitary or None; target_name its name
+    prep_states, meas_effects : the model's density matrices and effects (None for
+        a state)
+    single_meas_effects, meas_parts : a state's analyser effects in product form:
+        setting m measures ⊗_k single_meas_effects[meas_parts[m, k]] (None for
+        a process)
+    target : the target unitary or None; target_name its name. For a state the
+        target state (a normalised ket or a density matrix) or None
     bootstrap : Bootstrap or None
     figure_details : dict of what belongs to the figures but is not one
         number (`gatescope.merit.compute_figures`): arrays such as
@@ -51,6 +58,7 @@ class Result:
         test and so no diagnostics
     conditions : the experiment's ``[conditions]`` (name → int, float or
         str), stored as the attributes of /conditions
+    kind : "process" or "state" (`gatescope.reader.KINDS`)
     """
 
     choi: np.ndarray
@@ -79,6 +87,17 @@ class Result:
     figure_details: dict = field(default_factory=dict)
     origin: str = "fit"
     conditions: dict = field(default_factory=dict)
+    kind: str = "process"
+    rho: np.ndarray | None = None
+    single_meas_effects: np.ndarray | None = None
+    meas_parts: np.ndarray | None = None
+
+    @property
+    def dim(self) -> int:
+        """d, the dimension of the qubits' Hilbert space (2^n)."""
+        if self.kind == "state":
+            return int(np.asarray(self.rho).shape[0])
+        return dim_of_choi(np.asarray(self.choi))
 
     def save(self, path) -> Path:
         """Write the result file (docs/file-formats.md) to ``path`` atomically; returns the path."""
@@ -92,28 +111,32 @@ class Result:
         true figure can take (`gatescope.intervals.parameter_range`).
         """
         fraction(ci_level, "ci_level")
-        dim = dim_of_choi(np.asarray(self.choi))
+        dim = self.dim
         for k, name in enumerate(boot.names):
             fig = self.figures.get(name)
             if fig is None:
                 continue
             fig.ci = interval(boot.figures[:, k], fig.value, ci_level, boot.interval,
-                              parameter_range(name, dim))
+                              parameter_range(name, dim, self.kind))
             fig.level = float(ci_level)
         self.bootstrap = boot
 
 
 
 def counts_columns(exp: Experiment) -> dict:
-    """The CSV columns as read, plus each row's ``prep_index`` and ``meas_index``."""
+    """The CSV columns as read, plus each row's ``prep_index`` and ``meas_index`` (a state
+    has neither ``prep`` nor ``prep_index``)."""
     cols = {"prep": np.array(exp.prep, dtype=object), "meas": np.array(exp.meas, dtype=object),
             "counts": np.asarray(exp.counts, dtype=np.int64)}
+    if exp.kind == "state":
+        del cols["prep"]
     for name in ("seconds", "background", "efficiency"):
         if name in exp.columns:
             cols[name] = np.asarray(getattr(exp, name), dtype=np.float64)
     if exp.group is not None:
         cols["group"] = np.array(exp.group, dtype=object)
-    cols["prep_index"] = np.asarray(exp.prep_index, dtype=np.int64)
+    if exp.kind != "state":
+        cols["prep_index"] = np.asarray(exp.prep_index, dtype=np.int64)
     cols["meas_index"] = np.asarray(exp.meas_index, dtype=np.int64)
     return cols
 
@@ -126,19 +149,28 @@ def build_result(exp: Experiment, choi: np.ndarray, figures: dict, details: dict
 
     ``figures`` are the values of `gatescope.merit.compute_figures` for
     ``choi`` and ``details`` what it put beside them; chi and the Pauli
-    transfer matrix are computed here.
+    transfer matrix are computed here. For a state experiment
+    (``exp.kind == "state"``) ``choi`` is the density matrix, stored as ``rho``.
     """
+    if exp.kind == "state":
+        estimate = dict(choi=None, chi=None, ptm=None, rho=choi, kind="state",
+                        prep_states=None, meas_effects=None,
+                        single_meas_effects=np.asarray(exp.single_meas_effects),
+                        meas_parts=np.asarray(exp.meas_parts), target=exp.target_state,
+                        target_name=exp.target_state_name)
+    else:
+        estimate = dict(choi=choi, chi=choi_to_chi(choi), ptm=choi_to_ptm(choi),
+                        prep_states=np.asarray(exp.prep_states),
+                        meas_effects=np.asarray(exp.meas_effects), target=exp.target,
+                        target_name=exp.target_name)
     return Result(
-        choi=choi, chi=choi_to_chi(choi), ptm=choi_to_ptm(choi),
         figures={k: Figure(v) for k, v in figures.items()},
         method=method, converged=converged, iterations=iterations,
         log_likelihood=log_likelihood, stop_reason=stop_reason, seconds=seconds,
         intensities=np.asarray(intensities, dtype=float), diagnostics=diagnostics,
         provenance=provenance, experiment_toml=exp.toml_text, toml_sha256=exp.toml_sha256,
         csv_sha256=exp.csv_sha256, counts_columns=counts_columns(exp),
-        prep_states=np.asarray(exp.prep_states), meas_effects=np.asarray(exp.meas_effects),
-        target=exp.target, target_name=exp.target_name, figure_details=details, origin=origin,
-        conditions=dict(exp.conditions),
+        figure_details=details, origin=origin, conditions=dict(exp.conditions), **estimate,
     )
 
 

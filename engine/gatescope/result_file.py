@@ -23,7 +23,7 @@ from .diagnostics import Diagnostics
 from .errors import InputError
 from .fileio import atomic_path
 from .intervals import Figure
-from .merit import FIGURE_NAMES
+from .merit import FIGURE_NAMES, STATE_FIGURE_ORDER
 
 FORMAT = "gatescope.result"
 FORMAT_VERSION = 1
@@ -64,6 +64,7 @@ def _write(f: h5py.File, r) -> None:
     f.attrs["format_version"] = FORMAT_VERSION
     f.attrs["created_utc"] = r.created_utc
     f.attrs["origin"] = r.origin
+    f.attrs["kind"] = r.kind
 
     inp = f.create_group("input")
     ds = inp.create_dataset("experiment_toml", data=r.experiment_toml, dtype=_STR)
@@ -75,16 +76,22 @@ def _write(f: h5py.File, r) -> None:
         _put(counts, name, values)
 
     model = f.create_group("model")
-    _put(model, "prep_states", np.asarray(r.prep_states, dtype=np.complex128))
-    _put(model, "meas_effects", np.asarray(r.meas_effects, dtype=np.complex128))
-    if r.target is not None:
+    if r.kind == "state":
+        _write_state_model(model, r)
+    else:
+        _put(model, "prep_states", np.asarray(r.prep_states, dtype=np.complex128))
+        _put(model, "meas_effects", np.asarray(r.meas_effects, dtype=np.complex128))
+    if r.target is not None and r.kind != "state":
         t = model.create_dataset("target_unitary", data=np.asarray(r.target, dtype=np.complex128))
         t.attrs["name"] = r.target_name or ""
 
     est = f.create_group("estimate")
-    est.create_dataset("choi", data=np.asarray(r.choi, dtype=np.complex128))
-    est.create_dataset("chi", data=np.asarray(r.chi, dtype=np.complex128))
-    est.create_dataset("ptm", data=np.asarray(r.ptm, dtype=np.float64))
+    if r.kind == "state":
+        est.create_dataset("rho", data=np.asarray(r.rho, dtype=np.complex128))
+    else:
+        est.create_dataset("choi", data=np.asarray(r.choi, dtype=np.complex128))
+        est.create_dataset("chi", data=np.asarray(r.chi, dtype=np.complex128))
+        est.create_dataset("ptm", data=np.asarray(r.ptm, dtype=np.float64))
     est.create_dataset("intensities", data=np.asarray(r.intensities, dtype=np.float64))
     est.attrs["method"] = r.method
     est.attrs["converged"] = bool(r.converged)
@@ -123,7 +130,7 @@ def _write(f: h5py.File, r) -> None:
         if r.bootstrap.converged is not None:
             b.create_dataset("converged", data=np.asarray(r.bootstrap.converged, dtype=bool))
         for name, dtype in (("choi_std", np.complex128), ("chi_std", np.complex128),
-                            ("ptm_std", np.float64)):
+                            ("ptm_std", np.float64), ("rho_std", np.complex128)):
             value = getattr(r.bootstrap, name)
             if value is not None:
                 b.create_dataset(name, data=np.asarray(value, dtype=dtype))
@@ -166,6 +173,28 @@ def read_conditions(f: h5py.File) -> dict:
         return {}
     group = f["conditions"]
     return {name: _attr(group, name) for name in group.attrs}
+def _write_state_model(model, r) -> None:
+    """/model of a state: the single-qubit effects and every setting's parts (the dense
+    effects of a six-qubit experiment would take gigabytes), and the target state."""
+    _put(model, "single_meas_effects", np.asarray(r.single_meas_effects, dtype=np.complex128))
+    _put(model, "meas_parts", np.asarray(r.meas_parts, dtype=np.int64))
+    if r.target is not None:
+        t = model.create_dataset("target_state", data=np.asarray(r.target, dtype=np.complex128))
+        t.attrs["name"] = r.target_name or ""
+
+
+def _read_state_estimate(f) -> dict:
+    """The fields of `Result` that differ for a state: its estimate, and its model as
+    `_write_state_model` stored it."""
+    model = f["model"]
+    out = dict(single_meas_effects=model["single_meas_effects"][()],
+               meas_parts=model["meas_parts"][()], prep_states=None, meas_effects=None,
+               target=None, target_name=None, rho=f["estimate/rho"][()], choi=None, chi=None,
+               ptm=None)
+    if "target_state" in model:
+        out["target"] = model["target_state"][()]
+        out["target_name"] = _attr(model["target_state"], "name")
+    return out
 
 
 def _attr(obj, key, default=None):
@@ -205,6 +234,7 @@ def read(path) -> dict:
         if version != FORMAT_VERSION:
             raise InputError(f"format_version {version} is not supported (this reader: {FORMAT_VERSION})",
                              file=str(path), key="/format_version")
+        kind = _attr(f, "kind", "process")          # files without it hold a process
         counts = {}
         for name, ds in f["input/counts"].items():
             if h5py.check_string_dtype(ds.dtype) is not None:
@@ -213,7 +243,8 @@ def read(path) -> dict:
             else:
                 counts[name] = ds[()]
         figures = {}
-        order = {name: k for k, name in enumerate(FIGURE_NAMES)}
+        order = {name: k for k, name in enumerate(FIGURE_NAMES if kind == "process"
+                                                  else STATE_FIGURE_ORDER)}
         for name in sorted(f["figures"], key=lambda n: (order.get(n, len(order)), n)):
             ds = f["figures"][name]
             ci = None
@@ -229,7 +260,7 @@ def read(path) -> dict:
             names = tuple(s.decode("utf-8") if isinstance(s, bytes) else str(s)
                           for s in b["figures"].attrs["names"])
             optional = {name: (b[name][()] if name in b else None)
-                        for name in ("converged", "choi_std", "chi_std", "ptm_std")}
+                        for name in ("converged", "choi_std", "chi_std", "ptm_std", "rho_std")}
             boot = Bootstrap(b["figures"][()], names, _attr(b, "kind"), int(_attr(b, "seed")),
                              int(_attr(b, "samples")), int(_attr(b, "failures", 0)),
                              _attr(b, "interval", "percentile"), errors=int(_attr(b, "errors", 0)),
@@ -257,8 +288,13 @@ def read(path) -> dict:
             details = {name: extra[name][()] for name in extra}
             details.update({key: _attr(extra, key) for key in extra.attrs})
         prov = {k: _attr(f["provenance"], k) for k in f["provenance"].attrs}
-        return dict(
-            choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()], figures=figures,
+        estimate = (_read_state_estimate(f) if kind == "state" else
+                    dict(choi=est["choi"][()], chi=est["chi"][()], ptm=est["ptm"][()],
+                         prep_states=f["model/prep_states"][()],
+                         meas_effects=f["model/meas_effects"][()], target=target,
+                         target_name=target_name))
+        return estimate | dict(
+            figures=figures,
             method=_attr(est, "method"), converged=bool(_attr(est, "converged")),
             iterations=int(_attr(est, "iterations")), log_likelihood=float(_attr(est, "log_likelihood")),
             stop_reason=_attr(est, "stop_reason"), seconds=float(_attr(est, "seconds")),
@@ -266,8 +302,6 @@ def read(path) -> dict:
             experiment_toml=_text(f["input/experiment_toml"]),
             toml_sha256=_attr(f["input/experiment_toml"], "sha256"),
             csv_sha256=_attr(f["input/counts"], "sha256"), counts_columns=counts,
-            prep_states=f["model/prep_states"][()], meas_effects=f["model/meas_effects"][()],
-            target=target, target_name=target_name, bootstrap=boot,
-            created_utc=_attr(f, "created_utc"), figure_details=details, origin=origin,
-            conditions=read_conditions(f),
+            bootstrap=boot, created_utc=_attr(f, "created_utc"), figure_details=details,
+            origin=origin, kind=kind, conditions=read_conditions(f),
         )

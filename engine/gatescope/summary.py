@@ -1,4 +1,4 @@
-"""A compact terminal summary of a `Result` (the `show` command)."""
+"""A compact terminal summary of a `Result` (the `show` command), of a process or a state."""
 
 from __future__ import annotations
 
@@ -6,7 +6,6 @@ import tomllib
 
 import numpy as np
 
-from .channels import dim_of_choi
 from .conventions import n_qubits_of
 from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
 from .estimators import MAXIMUM_LIKELIHOOD
@@ -25,6 +24,21 @@ LABELS = {
     "concurrence": "concurrence of output",
     "diamond_distance": "diamond distance to target",
 }
+#: Labels of the state figures (``negativity_k`` is labelled by `_label`).
+STATE_LABELS = {
+    "state_fidelity": "state fidelity",
+    "purity": "purity (Tr ρ²)",
+    "von_neumann_entropy": "von Neumann entropy (bits)",
+    "linear_entropy": "linear entropy",
+    "concurrence": "concurrence",
+    "tangle": "tangle",
+    "entanglement_of_formation": "entanglement of formation",
+    "negativity": "negativity",
+    "log_negativity": "log-negativity",
+    "chsh_max": "largest CHSH value",
+}
+#: `show` prints the density matrix of states up to this many qubits.
+DENSITY_MATRIX_MAX_QUBITS = 2
 
 #: Outlier rows listed by `show` (the rest are counted).
 MAX_OUTLIERS_SHOWN = 20
@@ -59,9 +73,12 @@ def summary(result: Result) -> str:
         toml_title = str(tomllib.loads(r.experiment_toml).get("title", ""))
     except tomllib.TOMLDecodeError:     # a file written by hand elsewhere; the title is cosmetic
         toml_title = ""
-    n = n_qubits_of(dim_of_choi(r.choi))
+    n = n_qubits_of(r.dim)
+    state = r.kind == "state"
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
-    lines.append(f"  qubits {n}, target {r.target_name or 'none'}, rows {len(r.counts_columns['counts'])}, "
+    lines.append(f"  {'state, ' if state else ''}qubits {n}, "
+                 f"target {'state ' if state else ''}{r.target_name or 'none'}, "
+                 f"rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
     if r.conditions:
         lines.append("  conditions: " + ", ".join(f"{name} = {value!r}"
@@ -69,17 +86,19 @@ def summary(result: Result) -> str:
     lines.append("")
     lines.append("figures of merit")
     for name, fig in r.figures.items():
-        lines.append(f"  {LABELS.get(name, name):30s} {_fmt_figure(fig)}")
-    lines.extend(_figure_details(r))
+        lines.append(f"  {_label(name, state):30s} {_fmt_figure(fig)}")
+    lines.extend(_state_details(r) if state else _figure_details(r))
     if r.bootstrap is not None:
         b = r.bootstrap
         refit = f" refitted with {b.method}" if b.method else ""
         errors = f", {b.errors} raised an error" if b.errors else ""
         lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
                      f"seed {b.seed}; {b.failures} did not converge{errors})")
+    if state:
+        lines.extend(_density_matrix(r))
     lines.append("")
     if r.origin == "truth":
-        lines.append("true channel of a simulation (not a fit)")
+        lines.append(f"true {'state' if state else 'channel'} of a simulation (not a fit)")
         lines.append(f"  {r.stop_reason}")
         lines.append(f"  log-likelihood at the simulated counts {r.log_likelihood:.6f}")
     else:
@@ -98,6 +117,49 @@ def summary(result: Result) -> str:
     lines.append(f"  command: {pr.get('command_line', '')}")
     lines.append(f"  input sha256: experiment {r.toml_sha256[:12]}…, counts {r.csv_sha256[:12]}…")
     return "\n".join(lines)
+
+
+def _label(name: str, state: bool) -> str:
+    if not state:
+        return LABELS.get(name, name)
+    if name.startswith("negativity_"):
+        return f"negativity, qubit {name[len('negativity_'):]} | rest"
+    return STATE_LABELS.get(name, name)
+
+
+def _state_details(r: Result) -> list[str]:
+    """The CHSH settings that reach ``chsh_max``."""
+    det = r.figure_details
+    out = []
+    if "chsh_a" in det:
+        out.append("    CHSH settings reaching it, Bloch directions (<X>, <Y>, <Z>):")
+        for key, who in (("chsh_a", "a  (qubit 1)"), ("chsh_a_prime", "a' (qubit 1)"),
+                         ("chsh_b", "b  (qubit 2)"), ("chsh_b_prime", "b' (qubit 2)")):
+            out.append(f"      {who} (" + ", ".join(f"{round(x, 3) + 0.0:+.3f}" for x in det[key])
+                       + ")")
+    if "correlation_singular_values" in det:
+        t = np.asarray(det["correlation_singular_values"])
+        out.append("    singular values of the correlation matrix T_ij = Tr[ρ σ_i⊗σ_j]: "
+                   + ", ".join(f"{x:.4f}" for x in t))
+    return out
+
+
+def _density_matrix(r: Result) -> list[str]:
+    """For up to `DENSITY_MATRIX_MAX_QUBITS` qubits the density matrix, with its bootstrap
+    standard deviations when there are any."""
+    rho = np.asarray(r.rho)
+    out = []
+    if rho.shape[0] <= 2 ** DENSITY_MATRIX_MAX_QUBITS:
+        out.append("")
+        out.append("density matrix (rows; basis H = |0>, qubit 1 first)")
+        for row in rho:
+            out.append("  " + "  ".join(f"{z.real:+.4f}{z.imag:+.4f}j" for z in row))
+        std = None if r.bootstrap is None else r.bootstrap.rho_std
+        if std is not None:
+            out.append("  its bootstrap standard deviations (real part/imaginary part)")
+            for row in np.asarray(std):
+                out.append("  " + "  ".join(f" {z.real:.4f}/{z.imag:.4f}  " for z in row).rstrip())
+    return out
 
 
 def _degrees(phases) -> str:
@@ -141,13 +203,16 @@ def _goodness_of_fit(r: Result) -> list[str]:
     if rows.size:
         out.append(f"  {rows.size} row(s) with |Pearson residual| > {OUTLIER_RESIDUAL:g} "
                    "(CSV data row, first = 1):")
-        out.append(f"    {'row':>6s}  {'prep':10s} {'meas':10s} {'counts':>9s} {'expected':>11s} "
+        has_prep = "prep" in r.counts_columns              # a state has no preparations
+        prep_head = f"{'prep':10s} " if has_prep else ""
+        out.append(f"    {'row':>6s}  {prep_head}{'meas':10s} {'counts':>9s} {'expected':>11s} "
                    f"{'residual':>9s}")
         order = rows[np.argsort(-np.abs(np.nan_to_num(dg.pearson_residuals[rows], nan=np.inf)),
                                 kind="stable")]
         cols = r.counts_columns
         for k in order[:MAX_OUTLIERS_SHOWN]:
-            out.append(f"    {k + 1:6d}  {str(cols['prep'][k]):10s} {str(cols['meas'][k]):10s} "
+            prep = f"{str(cols['prep'][k]):10s} " if has_prep else ""
+            out.append(f"    {k + 1:6d}  {prep}{str(cols['meas'][k]):10s} "
                        f"{int(cols['counts'][k]):9d} {dg.expected_counts[k]:11.2f} "
                        f"{dg.pearson_residuals[k]:+9.2f}")
         if rows.size > MAX_OUTLIERS_SHOWN:

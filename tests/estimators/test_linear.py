@@ -48,3 +48,51 @@ def test_pls_is_the_projection_of_lin(make_experiment):
     lin, pls = estimate(model, "lin"), estimate(model, "pls")
     np.testing.assert_allclose(pls.choi, project_cptp(lin.choi).choi, atol=1e-10)
     assert pls.info["lin_min_eigenvalue"] == lin.info["min_eigenvalue"]
+
+
+def test_state_least_squares_solvers_agree(make_state_experiment, monkeypatch):
+    # A complete three-qubit grid is solved by the Kronecker formula, a dense least
+    # squares or LSQR: the same constrained problem, the same solution.
+    from gatescope.estimators import linear
+    from gatescope.model import StateModel, build_model
+
+    exp, _ = make_state_experiment("GHZ+depolarizing:0.3", n_qubits=3, shots=300, seed=4)
+    grid = build_model(exp)
+    args = (exp.single_meas_effects, exp.meas_parts, exp.meas_index, exp.counts)
+    dense = StateModel(*args, structured=False)
+    freq = np.asarray(exp.counts, dtype=float) / exp.counts.sum() * 27     # 27 bases
+    kron = linear.state_least_squares(grid, freq)
+    np.testing.assert_allclose(kron, linear.state_least_squares(dense, freq), atol=1e-12)
+    assert kron[0] == 1.0                                    # Tr ρ = 1 exactly
+    monkeypatch.setattr(linear, "_DENSE_LIMIT", 0)           # dense model by LSQR too
+    # LSQR stops at atol = btol = 1e-14: agreement far below the statistical error
+    np.testing.assert_allclose(linear.state_least_squares(dense, freq), kron, atol=1e-9)
+
+
+def test_state_least_squares_with_repeated_and_missing_rows():
+    # unequal multiplicities on a structured model (LSQR) against the dense model
+    from gatescope.conventions import builtin_states, density
+    from gatescope.estimators import linear
+    from gatescope.model import StateModel
+    from gatescope.model.state import full_grid
+
+    rng = np.random.default_rng(5)
+    single = np.array([density(builtin_states()[s]) for s in "HVDARL"])
+    meas_index = np.concatenate([np.arange(216), rng.integers(0, 216, size=100)])
+    freq = rng.random(meas_index.size)
+    args = (single, full_grid(3, 6), meas_index, np.ones(meas_index.size))
+    np.testing.assert_allclose(linear.state_least_squares(StateModel(*args), freq),
+                               linear.state_least_squares(StateModel(*args, structured=False),
+                                                          freq), atol=1e-9)
+
+
+def test_state_pls_is_the_projection_of_lin(make_state_experiment):
+    from gatescope.model import build_model
+    from gatescope.projection import project_density
+
+    exp, _ = make_state_experiment("phi+", shots=40, seed=2)       # few counts: lin unphysical
+    model = build_model(exp)
+    lin, pls = estimate(model, "lin"), estimate(model, "pls")
+    assert lin.info["min_eigenvalue"] < 0
+    np.testing.assert_allclose(pls.choi, project_density(lin.choi).choi, atol=1e-15)
+    assert pls.info["multiplier"] is None

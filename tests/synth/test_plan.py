@@ -196,3 +196,31 @@ def test_bad_options_raise_input_error_from_the_api():
         run_sheet(1, "H,X")
     with pytest.raises(InputError, match="--qubits"):
         run_sheet(True)
+
+
+def test_state_sheet_lists_the_analysers_only(tmp_path):
+    # a state experiment has no preparations: one row per analyser projector, the
+    # analyser plates of every qubit (docs/file-formats.md, "Run sheet")
+    sheet = run_sheet(2, meas="pauli6", seconds=5.0, state=True)
+    rows = read_sheet(write_run_sheet(tmp_path / "s.csv", sheet))
+    assert list(rows[0]) == ["meas", "meas_qwp_1", "meas_hwp_1", "meas_qwp_2", "meas_hwp_2",
+                             "seconds"]
+    assert [r["meas"] for r in rows] == ["".join(p) for p in itertools.product("HVDARL", repeat=2)]
+    kets = KETS["H-iV"]
+    for r in rows:
+        for k, m in enumerate(r["meas"], start=1):
+            np.testing.assert_allclose(effect(float(r[f"meas_qwp_{k}"]), float(r[f"meas_hwp_{k}"])),
+                                       np.outer(kets[m], kets[m].conj()), atol=1e-12)
+    assert sheet.total_seconds == 36 * 5.0
+
+
+def test_state_sheet_from_the_command_line(tmp_path, capsys):
+    out = tmp_path / "pairs.csv"
+    assert main(["plan", "--state", "--qubits", "2", "--meas", "pauli4", "-o", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "16 rows (analysers only)" in printed and "laser-safety" in printed
+    assert len(read_sheet(out)) == 16 and "prep" not in read_sheet(out)[0]
+    assert main(["plan", "--state", "--qubits", "2", "--prep", "pauli6",
+                 "-o", str(tmp_path / "x.csv")]) == 2
+    assert "option --prep" in capsys.readouterr().err
+    assert not (tmp_path / "x.csv").exists()

@@ -1,7 +1,10 @@
-"""Process estimators behind one interface and one result type.
+"""Estimators of processes and states behind one interface and one result type.
 
 Every estimator is a function ``(model, *, counts=None, start=None, tol,
-maxiter) -> Fit`` registered in `ESTIMATORS`, one module per family:
+maxiter) -> Fit`` registered in `ESTIMATORS`, one module per family. The
+model is a process model (`gatescope.model.MeasurementModel`) or a state
+model (`gatescope.model.StateModel`); every estimator serves both, and
+``Fit.choi`` then holds the Choi matrix or the density matrix:
 
 * `linear` — ``lin`` (linear inversion) and ``pls`` (projected least squares);
 * `factored` — ``mle``, Poisson maximum likelihood by Riemannian L-BFGS over
@@ -22,7 +25,7 @@ from __future__ import annotations
 import inspect
 
 from ..errors import InputError
-from ..model import MeasurementModel
+from ..model import MeasurementModel, StateModel
 from ..options import choice
 from .base import Fit
 from .factored import fit_mle_factored
@@ -50,9 +53,10 @@ def check_options(method: str, options: dict, *, key: str = "method") -> None:
                              key=name)
 
 
-def estimate(model: MeasurementModel, method: str = "mle", *, counts=None, start=None,
-             **options) -> Fit:
-    """Run the estimator named ``method`` (one of `METHODS`) on ``model``.
+def estimate(model: MeasurementModel | StateModel, method: str = "mle", *, counts=None,
+             start=None, **options) -> Fit:
+    """Run the estimator named ``method`` (one of `METHODS`) on ``model`` (a process or a
+    state model).
 
     ``counts`` and ``start`` are passed on (a bootstrap refit); an unknown
     method or an option the estimator does not take is an `InputError`.

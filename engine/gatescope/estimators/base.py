@@ -14,7 +14,9 @@ class Fit:
     Attributes
     ----------
     method : str
-    choi : (d², d²) complex array, Choi matrix (the README's Conventions)
+    choi : (d², d²) complex array, Choi matrix (the README's Conventions); for a
+        state model the (d, d) density matrix (the Choi matrix of the process
+        from a one-dimensional input that prepares it)
     intensities : (G,) array, fitted λ_g of every normalisation group
     log_likelihood : float
         Poisson log-likelihood Σ [n log ν − ν − log n!] at ``choi`` and

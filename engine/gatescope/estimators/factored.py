@@ -135,32 +135,33 @@ from ..model import MeasurementModel
 from ..projection import project_physical
 from .base import Fit
 from .linear import fit_pls
+from .mle import fit_mle
 
 #: The compiled kernels are used up to this input dimension d; from d = 8 the NumPy twins
 #: (benchmarks/factored_speed.py, "kernels": the kernels make the whole fit 1.4–2× faster
 #: at d = 4; at d = 8 runs ranged from 0.76× to 1.1×, the products being large enough for
 #: NumPy's own BLAS calls to cost as little).
-_KERNEL_MAX_DIM = 4
+KERNEL_MAX_DIM = 4
 
 
 def _tangent(z, x):
-    if z.shape[0] <= _KERNEL_MAX_DIM:
+    if z.shape[0] <= KERNEL_MAX_DIM:
         return tangent_project(z, x)
     return tangent_project_numpy(z, x)
 
 
 def _polar(x):
-    if x.shape[0] <= _KERNEL_MAX_DIM:
+    if x.shape[0] <= KERNEL_MAX_DIM:
         return polar_rows(np.ascontiguousarray(x))
     return polar_rows_numpy(x)
 
 
 def _direction(*args):
-    return (lbfgs_direction if args[6] <= _KERNEL_MAX_DIM else lbfgs_direction_numpy)(*args)
+    return (lbfgs_direction if args[6] <= KERNEL_MAX_DIM else lbfgs_direction_numpy)(*args)
 
 
 def _pair(z, step, g_old, rgrad):
-    return (lbfgs_pair if z.shape[0] <= _KERNEL_MAX_DIM else lbfgs_pair_numpy)(z, step, g_old,
+    return (lbfgs_pair if z.shape[0] <= KERNEL_MAX_DIM else lbfgs_pair_numpy)(z, step, g_old,
                                                                               rgrad)
 
 
@@ -473,6 +474,15 @@ def fit_mle_factored(model: MeasurementModel, *, counts=None, start=None, tol: f
         ``grown``, ``flat_steps`` (steps taken on the approximate Wolfe
         conditions), ``checks`` (one dict per check) and ``history``.
     """
+    if model.kind == "state":
+        # A density matrix is fitted by the accelerated projected gradient (its projection,
+        # onto the simplex of eigenvalues, is cheap; the factored form is for processes):
+        # the same maximum, reported as mle.
+        fit = fit_mle(model, counts=counts, start=start, tol=tol, maxiter=maxiter,
+                      opt_tol=opt_tol, mix=mix)
+        fit.method = "mle"
+        fit.info["solver"] = "projected gradient"
+        return fit
     t0 = time.perf_counter()
     lik = PoissonLikelihood(model, counts)
     d = model.dim

@@ -5,7 +5,9 @@ Accelerated projected gradient ascent, the intensities profiled out: FISTA
 with backtracking (Beck & Teboulle, SIAM J. Imaging Sci. 2, 183 (2009))
 and function-value adaptive restart (O'Donoghue & Candès, Found. Comput.
 Math. 15, 715 (2015)), projecting onto CPTP maps as in Knee, Bolduc, Leach
-& Gauger, Phys. Rev. A 98, 062336 (2018).
+& Gauger, Phys. Rev. A 98, 062336 (2018). The same loop fits a state: its
+projection step is then the one onto density matrices
+(`gatescope.projection.project_physical`).
 """
 
 from __future__ import annotations
@@ -16,7 +18,7 @@ import numpy as np
 
 from ..errors import NumericalError
 from ..likelihood import PoissonLikelihood
-from ..model import MeasurementModel
+from ..model import MeasurementModel, StateModel
 from ..projection import project_physical
 from .base import Fit
 from .linear import fit_pls
@@ -34,21 +36,23 @@ MIN_STEP = 1e-300
 START_MIXTURES = (1e-2, 1e-1, 1.0)
 
 
-def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e-10,
-            maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
+def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
+            tol: float = 1e-10, maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
             proj_tol: float = 1e-9, proj_maxiter: int = 100) -> Fit:
-    """Poisson maximum likelihood over CPTP maps (accelerated projected gradient).
+    """Poisson maximum likelihood over CPTP maps, or over density matrices for a state
+    model (accelerated projected gradient).
 
     Parameters
     ----------
-    model : MeasurementModel
+    model : MeasurementModel or StateModel
     counts : array, optional
         Counts per row (default: the experiment's).
-    start : (d², d²) array, optional
-        Starting Choi matrix (CPTP); default the ``pls`` estimate. It is
-        mixed with a fraction ``mix`` of the completely depolarising channel
-        (more, up to all of it, if that still leaves a row with counts at
-        rate zero) so that every row starts with a positive rate.
+    start : (d², d²) array, or (d, d) for a state, optional
+        Starting point (physical); default the ``pls`` estimate. It is
+        mixed with a fraction ``mix`` of the model's centre, the completely
+        depolarising channel or the maximally mixed state (more, up to all of
+        it, if that still leaves a row with counts at rate zero) so that every
+        row starts with a positive rate.
     tol : float
         Stop when the relative change of the log-likelihood over one step is
         below ``tol`` and the optimality residual below ``opt_tol``.
@@ -60,7 +64,7 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
         constrained optimum, and scale free (it does not grow with the
         counts).
     mix : float
-        Fraction of the completely depolarising channel mixed into the start.
+        Fraction of the model's centre mixed into the start.
     proj_tol, proj_maxiter : float, int
         Tolerance and iteration limit of the inner projections.
 
@@ -73,22 +77,21 @@ def fit_mle(model: MeasurementModel, *, counts=None, start=None, tol: float = 1e
     Notes
     -----
     One iteration: the gradient at the extrapolated point Y, a step
-    J⁺ = Π(Y + t∇ℓ(Y)) with Π the CPTP projection, accepted when ℓ(J⁺) ≥
+    J⁺ = Π(Y + t∇ℓ(Y)) with Π the projection onto the physical set, accepted when ℓ(J⁺) ≥
     ℓ(Y) + <∇ℓ, J⁺ − Y> − ‖J⁺ − Y‖²/(2t) (else t is halved), then a
     restart of the momentum whenever ℓ decreased.
     """
     t0 = time.perf_counter()
     lik = PoissonLikelihood(model, counts)
-    d = model.dim
-    d2 = d * d
     if start is None:
         pls = fit_pls(model, counts=counts)
         start, mult = pls.choi, pls.info["multiplier"]
     else:
         mult = None
-    # Mix in as little of the completely depolarising channel as it takes for every row
-    # with counts to have a positive rate (a warm start sits on the boundary of the set).
-    depolarized = np.eye(d2, dtype=complex) / d
+    # Mix in as little of the centre (the completely depolarising channel, the maximally
+    # mixed state) as it takes for every row with counts to have a positive rate (a warm
+    # start sits on the boundary of the set).
+    depolarized = model.centre()
     for amount in (mix,) + START_MIXTURES:
         x = (1.0 - amount) * np.asarray(start, dtype=complex) + amount * depolarized
         ev = lik.evaluate(x)

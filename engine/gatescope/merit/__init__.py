@@ -2,7 +2,11 @@
 
 * `process` — fidelities to the target and figures without one;
 * `entanglement` — the concurrence of the output for an entangling input;
-* `diamond` — the diamond distance by semidefinite program (optional).
+* `diamond` — the diamond distance by semidefinite program (optional);
+* `state` — the figures of a state: fidelity, purity, entropies, and the
+  entanglement figures and the largest CHSH value (`compute_state_figures`,
+  the state figures in `STATE_FIGURE_NAMES`; `compute_figures` with
+  ``kind="state"`` calls it).
 
 For a Choi matrix J on d dimensions (README, "Conventions") and a unitary
 target U:
@@ -60,6 +64,8 @@ from .entanglement import concurrence, entangling_input
 from .process import (average_gate_fidelity, local_phase_fidelity, min_eigenvalue,
                       nearest_unitary, process_fidelity, purity, trace, truth_table_fidelity,
                       unitarity)
+from .state import (CHSH_DETAIL_KEYS, STATE_FIGURE_NAMES, STATE_FIGURE_ORDER, chsh_gap_warning,
+                    compute_state_figures, state_figure_names)
 
 FIGURE_NAMES = ("process_fidelity", "average_gate_fidelity", "purity", "trace", "min_eigenvalue",
                 "unitarity", "nearest_unitary_fidelity", "process_fidelity_local_phases",
@@ -69,8 +75,12 @@ TARGET_FIGURES = ("process_fidelity", "average_gate_fidelity", "process_fidelity
 
 
 def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: bool = False,
-                    details: dict | None = None) -> dict[str, float]:
+                    details: dict | None = None, kind: str = "process") -> dict[str, float]:
     """All figures of merit, in `FIGURE_NAMES` order (target ones only with a target).
+
+    With ``kind="state"``, ``choi`` is a density matrix and ``target`` a target
+    state (a ket or a density matrix, or None): the figures are those of
+    `compute_state_figures` (``diamond`` does not apply and is ignored).
 
     Parameters
     ----------
@@ -87,6 +97,8 @@ def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: boo
         output's concurrence), ``diamond_status``, ``diamond_solver``,
         ``diamond_program``.
     """
+    if kind == "state":
+        return compute_state_figures(choi, target, details)
     out = {}
     extra = {} if details is None else details
     if target is not None:
@@ -134,7 +146,9 @@ def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: boo
     return out
 
 
-__all__ = ["FIGURE_NAMES", "TARGET_FIGURES", "compute_figures", "process_fidelity",
+__all__ = ["FIGURE_NAMES", "TARGET_FIGURES", "STATE_FIGURE_NAMES", "STATE_FIGURE_ORDER",
+           "CHSH_DETAIL_KEYS", "compute_state_figures", "state_figure_names", "chsh_gap_warning",
+           "compute_figures", "process_fidelity",
            "average_gate_fidelity", "purity", "trace", "min_eigenvalue", "unitarity",
            "nearest_unitary", "local_phase_fidelity", "truth_table_fidelity", "concurrence",
            "entangling_input", "diamond_distance"]

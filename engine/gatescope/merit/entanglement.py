@@ -9,26 +9,15 @@ from functools import lru_cache
 import numpy as np
 
 from ..conventions import builtin_states, kron_all
-
-
-_Y2 = np.array([[0, 0, 0, -1], [0, 0, 1, 0], [0, 1, 0, 0], [-1, 0, 0, 0]], dtype=complex)   # Y ⊗ Y
+from .state import concurrence as state_concurrence
 
 
 def concurrence(rho: np.ndarray) -> float:
-    """Wootters' concurrence of a two-qubit density matrix (normalised here).
-
-    C = max(0, λ1 − λ2 − λ3 − λ4), λ the decreasing square roots of the
-    eigenvalues of √ρ ρ̃ √ρ, ρ̃ = (Y⊗Y) ρ* (Y⊗Y) (Wootters, Phys. Rev. Lett.
-    80, 2245 (1998)).
-    """
-    rho = 0.5 * (rho + rho.conj().T)
-    rho = rho / np.trace(rho).real
-    w, v = np.linalg.eigh(rho)
-    root = (v * np.sqrt(np.clip(w, 0.0, None))) @ v.conj().T
-    tilde = _Y2 @ rho.conj() @ _Y2
-    m = root @ tilde @ root
-    lam = np.sqrt(np.clip(np.linalg.eigvalsh(0.5 * (m + m.conj().T)), 0.0, None))[::-1]
-    return float(max(0.0, lam[0] - lam[1] - lam[2] - lam[3]))
+    """Wootters' concurrence of a two-qubit density matrix, normalised here (the output of
+    a trace-decreasing estimate has trace below one): `gatescope.merit.state.concurrence`
+    of ρ/Tr ρ (Wootters, Phys. Rev. Lett. 80, 2245 (1998))."""
+    rho = np.asarray(rho, dtype=complex)
+    return state_concurrence(rho / np.trace(rho).real)
 
 
 #: Single-qubit inputs searched by `entangling_input`; the circular ones by their

@@ -59,39 +59,59 @@ def _each_qubit(kraus_1q, n_qubits: int) -> np.ndarray:
     return choi_from_kraus(ops)
 
 
+def dephasing_kraus(p: float) -> list[np.ndarray]:
+    """Single-qubit Kraus pair of ρ ↦ (1−p)ρ + p ZρZ: √(1−p)·I, √p·Z."""
+    z = np.diag([1.0, -1.0]).astype(complex)
+    return [np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * z]
+
+
+def amplitude_damping_kraus(g: float) -> list[np.ndarray]:
+    """Single-qubit Kraus pair [[1,0],[0,√(1−g)]], [[0,√g],[0,0]]."""
+    k0 = np.array([[1, 0], [0, np.sqrt(1 - g)]], dtype=complex)
+    k1 = np.array([[0, np.sqrt(g)], [0, 0]], dtype=complex)
+    return [k0, k1]
+
+
 def dephasing(p: float, n_qubits: int) -> np.ndarray:
     """ρ ↦ (1−p)ρ + p ZρZ on every qubit."""
-    z = np.diag([1.0, -1.0]).astype(complex)
-    return _each_qubit([np.sqrt(1 - p) * np.eye(2), np.sqrt(p) * z], n_qubits)
+    return _each_qubit(dephasing_kraus(p), n_qubits)
 
 
 def amplitude_damping(g: float, n_qubits: int) -> np.ndarray:
     """Kraus pair [[1,0],[0,√(1−g)]], [[0,√g],[0,0]] on every qubit."""
-    k0 = np.array([[1, 0], [0, np.sqrt(1 - g)]], dtype=complex)
-    k1 = np.array([[0, np.sqrt(g)], [0, 0]], dtype=complex)
-    return _each_qubit([k0, k1], n_qubits)
+    return _each_qubit(amplitude_damping_kraus(g), n_qubits)
 
 
-def zz_phase(phi: float, n_qubits: int) -> np.ndarray:
-    """exp(−i φ Z⊗Z/2) on each neighbouring pair (k, k+1), as a Choi matrix."""
+def zz_diagonal(phi: float, n_qubits: int) -> np.ndarray:
+    """The diagonal of exp(−i φ Σ_k Z_k Z_{k+1}/2), neighbouring pairs (k, k+1)."""
     d = 2 ** n_qubits
     bits = (np.arange(d)[:, None] >> (n_qubits - 1 - np.arange(n_qubits))[None, :]) & 1
     z = 1 - 2 * bits                                  # ±1 eigenvalue of Z_k
     exponent = np.zeros(d)
     for k in range(n_qubits - 1):
         exponent += z[:, k] * z[:, k + 1]
-    return choi_from_unitary(np.diag(np.exp(-0.5j * phi * exponent)))
+    return np.exp(-0.5j * phi * exponent)
+
+
+def zz_phase(phi: float, n_qubits: int) -> np.ndarray:
+    """exp(−i φ Z⊗Z/2) on each neighbouring pair (k, k+1), as a Choi matrix."""
+    return choi_from_unitary(np.diag(zz_diagonal(phi, n_qubits)))
 
 
 NOISE_KINDS = ("depolarizing", "dephasing", "amplitude-damping", "zz")
+
+
+def check_noise_parameter(kind: str, value: float) -> None:
+    """ValueError unless the parameter of a noise kind other than ``zz`` lies in [0, 1]."""
+    if kind != "zz" and not 0.0 <= value <= 1.0:
+        raise ValueError(f"{kind} parameter must lie in [0, 1], got {value}")
 
 
 def noise_channel(kind: str, value: float, n_qubits: int) -> np.ndarray:
     """Choi matrix of one noise term (README, Commands: noise kinds)."""
     if kind == "zz":
         return zz_phase(value, n_qubits)
-    if not 0.0 <= value <= 1.0:
-        raise ValueError(f"{kind} parameter must lie in [0, 1], got {value}")
+    check_noise_parameter(kind, value)
     if kind == "depolarizing":
         return depolarizing(value, 2 ** n_qubits)
     if kind == "dephasing":
@@ -152,13 +172,7 @@ def parse_channel_spec(spec: str) -> ChannelSpec:
     head = pieces[0]
     gate, rnd = None, None
     if head.startswith("random:") or head == "random":
-        parts = head.split(":")
-        if len(parts) not in (2, 3):
-            raise ValueError(f"channel {spec!r}: expected random:RANK[:SEED]")
-        try:
-            rnd = (int(parts[1]), int(parts[2]) if len(parts) == 3 else None)
-        except ValueError:
-            raise ValueError(f"channel {spec!r}: RANK and SEED must be whole numbers") from None
+        rnd = parse_random(head, f"channel {spec!r}")
     elif head in GATE_NAMES:
         gate = head
     else:
@@ -179,12 +193,26 @@ def parse_channel_spec(spec: str) -> ChannelSpec:
 
 
 def parse_term(text: str) -> tuple[str, object]:
-    """Parse one TERM of a SPEC: (kind, value) for process noise, (kind, values) for a
-    bench kind (`gatescope.synth.lab.parse_lab_term`)."""
-    kind = text.partition(":")[0]
+    """Parse one TERM of a channel SPEC: (kind, value) for process noise, (kind, values)
+    for a bench kind (`gatescope.synth.lab.parse_lab_term`)."""
+    kind, sep, _ = text.partition(":")
     if kind in LAB_KINDS:
         return parse_lab_term(text)
+    if sep and kind not in NOISE_KINDS:
+        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: "
+                         f"{', '.join(NOISE_KINDS + LAB_KINDS)}")
     return parse_noise(text)
+
+
+def parse_random(text: str, what: str) -> tuple[int, int | None]:
+    """(rank, seed) of ``random:RANK[:SEED]``; ``what`` starts the error messages."""
+    parts = text.split(":")
+    if len(parts) not in (2, 3):
+        raise ValueError(f"{what}: expected random:RANK[:SEED]")
+    try:
+        return int(parts[1]), (int(parts[2]) if len(parts) == 3 else None)
+    except ValueError:
+        raise ValueError(f"{what}: RANK and SEED must be whole numbers") from None
 
 
 def parse_noise(text: str) -> tuple[str, float]:
@@ -193,8 +221,7 @@ def parse_noise(text: str) -> tuple[str, float]:
     if not sep:
         raise ValueError(f"noise {text!r}: expected KIND:P, e.g. depolarizing:0.02")
     if kind not in NOISE_KINDS:
-        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: "
-                         f"{', '.join(NOISE_KINDS + LAB_KINDS)}")
+        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: {', '.join(NOISE_KINDS)}")
     try:
         p = float(value)
     except ValueError:

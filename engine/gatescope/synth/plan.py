@@ -1,7 +1,9 @@
 """The run sheet of an experiment (the `plan` command).
 
 One row per (preparation, analyser projector) pair of a complete product
-set, with the wave-plate angles that set it on every qubit. The optics are
+set, with the wave-plate angles that set it on every qubit; for a state
+experiment (``state=True``) one row per analyser projector, with the
+analyser plates only. The optics are
 those of the README's Conventions: the preparation of each qubit is the source's H light
 through a half-wave plate, then a quarter-wave plate; the analysis is a
 quarter-wave plate, then a half-wave plate, then a polariser passing H. A
@@ -142,13 +144,25 @@ def plate_angles(vector, role: str) -> tuple[float, float]:
 
 @dataclass(frozen=True)
 class RunSheet:
-    """Rows of a run sheet: labels, then per qubit (prep HWP, prep QWP, meas QWP, meas HWP)."""
+    """Rows of a run sheet: labels, then per qubit (prep HWP, prep QWP, meas QWP, meas HWP);
+    for a state (``state`` True) the meas label, then per qubit (meas QWP, meas HWP)."""
 
     n_qubits: int
     header: tuple[str, ...]
     rows: tuple[tuple, ...]
     seconds: float | None
     right_circular: str
+    state: bool = False
+
+    @property
+    def n_labels(self) -> int:
+        """Label cells at the start of every row (prep and meas, or meas alone)."""
+        return 1 if self.state else 2
+
+    @property
+    def n_angles(self) -> int:
+        """Angle cells of every row after the labels."""
+        return (2 if self.state else 4) * self.n_qubits
 
     @property
     def total_seconds(self) -> float | None:
@@ -176,8 +190,9 @@ def _check_set(text, option: str) -> tuple[str, ...]:
     return labels
 
 
-def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
-              right_circular: str = "H-iV", seconds: float | None = None) -> RunSheet:
+def run_sheet(n_qubits: int, prep: str | None = None, meas: str = "pauli6", *,
+              right_circular: str = "H-iV", seconds: float | None = None,
+              state: bool = False) -> RunSheet:
     """The run sheet of a complete product experiment (docs/file-formats.md, "Run sheet").
 
     Parameters
@@ -185,7 +200,11 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
     n_qubits : int
     prep, meas : str
         ``pauli6`` (H V D A R L per qubit), ``pauli4`` (H V D R) or a comma
-        list of built-in single-qubit labels, applied to every qubit.
+        list of built-in single-qubit labels, applied to every qubit. ``prep``
+        None means ``pauli6`` for a process; a state has no preparations.
+    state : bool
+        The analyser-only sheet of a state experiment: one row per analyser
+        projector, columns ``meas`` and ``meas_qwp_k``, ``meas_hwp_k``.
     right_circular : {"H-iV", "H+iV"}
         Which state ``R`` means (the README's Conventions).
     seconds : float, optional
@@ -195,7 +214,8 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
     ------
     InputError
         Naming the option (``--qubits``, ``--prep``, ``--meas``,
-        ``--right-circular``, ``--seconds``) and what is wrong.
+        ``--right-circular``, ``--seconds``) and what is wrong; ``--prep``
+        with ``state`` is one.
     """
     if isinstance(n_qubits, bool) or not isinstance(n_qubits, (int, np.integer)) \
             or not 1 <= n_qubits <= MAX_QUBITS:
@@ -209,9 +229,12 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
         seconds = float(seconds)
         if not (math.isfinite(seconds) and seconds > 0):
             raise InputError(f"must be a positive number of seconds, got {seconds:g}", key="--seconds")
-    prep_set = _check_set(prep, "--prep")
+    if state and prep is not None:
+        raise InputError("a state experiment has no preparations: the sheet of --state lists "
+                         "the analysers only", key="--prep")
+    prep_set = () if state else _check_set("pauli6" if prep is None else prep, "--prep")
     meas_set = _check_set(meas, "--meas")
-    n_rows = (len(prep_set) * len(meas_set)) ** n_qubits
+    n_rows = (max(len(prep_set), 1) * len(meas_set)) ** n_qubits
     if n_rows > MAX_ROWS:
         raise InputError(f"{n_qubits} qubits with these sets make {n_rows:,} rows "
                          f"(more than {MAX_ROWS:,})", key="--qubits")
@@ -219,6 +242,8 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
     states = builtin_states(right_circular)
     prep_angles = {s: plate_angles(states[s], "prep") for s in prep_set}      # (hwp, qwp)
     meas_angles = {s: plate_angles(states[s], "meas") for s in meas_set}      # (hwp, qwp)
+    if state:
+        return _analyser_sheet(n_qubits, meas_set, meas_angles, seconds, right_circular)
     header = ["prep", "meas"]
     for k in range(1, n_qubits + 1):
         header += [f"prep_hwp_{k}", f"prep_qwp_{k}", f"meas_qwp_{k}", f"meas_hwp_{k}"]
@@ -240,6 +265,25 @@ def run_sheet(n_qubits: int, prep: str = "pauli6", meas: str = "pauli6", *,
     return RunSheet(n_qubits, tuple(header), tuple(rows), seconds, right_circular)
 
 
+def _analyser_sheet(n_qubits, meas_set, meas_angles, seconds, right_circular) -> RunSheet:
+    """The run sheet of a state experiment: one row per analyser projector."""
+    header = ["meas"]
+    for k in range(1, n_qubits + 1):
+        header += [f"meas_qwp_{k}", f"meas_hwp_{k}"]
+    if seconds is not None:
+        header.append("seconds")
+    rows = []
+    for mlab, mparts in zip(*_labels(meas_set, n_qubits)):
+        row = [mlab]
+        for ms in mparts:
+            mh, mq = meas_angles[ms]
+            row += [mq, mh]
+        if seconds is not None:
+            row.append(seconds)
+        rows.append(tuple(row))
+    return RunSheet(n_qubits, tuple(header), tuple(rows), seconds, right_circular, state=True)
+
+
 def format_angle(angle_deg: float) -> str:
     """Degrees with up to six decimals and no trailing zeros (``22.5``, ``0``)."""
     text = f"{angle_deg:.6f}".rstrip("0").rstrip(".")
@@ -251,8 +295,9 @@ def sheet_text(sheet: RunSheet) -> str:
     buf = io.StringIO()
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(sheet.header)
+    first, end = sheet.n_labels, sheet.n_labels + sheet.n_angles
     for row in sheet.rows:
-        cells = list(row[:2]) + [format_angle(a) for a in row[2:2 + 4 * sheet.n_qubits]]
+        cells = list(row[:first]) + [format_angle(a) for a in row[first:end]]
         if sheet.seconds is not None:
             cells.append(f"{row[-1]:g}")
         writer.writerow(cells)

@@ -42,7 +42,7 @@ from ..errors import InputError
 from ..fileio import atomic_write_text
 from ..likelihood import PoissonLikelihood
 from ..merit import compute_figures
-from ..model import MeasurementModel
+from ..model import build_model
 from ..provenance import provenance
 from ..reader import read_experiment
 from ..result import build_result
@@ -58,6 +58,10 @@ class Channel:
     ``lab`` holds the bench imperfections of the SPEC (`gatescope.synth.lab`):
     the distinguishability is already in ``choi``; plates, accidentals and
     drift act when the counts are drawn (`acquisition`).
+
+    A known state (`gatescope.synth.state`) is a channel from a one-dimensional
+    input: ``choi`` is then its density matrix and ``target`` the name written as
+    the experiment's ``target_state``.
     """
 
     choi: np.ndarray
@@ -89,6 +93,27 @@ def label_set(text: str) -> tuple[str, ...]:
         raise ValueError(f"{text!r} is not pauli6, pauli4 or a comma list of built-in labels"
                          + (f" ({bad[0]!r} is unknown)" if bad else ""))
     return labels
+
+
+def checked_set(text: str, option: str) -> tuple[str, ...]:
+    """`label_set`, with a bad SET an InputError blaming ``option`` (``--prep``, ``--meas``)."""
+    try:
+        return label_set(text)
+    except ValueError as exc:
+        raise InputError(str(exc), key=option) from None
+
+
+def checked_shots(shots: float) -> float:
+    """``shots`` if it is a positive finite number, else an InputError blaming ``--shots``."""
+    if not (np.isfinite(shots) and shots > 0):
+        raise InputError(f"must be a positive number, got {shots}", key="--shots")
+    return float(shots)
+
+
+def simulation_seed(seed: int | None) -> int:
+    """The seed of a simulation: ``seed``, or one drawn from the operating system (31 bits,
+    so that it reads well in a recipe)."""
+    return int(np.random.SeedSequence().entropy % (2**31)) if seed is None else seed
 
 
 def _product_labels(single, n_qubits):
@@ -308,25 +333,25 @@ def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str 
         channel = channel_from_spec(spec, n_qubits)
     except ValueError as exc:
         raise InputError(str(exc), key=spec_option) from None
-    try:
-        prep_set = label_set(prep)
-    except ValueError as exc:
-        raise InputError(str(exc), key="--prep") from None
-    try:
-        meas_set = label_set(meas)
-    except ValueError as exc:
-        raise InputError(str(exc), key="--meas") from None
-    if not (np.isfinite(shots) and shots > 0):
-        raise InputError(f"must be a positive number, got {shots}", key="--shots")
-    if seed is None:
-        seed = int(np.random.SeedSequence().entropy % (2**31))
+    prep_set = checked_set(prep, "--prep")
+    meas_set = checked_set(meas, "--meas")
+    shots = checked_shots(shots)
+    seed = simulation_seed(seed)
     acq = acquisition(channel, shots=shots, prep_set=prep_set, meas_set=meas_set)
-    run = acq.draw(seed)
-    path = write_experiment(outdir, channel, run.rows, title=title or f"simulated {spec}",
-                            extra_toml=acq.toml_keys(), columns=acq.columns())
+    path = write_experiment(outdir, channel, acq.draw(seed).rows,
+                            title=title or f"simulated {spec}", extra_toml=acq.toml_keys(),
+                            columns=acq.columns())
+    return save_truth(path, channel, shots=shots, seed=seed, started=started,
+                      command_line=command_line)
+
+
+def save_truth(path: Path, channel: Channel, *, shots: float, seed: int, started: float,
+               command_line: str | None = None) -> Path:
+    """Read back the experiment written at ``path`` and save its `truth_result` beside it
+    as ``truth.h5``; returns ``path``."""
     exp = read_experiment(path)
     truth_result(exp, channel, shots=shots, seed=seed, started=started,
-                 command_line=command_line).save(Path(outdir) / "truth.h5")
+                 command_line=command_line).save(Path(path).parent / "truth.h5")
     return path
 
 
@@ -336,19 +361,22 @@ def truth_result(exp, channel: Channel, *, shots: float, seed: int, started: flo
 
     Its figures are those of the true channel; its log-likelihood is that of
     the true channel at the simulated counts, with the intensities profiled
-    as a fit would (for comparison with a fit's); it has no diagnostics.
+    as a fit would (for comparison with a fit's); it has no diagnostics. For
+    a state experiment ``channel.choi`` is the true density matrix.
     """
-    model = MeasurementModel(exp)
+    model = build_model(exp)
     log_likelihood = PoissonLikelihood(model).evaluate(channel.choi).log_likelihood
     details = {}
-    figures = compute_figures(channel.choi, exp.target, details=details)
+    target = exp.target_state if exp.kind == "state" else exp.target
+    figures = compute_figures(channel.choi, target, details=details, kind=exp.kind)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.time() - started)
     prov["channel"] = channel.spec
     return build_result(
         exp, channel.choi, figures, details, method="truth", converged=True, iterations=0,
         log_likelihood=log_likelihood,
-        stop_reason=f"true channel of the simulation ({channel.spec}, shots {shots:g}, seed {seed})",
+        stop_reason=f"true {'state' if exp.kind == 'state' else 'channel'} of the simulation "
+                    f"({channel.spec}, shots {shots:g}, seed {seed})",
         seconds=0.0, intensities=np.full(exp.n_groups, source_rate(channel, shots)),
         diagnostics=None,
         provenance=prov, origin="truth")

@@ -1,5 +1,5 @@
-"""The measurement model (gatescope.model): the structured maps equal the dense design
-matrix, and the identifiability check names what the data leave undetermined.
+"""The process measurement model (gatescope.model.process): the structured maps equal the
+dense design matrix, and the identifiability check names what the data leave undetermined.
 """
 
 from __future__ import annotations
@@ -124,7 +124,7 @@ def test_identifiability_complete_and_incomplete(make_experiment):
                                         ("random:2:42", ("H", "V", "D", "R"))])
 def test_qubitwise_maps_equal_the_pair_table(make_experiment, rng, monkeypatch, spec, prep):
     # three qubits: the qubit-by-qubit contraction against the P × M table (both exact)
-    from gatescope import model as model_module
+    from gatescope.model import process as model_module
     exp, choi = make_experiment(spec, n_qubits=3, shots=10, prep=prep)
     structured = MeasurementModel(exp)
     assert structured.structured
@@ -141,7 +141,7 @@ def test_qubitwise_maps_equal_the_pair_table(make_experiment, rng, monkeypatch, 
 def test_identifiability_of_an_incomplete_pair_table(make_experiment, monkeypatch):
     # every preparation and every analyser present, but not every pair: the rank of the
     # design restricted to the pairs present (dense path), or its bound (above the limit)
-    from gatescope import model as model_module
+    from gatescope.model import process as model_module
     from gatescope import read_experiment
 
     exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=500, seed=2,

@@ -1,4 +1,4 @@
-"""The measurement model: the linear map from a Choi matrix to every row.
+"""The measurement model of a process: the linear map from a Choi matrix to every row.
 
 Row k probes the probability ``p_k = Tr[(ρ_k^T ⊗ E_k) J]`` (docs/file-formats.md, "Input"),
 ρ_k the row's preparation density matrix and E_k its analyser effect. Its
@@ -24,10 +24,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
-from .conventions import pauli_basis, pauli_labels
-from .errors import GatescopeWarning
-from .reader import Experiment
+from ..channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
+from ..conventions import pauli_basis, pauli_labels
+from ..errors import GatescopeWarning
+from ..reader import Experiment
 
 
 #: From this many qubits the forward and adjoint maps contract qubit by qubit; below
@@ -77,6 +77,10 @@ class MeasurementModel:
     experiment : Experiment
         The validated experiment whose rows define the map.
     """
+
+    #: What the model's variable is: a Choi matrix (`gatescope.model.state.StateModel`
+    #: has "state").
+    kind = "process"
 
     def __init__(self, experiment: Experiment):
         self.experiment = experiment
@@ -172,6 +176,11 @@ class MeasurementModel:
     def expected_counts(self, choi: np.ndarray, intensities: np.ndarray) -> np.ndarray:
         """ν_k = λ_g · seconds · efficiency · p_k + background (docs/file-formats.md, "Input")."""
         return intensities[self.group_index] * self.exposure * self.forward(choi) + self.background
+
+    def centre(self) -> np.ndarray:
+        """I_{d²}/d, the Choi matrix of the completely depolarising channel."""
+        d = self.dim
+        return np.eye(d * d, dtype=complex) / d
 
     # -- Pauli coordinates, used by linear inversion and identifiability --
     def pauli_coordinates(self):

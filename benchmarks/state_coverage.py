@@ -1,0 +1,169 @@
+"""Coverage of the bootstrap intervals of every two-qubit state figure.
+
+For each configuration (a state SPEC and a count level) the script repeats
+simulate → mle fit → parametric bootstrap and records, per repetition and
+figure, the true value, the point estimate, the mean and standard deviation
+of the B bootstrap values, and the interval of every construction in
+`gatescope.intervals.INTERVALS` at ``--level`` (each intersected with the
+figure's range, as the library reports them). The table reports per figure
+the mean bias of the point estimate beside the spread of the estimates over
+the repetitions and the mean bootstrap standard error, the mean bootstrap
+bias, and the coverage of each construction.
+
+    python benchmarks/state_coverage.py --repetitions 200 --samples 100
+
+Repetition r of a configuration simulates its counts with seed ``seed + r``
+and bootstraps with seed ``seed + r + 1_000_000``. Every repetition appends
+one CSV line per figure to ``--out`` (default
+benchmarks/results/state_coverage_runs.csv); a rerun with the same file
+skips the repetitions already there, and ``--table-only`` prints the table of
+what the file holds.
+"""
+
+from __future__ import annotations
+
+import os
+
+# One BLAS thread: the fits are small and several studies may share the cores.
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import csv  # noqa: E402
+import math  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from collections import defaultdict  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent / "engine"))
+
+from gatescope.bootstrap import run_bootstrap  # noqa: E402
+from gatescope.conventions import builtin_states, density, named_state  # noqa: E402
+from gatescope.estimators import estimate  # noqa: E402
+from gatescope.intervals import INTERVALS, interval, parameter_range  # noqa: E402
+from gatescope.merit import compute_state_figures  # noqa: E402
+from gatescope.model import StateModel  # noqa: E402
+from gatescope.model.state import full_grid  # noqa: E402
+from gatescope.synth.state import simulate_state_counts, state_from_spec  # noqa: E402
+
+#: (SPEC, target state name or None): the demo's pair source (t₂ = t₃), a Bell state in
+#: white noise (t₁ = t₂ = t₃), and a random pure state in white noise (distinct t's).
+DEFAULT_CONFIGS = ("psi-+visibility:0.94+depolarizing:0.03=psi-",
+                   "phi++depolarizing:0.15=phi+",
+                   "random:1:3+depolarizing:0.1")
+FIELDS = (["config", "shots", "samples", "level", "rep", "figure", "truth", "point", "boot_mean",
+           "boot_sd"] + [f"{c}_{end}" for c in INTERVALS for end in ("low", "high")])
+
+
+def _config(text: str):
+    spec, _, target = text.partition("=")
+    return spec, (target or None)
+
+
+def one_repetition(text: str, shots: float, rep: int, args) -> list[dict]:
+    spec, target_name = _config(text)
+    state = state_from_spec(spec, 2)
+    target = None if target_name is None else named_state(target_name, 2)
+    truth = compute_state_figures(state.choi, target)
+    rows = simulate_state_counts(state, shots=shots, seed=args.seed + rep)
+    single = np.array([density(builtin_states()[s]) for s in "HVDARL"])
+    counts = np.array([c for _, _, c in rows], dtype=float)
+    model = StateModel(single, full_grid(2, 6), np.arange(counts.size), counts)
+    point = estimate(model, "mle")
+    figures = compute_state_figures(point.choi, target)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        boot, _ = run_bootstrap(model, point, target, samples=args.samples,
+                                seed=args.seed + rep + 1_000_000, workers=args.workers)
+    return [summary_row(text, shots, args.samples, args.level, rep, name, truth[name],
+                        figures[name], boot.figures[:, k]) for k, name in enumerate(boot.names)]
+
+
+def summary_row(config, shots, samples, level, rep, figure, truth, point, values) -> dict:
+    """One CSV line: a figure's truth, estimate, bootstrap mean and spread, and intervals."""
+    row = {"config": config, "shots": shots, "samples": samples, "level": level, "rep": rep,
+           "figure": figure, "truth": repr(float(truth)), "point": repr(float(point)),
+           "boot_mean": repr(float(np.nanmean(values))),
+           "boot_sd": repr(float(np.nanstd(values, ddof=1)))}
+    bounds = parameter_range(figure, 4, "state")
+    for c in INTERVALS:
+        lo, hi = interval(values, point, level, c, bounds)
+        row[f"{c}_low"], row[f"{c}_high"] = repr(lo), repr(hi)
+    return row
+
+
+def read_rows(path: Path) -> list[dict]:
+    if not path.exists():
+        return []
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
+def table(rows: list[dict]) -> str:
+    groups = defaultdict(list)
+    for r in rows:
+        groups[(r["config"], float(r["shots"]), r["figure"])].append(r)
+    lines = ["| configuration | shots | figure | reps | truth | mean bias ± se | sd of θ̂ | mean s* "
+             "| mean boot bias | " + " | ".join("**normal** (default)" if c == "normal" else c
+                                               for c in INTERVALS) + " |",
+             "|---" * (8 + len(INTERVALS)) + "|"]
+    for (config, shots, figure), rs in groups.items():
+        truth = float(rs[0]["truth"])
+        points = np.array([float(r["point"]) for r in rs])
+        spreads = np.array([float(r["boot_sd"]) for r in rs])
+        boot_bias = np.array([float(r["boot_mean"]) for r in rs]) - points
+        bias = points - truth
+        cover = []
+        for c in INTERVALS:
+            hits = [float(r[f"{c}_low"]) <= truth <= float(r[f"{c}_high"]) for r in rs]
+            p = float(np.mean(hits))
+            cover.append(f"{p:.3f} ± {math.sqrt(p * (1 - p) / len(hits)):.3f}")
+        lines.append(f"| {config} | {shots:g} | {figure} | {len(rs)} | {truth:.4f} | "
+                     f"{bias.mean():+.4f} ± {bias.std(ddof=1) / math.sqrt(len(rs)):.4f} | "
+                     f"{points.std(ddof=1):.4f} | {spreads.mean():.4f} | {boot_bias.mean():+.4f} | "
+                     + " | ".join(cover) + " |")
+    return "\n".join(lines)
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--configs", nargs="+", default=list(DEFAULT_CONFIGS),
+                        help="SPEC[=TARGET] state configurations (two qubits)")
+    parser.add_argument("--shots", nargs="+", type=float, default=[2000.0])
+    parser.add_argument("--repetitions", type=int, default=200)
+    parser.add_argument("--samples", type=int, default=100)
+    parser.add_argument("--level", type=float, default=0.95)
+    parser.add_argument("--workers", type=int, default=1)
+    parser.add_argument("--seed", type=int, default=2026)
+    parser.add_argument("--out", type=Path, default=HERE / "results" / "state_coverage_runs.csv")
+    parser.add_argument("--table-only", action="store_true")
+    args = parser.parse_args(argv)
+    if not args.table_only:
+        done = {(r["config"], float(r["shots"]), int(r["rep"])) for r in read_rows(args.out)}
+        new_file = not args.out.exists()
+        args.out.parent.mkdir(parents=True, exist_ok=True)
+        with open(args.out, "a", newline="") as fh:
+            writer = csv.DictWriter(fh, fieldnames=FIELDS)
+            if new_file:
+                writer.writeheader()
+            for config in args.configs:
+                for shots in args.shots:
+                    t0 = time.perf_counter()
+                    for rep in range(args.repetitions):
+                        if (config, shots, rep) in done:
+                            continue
+                        writer.writerows(one_repetition(config, shots, rep, args))
+                        fh.flush()
+                    print(f"{config} shots {shots:g}: {time.perf_counter() - t0:.0f} s",
+                          file=sys.stderr)
+    print(table(read_rows(args.out)))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
