@@ -80,7 +80,8 @@ def main(argv=None) -> int:
         out = subprocess.run([sys.executable, __file__, "--case", str(n)], check=True,
                              capture_output=True, text=True)
         results.append(json.loads(out.stdout.strip().splitlines()[-1]))
-    print("| qubits | rows | parameters | Fisher (s) | Tr F⁻¹ (s) | F (MB) | peak MB before → after |")
+    print("| qubits | rows | parameters | Fisher (s) | Tr F⁻¹ (s) | F (MB) "
+          "| peak MB before → after |")
     print("|---|---|---|---|---|---|---|")
     for r in results:
         print(f"| {r['qubits']} | {r['rows']} | {r['parameters']} | {r['fisher_seconds']:.3f} | "

@@ -34,7 +34,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .conventions import GATE_NAMES
     from .estimators import METHODS
     from .intervals import DEFAULT_INTERVAL, INTERVALS
-    from .synth.noise import NOISE_KINDS, spec_forms
+    from .synth.noise import spec_forms
     from .synth.state import STATE_NOISE_KINDS
 
     p = _Parser(prog="gatescope",

@@ -7,7 +7,8 @@ import numpy as np
 import pytest
 import qutip
 
-from gatescope.bench.measures import Case, Truth, errors, positive_sqrt, repetition, uhlmann_fidelity
+from gatescope.bench.measures import (Case, Truth, errors, positive_sqrt, repetition,
+                                      uhlmann_fidelity)
 from gatescope.channels import choi_from_unitary
 from gatescope.conventions import named_gate
 from gatescope.model import MeasurementModel

@@ -55,7 +55,8 @@ def test_loglog_slope():
     assert table.loglog_slope(shots, [1.0, 10.0 ** -0.5, None]) == pytest.approx(-0.5, abs=1e-12)
     assert table.loglog_slope([100.0], [1.0]) is None
     rows = [{"channel": "c", "qubits": 1, "method": m, "shots": s, "hs_mse": v}
-            for m, vals in (("a", [1.0, 0.1]), ("b", [1.0, 0.01])) for s, v in zip([1.0, 10.0], vals)]
+            for m, vals in (("a", [1.0, 0.1]), ("b", [1.0, 0.01]))
+            for s, v in zip([1.0, 10.0], vals)]
     table.add_slopes(rows)
     assert [r["hs_mse_slope"] for r in rows] == pytest.approx([-1, -1, -2, -2])
 

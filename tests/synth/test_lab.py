@@ -97,7 +97,8 @@ def _two_photon_network(overlap: float) -> np.ndarray:
             pht = (big @ np.kron(np.eye(6)[2 + j], b)).reshape(6, 2)
             for k in range(2):
                 for l in range(2):
-                    t[k, l, :, :, i, j] = np.outer(phc[k], pht[2 + l]) + np.outer(pht[k], phc[2 + l])
+                    t[k, l, :, :, i, j] = (np.outer(phc[k], pht[2 + l])
+                                           + np.outer(pht[k], phc[2 + l]))
     return choi_from_kraus([t[:, :, al, be].reshape(4, 4) for al in range(2) for be in range(2)])
 
 
@@ -208,9 +209,10 @@ def test_half_wave_angle_offset(alpha_deg):
     alpha = math.radians(alpha_deg)
     errors = ln.PlateErrors([[alpha_deg, 0, 0, alpha_deg]], [[0, 0, 0, 0]])
     optics = ln.actual_optics(("V",), ("H",), errors)
-    assert _fidelity([0, 1], optics.prep[0, 0]) == pytest.approx(math.cos(2 * alpha) ** 2, abs=1e-14)
+    expected = math.cos(2 * alpha) ** 2
+    assert _fidelity([0, 1], optics.prep[0, 0]) == pytest.approx(expected, abs=1e-14)
     # analysis H (quarter-wave 0°, half-wave 0° + α, polariser H): <H|E|H> = cos²(2α)
-    assert _fidelity([1, 0], optics.meas[0, 0]) == pytest.approx(math.cos(2 * alpha) ** 2, abs=1e-14)
+    assert _fidelity([1, 0], optics.meas[0, 0]) == pytest.approx(expected, abs=1e-14)
 
 
 def test_plate_errors_are_drawn_per_plate_and_reproducibly():
@@ -239,11 +241,13 @@ def _plates_toml(optics, errors):
     for q in range(errors.n_qubits):
         a, r = errors.angle_deg[q].tolist(), errors.retardance_deg[q].tolist()
         for lab, (h, w) in zip(optics.prep_labels, optics.prep_angles):
-            lines.append(f'[states.p{q}{lab}]\nplates = [ {{ kind = "half", angle_deg = {h + a[0]!r}, '
+            lines.append(f'[states.p{q}{lab}]\nplates = [ '
+                         f'{{ kind = "half", angle_deg = {h + a[0]!r}, '
                          f'retardance_deg = {180 + r[0]!r} }}, {{ kind = "quarter", '
                          f'angle_deg = {w + a[1]!r}, retardance_deg = {90 + r[1]!r} }} ]')
         for lab, (h, w) in zip(optics.meas_labels, optics.meas_angles):
-            lines.append(f'[states.m{q}{lab}]\nplates = [ {{ kind = "quarter", angle_deg = {w + a[2]!r}, '
+            lines.append(f'[states.m{q}{lab}]\nplates = [ '
+                         f'{{ kind = "quarter", angle_deg = {w + a[2]!r}, '
                          f'retardance_deg = {90 + r[2]!r} }}, {{ kind = "half", '
                          f'angle_deg = {h + a[3]!r}, retardance_deg = {180 + r[3]!r} }} ]')
     return "\n".join(lines) + "\n"

@@ -185,8 +185,8 @@ def read_bench(path) -> dict:
 
     def data(ds):
         if h5py.check_string_dtype(ds.dtype) is not None:
-            return np.array([v.decode() if isinstance(v, bytes) else v for v in ds[...].reshape(-1)],
-                            dtype=object).reshape(ds.shape)
+            values = [v.decode() if isinstance(v, bytes) else v for v in ds[...].reshape(-1)]
+            return np.array(values, dtype=object).reshape(ds.shape)
         return ds[...]
 
     with h5py.File(path, "r") as f:

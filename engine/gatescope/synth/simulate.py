@@ -250,7 +250,8 @@ def acquisition(channel: Channel, *, shots: float, prep_set=LABEL_SETS["pauli6"]
     rho = _products(single_prep, n)
     eff = _products(single_meas, n)
     jp = channel.choi.reshape(d, d, d, d).transpose(0, 2, 1, 3).reshape(d * d, d * d)
-    table = (rho.reshape(rho.shape[0], -1) @ jp @ eff.transpose(0, 2, 1).reshape(eff.shape[0], -1).T).real
+    effects = eff.transpose(0, 2, 1).reshape(eff.shape[0], -1)
+    table = (rho.reshape(rho.shape[0], -1) @ jp @ effects.T).real
     preps = _product_labels(prep_set, n)
     meass = _product_labels(meas_set, n)
     n_rows = len(preps) * len(meass)
@@ -262,7 +263,8 @@ def acquisition(channel: Channel, *, shots: float, prep_set=LABEL_SETS["pauli6"]
         background = accidental_background([singles] * detectors, window_ns * 1e-9, secs)
     return Acquisition(
         prep=tuple(p for p in preps for _ in meass), meas=tuple(m for _ in preps for m in meass),
-        probabilities=np.maximum(table, 0.0).reshape(-1), rate=source_rate(channel, shots) / seconds,
+        probabilities=np.maximum(table, 0.0).reshape(-1),
+        rate=source_rate(channel, shots) / seconds,
         seconds=secs, background=background, detectors=detectors, lab=channel.lab)
 
 
