@@ -18,10 +18,10 @@ PACKAGE = Path(__file__).resolve().parents[1] / "engine" / "gatescope"
 TESTS = Path(__file__).resolve().parent
 
 #: The top level, in data-flow order (a module may import those before it).
-CORE = ["errors", "options", "fileio", "provenance", "progress", "parallel", "conventions",
+CORE = ["errors", "options", "fileio", "checksum", "resources", "provenance", "progress", "parallel", "conventions",
         "channels", "kernels", "reader", "model", "likelihood", "projection", "estimators",
-        "merit", "intervals", "bootstrap", "diagnostics", "result_file", "result", "pipeline",
-        "summary", "__init__"]
+        "merit", "intervals", "bootstrap", "diagnostics", "checks", "result_file", "result", "pipeline",
+        "summary", "export", "__init__"]
 #: Capabilities, in the order they may build on each other.
 CAPABILITIES = ["synth", "batch", "report", "bench"]
 #: The entry points, above everything.
@@ -118,7 +118,7 @@ NO_OWN_TESTS = {
                           "of every estimator's Fit",
 }
 #: Test modules that are not the mirror of one module (beside reference/ and scenarios/).
-EXTRA_TESTS = {"estimators/test_battery.py", "test_layout.py"}
+EXTRA_TESTS = {"estimators/test_battery.py", "test_layout.py", "test_fuzz.py"}
 
 
 def test_every_module_has_its_test_module():

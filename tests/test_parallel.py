@@ -135,3 +135,26 @@ def test_an_unreachable_scheduler_is_an_input_error(monkeypatch):
     monkeypatch.setattr(parallel, "DASK_CONNECT_TIMEOUT", 1)      # a closed port: fail fast
     with pytest.raises(InputError, match="option --dask: cannot reach a dask scheduler"):
         parallel.Runner(address="tcp://127.0.0.1:1")
+
+
+def test_the_point_fit_runs_with_one_blas_thread_and_restores_them(make_experiment, monkeypatch):
+    # a reproducer: with duplicated rows on a busy machine the linear-inversion start's
+    # BLAS threads oversubscribed the cores (5 s became 5 min)
+    import gatescope as gs
+    from gatescope import parallel, pipeline
+
+    before = parallel.blas_thread_counts()
+    if not before:
+        pytest.skip("no OpenBLAS found in this process")
+    seen = []
+    real = pipeline.estimate
+
+    def watching(*a, **k):
+        seen.append(parallel.blas_thread_counts())
+        return real(*a, **k)
+
+    monkeypatch.setattr(pipeline, "estimate", watching)
+    exp, _ = make_experiment("H", shots=100, n_qubits=1)
+    gs.fit(exp, "lin")
+    assert seen == [[1] * len(before)]
+    assert parallel.blas_thread_counts() == before

@@ -131,6 +131,82 @@ def test_unknown_method_or_estimator_option_is_an_input_error(make_experiment):
         gs.fit(exp, "lin", opt_tol=1e-6)
 
 
+# -- the first run: a notice while the kernels compile; the fit's seconds exclude it ------
+
+def test_the_compile_notice_comes_first_and_the_estimator_runs_after(make_experiment, monkeypatch,
+                                                                    tmp_path):
+    import io
+
+    from gatescope import kernels, pipeline
+
+    exp, _ = make_experiment("H", shots=100, n_qubits=1)
+    events = []
+    stream = io.StringIO()
+    marker = tmp_path / "cache" / "warm"
+    monkeypatch.setattr(pipeline, "warm_marker", lambda model, method: marker)   # a first run
+    monkeypatch.setattr(pipeline, "NOTICE_AFTER_SECONDS", 0.0)
+    counter = iter(range(0, 100, 7))                      # "compiled" 7 signatures meanwhile
+    monkeypatch.setattr(kernels, "compiled_in_this_process", lambda: next(counter))
+    real_compile, real_estimate = pipeline.compile_kernels, pipeline.estimate
+
+    def compile_(model, method="mle", notify=True, stream_=None):
+        events.append("compile")
+        return real_compile(model, method, notify=notify, stream=stream)
+
+    def estimate_(*a, **k):
+        events.append("warm-up" if k.get("maxiter") == pipeline.WARM_UP_ITERATIONS else "estimate")
+        return real_estimate(*a, **k)
+
+    monkeypatch.setattr(pipeline, "compile_kernels", compile_)
+    monkeypatch.setattr(pipeline, "estimate", estimate_)
+    res = gs.fit(exp, progress=True)
+    assert stream.getvalue() == pipeline.COMPILE_NOTICE + "\n"
+    # without a finished warm-up a few iterations compile the estimator's kernels first
+    assert events == ["compile", "warm-up", "estimate"]
+    assert marker.exists()
+    assert res.provenance["compile_seconds"] >= 0
+    assert res.seconds < res.provenance["wall_seconds"]
+
+
+def test_no_notice_and_no_warm_up_after_a_first_run(make_experiment, monkeypatch, tmp_path):
+    import io
+
+    from gatescope import pipeline
+    from gatescope.model import build_model
+
+    exp, _ = make_experiment("H", shots=100, n_qubits=1)
+    marker = tmp_path / "warm"
+    marker.touch()
+    monkeypatch.setattr(pipeline, "warm_marker", lambda model, method: marker)
+    monkeypatch.setattr(pipeline, "NOTICE_AFTER_SECONDS", 0.0)
+    monkeypatch.setattr(pipeline, "estimate", lambda *a, **k: pytest.fail("warm-up ran"))
+    stream = io.StringIO()
+    assert pipeline.compile_kernels(build_model(exp), stream=stream) is None
+    assert stream.getvalue() == ""
+
+
+@pytest.mark.slow
+def test_a_first_run_says_it_compiles_and_keeps_compilation_out_of_seconds(tmp_path):
+    # a reproducer: the first fit after installing spent ~20 s compiling without a word
+    # (nothing at all with stderr not on a terminal) and stored that time as `seconds`
+    import os
+    import subprocess
+    import sys
+
+    exp, _ = simulated_experiment(tmp_path / "data", "CZ+depolarizing:0.05", shots=500)
+    out = tmp_path / "r.h5"
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "empty-cache"))
+    r = subprocess.run([sys.executable, "-m", "gatescope", "fit", str(exp.path), "-o", str(out)],
+                       capture_output=True, text=True, env=env)
+    assert r.returncode == 0, r.stderr
+    assert r.stderr.splitlines()[0] == "compiling numerical kernels, first run only, about 20 s"
+    res = gs.load_result(out)
+    compiled = res.provenance["compile_seconds"]
+    assert compiled > 10 * res.seconds                  # compiling takes seconds, this fit ~0.1 s
+    r = subprocess.run([sys.executable, "-m", "gatescope", "fit", str(exp.path), "-o", str(out),
+                        "--force"], capture_output=True, text=True, env=env)
+    assert "compiling" not in r.stderr
+    assert "compile_seconds" not in gs.load_result(out).provenance
 def test_fit_of_a_state_experiment_fills_every_state_figure(make_state_experiment):
     # a two-qubit pair source: every state figure, with an interval, from one fit
     import warnings

@@ -109,6 +109,48 @@ BAD_INPUTS = [
          file="toml", line=5, key="states.Nothing.vector", words=("zero",)),
     case("unknown-plate-kind", toml_1q('[states.Hmis]\nplates = [ { kind = "full", angle_deg = 0.4 } ]\n'),
          GOOD_1Q, file="toml", line=5, key="states.Hmis.plates", words=("full",)),
+    # -- common lab mistakes: the message says how to fix them
+    case("semicolon-separated", toml_1q(), "prep;meas;counts\nH;H;5\n",
+         file="csv", line=1, words=("semicolons", "comma")),
+    case("tab-separated", toml_1q(), "prep\tmeas\tcounts\nH\tH\t5\n",
+         file="csv", line=1, words=("tabs", "comma")),
+    case("thousands-separator", toml_1q(), "prep,meas,counts\nH,H,5\nH,V,1,044\n",
+         file="csv", line=3, words=("thousands separator", "1044")),
+    case("quoted-thousands-separator", toml_1q(), 'prep,meas,counts\nH,H,5\nH,V,"1,044"\n',
+         file="csv", line=3, words=("thousands separator", "1044")),
+    case("arabic-indic-digits", toml_1q(), "prep,meas,counts\nH,H,5\nH,V,\u0661\u0662\n",
+         file="csv", line=3, words=("ASCII",)),
+    case("fullwidth-digits", toml_1q(), "prep,meas,counts\nH,H,5\nH,V,\uff11\uff12\n",
+         file="csv", line=3, words=("ASCII",)),
+    case("lower-case-label-suggests", toml_1q(), "prep,meas,counts\nH,H,5\nh,V,3\n",
+         file="csv", line=3, words=("case-sensitive", "did you mean 'H'?")),
+    case("two-qubit-label-in-one-qubit-file", toml_1q(), "prep,meas,counts\nH,H,5\nHH,V,3\n",
+         file="csv", line=3, words=("names 2 qubits", "has 1 qubit", "'qubits'")),
+    case("three-qubit-label-in-two-qubit-file", toml_2q(), "prep,meas,counts\nHHH,HH,5\n",
+         file="csv", line=2, words=("names 3", "has 2 qubits", "'qubits'")),
+    case("group-column-without-per-group", toml_1q(), "prep,meas,counts,group\nH,H,5,a\n",
+         file="csv", line=1, words=("group", "per-group")),
+    case("input-rate-of-trace-preserving-fit", toml_1q("input_rate = 100.0\n"), GOOD_1Q,
+         file="toml", line=4, key="input_rate", words=("decreasing",)),
+    case("unbalanced-quote", toml_1q(), 'prep,meas,counts\nH,H,5\n"H,V,3\nD,D,4\nA,A,5\n',
+         file="csv", line=3, words=("quote",)),
+    case("cell-over-field-limit", toml_1q(), "prep,meas,counts\nH,H,5\nH,V," + "1" * 140_000 + "\n",
+         file="csv", line=3, words=("longer than",)),
+    case("toml-nested-5000-deep", toml_1q("x = " + "[" * 5000 + "]" * 5000 + "\n"), GOOD_1Q,
+         file="toml", words=("nested",)),
+    case("plate-kind-is-a-list", toml_1q('[states.Q]\nplates = [{ kind = ["half"], angle_deg = 1 }]\n'),
+         GOOD_1Q, file="toml", line=5, key="states.Q.plates", words=("plate kind",)),
+    case("plate-kind-is-a-table", toml_1q('[states.Q]\nplates = [{ kind = { a = 1 }, angle_deg = 1 }]\n'),
+         GOOD_1Q, file="toml", line=5, key="states.Q.plates", words=("plate kind",)),
+    case("nul-byte-in-counts-path", 'qubits = 1\ncounts = "coun\\u0000ts.csv"\n', GOOD_1Q,
+         file="toml", line=2, key="counts", words=("NUL",)),
+    case("target-gate-in-lower-case", toml_2q('target = "cnot"\n'), "prep,meas,counts\nHH,HH,5\n",
+         file="toml", line=4, key="target", words=("did you mean 'CNOT'?",)),
+    case("efficiency-1e300", toml_1q(), "prep,meas,counts,efficiency\nH,H,5,1\nH,V,5,1e300\n",
+         file="csv", line=3, words=("efficiency", "unit mistake")),
+    case("input-rate-1e308", 'qubits = 1\ncounts = "counts.csv"\nnormalization = "global"\n'
+         'trace = "decreasing"\ninput_rate = 1e308\n', GOOD_1Q,
+         file="toml", line=5, key="input_rate", words=("unit mistake",)),
     # -- state experiments (kind = "state"; README, "State tomography")
     case("prep-column-in-a-state", toml_state(), "prep,meas,counts\nHH,HH,5\n",
          file="csv", line=1, words=("'prep'", "state")),
@@ -379,6 +421,77 @@ def test_underscored_numbers_are_rejected(tmp_path):
         gs.read_experiment(path)
 
 
+# -- files that are not what they should be ------------------------------------------
+
+@pytest.mark.parametrize("content, words", [
+    (np.array(1.0), "0-dimensional"),
+    (np.array([["a", "b"], ["c", "d"]]), "not numbers"),
+    (np.zeros((2, 2), dtype=[("a", "f8"), ("b", "i4")]), "not numbers"),
+    ("npz", ".npz archive"),
+], ids=["0-d", "strings", "structured", "npz"])
+def test_a_target_file_that_is_not_a_numeric_matrix_is_an_input_error(tmp_path, content, words):
+    upath = tmp_path / "u.npy"
+    if isinstance(content, str):
+        with open(upath, "wb") as fh:                     # an archive under a .npy name
+            np.savez(fh, u=np.eye(2))
+    else:
+        np.save(upath, content)
+    path = write_case(tmp_path, toml_1q('target = { unitary = "u.npy" }\n'), GOOD_1Q)
+    with pytest.raises(gs.InputError) as info:
+        gs.read_experiment(path)
+    assert info.value.key == "target.unitary" and words in str(info.value)
+
+
+@pytest.mark.parametrize("kind", ["fifo", "device", "folder"])
+def test_data_paths_that_are_not_regular_files_are_refused_without_reading(tmp_path, kind):
+    # reproducers: a FIFO as counts file hung for ever, /dev/zero filled the memory. The
+    # read runs in a child process with a memory limit and a time limit, so that a
+    # regression fails this test instead of hanging the suite or the machine.
+    import os
+
+    if kind == "fifo":
+        os.mkfifo(tmp_path / "counts.csv")
+        name = "counts.csv"
+    elif kind == "device":
+        name = "/dev/zero"
+    else:
+        (tmp_path / "counts.csv").mkdir()
+        name = "counts.csv"
+    path = write_case(tmp_path, f'qubits = 1\ncounts = "{name}"\n', None)
+    script = ("import resource, sys\n"
+              "resource.setrlimit(resource.RLIMIT_AS, (2 << 30, 2 << 30))\n"
+              "import gatescope as gs\n"
+              "try:\n    gs.read_experiment(sys.argv[1])\n"
+              "except gs.InputError as exc:\n    print(exc)\n")
+    try:
+        out = subprocess.run([sys.executable, "-c", script, str(path)], capture_output=True,
+                             text=True, timeout=60)
+    except subprocess.TimeoutExpired:
+        pytest.fail("reading the counts file did not end")
+    assert out.returncode == 0, out.stderr
+    words = "is a folder" if kind == "folder" else "not a regular file"
+    assert words in out.stdout
+
+
+def test_an_experiment_folder_is_read_as_its_experiment_file(tmp_path):
+    path = write_case(tmp_path / "bench", toml_1q(), GOOD_1Q)
+    exp = gs.read_experiment(tmp_path / "bench")
+    assert exp.path == path and exp.n_rows == 3
+    with pytest.raises(gs.InputError, match="without an experiment.toml"):
+        gs.read_experiment(tmp_path)
+
+
+def test_huge_state_vector_is_normalised_not_zeroed(tmp_path):
+    # |1e300|^2 overflows: the state must still be H, not a zero matrix
+    extra = '[states.Big]\nvector = ["1e300", "0"]\n'
+    exp = read(tmp_path, toml_1q(extra), "prep,meas,counts\nBig,H,5\n")
+    np.testing.assert_allclose(exp.prep_states[0], proj(KET["H"]), atol=0)
+
+
+def test_every_row_knows_its_physical_line(tmp_path):
+    # header = line 1; blank lines and a quoted cell with a comma do not shift the numbers
+    exp = read(tmp_path, toml_2q(), 'prep,meas,counts\nHH,HH,5\n\n\n"H,V",HH,1\nVV,VV,3\n')
+    assert exp.lines.tolist() == [2, 5, 6]
 def test_conditions_are_free_names_of_numbers_and_short_strings(tmp_path):
     exp = read(tmp_path, toml_1q('[conditions]\ndelay_ps = 120\npump_mW = 40.5\nrun = "night 3"\n'
                                  '"beam splitter" = "BS-2"\nqubits = 7\n'), GOOD_1Q)

@@ -8,6 +8,7 @@ import datetime as dt
 import hashlib
 import importlib.util
 import itertools
+from pathlib import Path
 
 import gatescope as gs
 import h5py
@@ -131,7 +132,7 @@ def test_root_attributes(cz_fit):
     _, _, path = cz_fit
     with h5py.File(path, "r") as f:
         assert text(f.attrs["format"]) == "gatescope.result"
-        assert int(f.attrs["format_version"]) == 1
+        assert int(f.attrs["format_version"]) == 2
         created = dt.datetime.fromisoformat(text(f.attrs["created_utc"]))
         assert created.utcoffset() == dt.timedelta(0)
         assert abs((dt.datetime.now(dt.timezone.utc) - created).total_seconds()) < 24 * 3600
@@ -246,7 +247,7 @@ def test_diagnostics_group_shapes(cz_fit):
 
 @pytest.mark.parametrize("attr, value, words", [
     ("format", "someone.else", "not a gatescope.result file"),
-    ("format_version", 99, "format_version 99 is not supported"),
+    ("format_version", 99, "is 99; this gatescope reads format versions 1, 2 .the file is newer"),
 ])
 def test_files_of_another_format_or_version_are_refused(cz_fit, tmp_path, attr, value, words):
     _, res, _ = cz_fit
@@ -272,6 +273,185 @@ def test_origin_is_recorded(cz_fit):
         assert text(f.attrs["origin"]) == "fit"
 
 
+# -- a self-describing file (format 2) ---------------------------------------------------
+
+FORMAT1 = Path(__file__).resolve().parent / "data" / "format1"
+
+
+def test_the_estimate_states_its_conventions(cz_fit):
+    _, _, path = cz_fit
+    from gatescope.conventions import pauli_labels
+
+    with h5py.File(path, "r") as f:
+        est = f["estimate"]
+        assert "input factor first" in text(est["choi"].attrs["convention"])
+        assert "Tr_out J = I" in text(est["choi"].attrs["convention"])
+        for name in ("chi", "ptm"):
+            assert "I < X < Y < Z" in text(est[name].attrs["pauli_order"])
+            assert [text(x) for x in est[name].attrs["pauli_labels"]] == pauli_labels(2)
+            assert "qubit 1" in text(est[name].attrs["qubit_order"])
+        assert "P_i Phi(P_j)" in text(est["ptm"].attrs["convention"])
+        assert text(est.attrs["status"]) == "converged"
+
+
+def test_dimensioned_datasets_carry_units(full_1q, cz_result):
+    _, _, path = full_1q
+    with h5py.File(path, "r") as f:
+        counts = f["input/counts"]
+        assert text(counts["seconds"].attrs["units"]) == "s"
+        assert text(counts["background"].attrs["units"]) == "counts"
+        assert text(counts["counts"].attrs["units"]) == "counts"
+        assert text(f["estimate/intensities"].attrs["units"]) == "counts/s"
+        assert text(f["diagnostics/expected_counts"].attrs["units"]) == "counts"
+        for name in f["figures"]:
+            assert text(f["figures"][name].attrs["units"]) == "1"
+            assert text(f["figures"][name].attrs["description"])
+    with h5py.File(cz_result[1], "r") as f:
+        for name in ("local_phases_before", "local_phases_after"):
+            assert text(f["figures_extra"][name].attrs["units"]) == "rad"
+
+
+def test_the_seed_is_absent_without_random_numbers_and_an_integer_with_them(tmp_path, full_1q,
+                                                                          make_experiment):
+    exp, _ = make_experiment("H", shots=200, n_qubits=1)
+    path = gs.fit(exp).save(tmp_path / "r.h5")
+    with h5py.File(path, "r") as f:
+        assert "seed" not in f["provenance"].attrs
+    with h5py.File(full_1q[2], "r") as f:
+        seed = f["provenance"].attrs["seed"]
+        assert isinstance(seed, np.integer) and int(seed) == 7
+
+
+def test_warnings_are_stored_one_string_each(tmp_path, make_experiment):
+    exp, _ = make_experiment("CNOT+depolarizing:0.05", shots=800, prep=("H", "V"), meas=("H", "V"))
+    with pytest.warns(gs.GatescopeWarning):
+        res = gs.fit(exp)
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r") as f:
+        stored = [text(x) for x in f["warnings"][()]]
+        assert f["warnings"].ndim == 1 and h5py.check_string_dtype(f["warnings"].dtype).encoding == "utf-8"
+        assert not f["figures/process_fidelity"].attrs["determined"]
+        assert f["figures/truth_table_fidelity"].attrs["determined"]
+    assert stored == list(res.warnings) and stored[0].startswith("[undetermined] ")
+    back = gs.load_result(path)
+    assert back.warnings == res.warnings
+    assert not back.figures["process_fidelity"].determined
+
+
+def test_rows_keep_their_csv_lines_and_outliers_their_lines(tmp_path, make_experiment):
+    exp, _ = make_experiment("CZ", shots=1000, seed=3)
+    text_csv = exp.counts_path.read_text().splitlines()
+    # a blank line after the header, and one row whose counts do not fit
+    bad = text_csv[5].split(",")
+    bad[2] = str(int(bad[2]) + 400)
+    lines = [text_csv[0], ""] + text_csv[1:5] + [",".join(bad)] + text_csv[6:]
+    exp.counts_path.write_text("\n".join(lines) + "\n")
+    exp = gs.read_experiment(exp.path)
+    with pytest.warns(gs.GatescopeWarning):
+        res = gs.fit(exp)
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r") as f:
+        line = f["input/counts/line"][()]
+        rows = f["diagnostics/outlier_rows"][()]
+        outlier_lines = f["diagnostics/outlier_lines"][()]
+    assert line[0] == 3                                   # header 1, blank line 2
+    assert 7 in outlier_lines.tolist()                    # the editor's line of the bad row
+    np.testing.assert_array_equal(outlier_lines, line[rows])
+
+
+# -- files of format 1 stay readable -----------------------------------------------------
+
+def test_format_1_files_are_read(tmp_path):
+    # written by the format-1 writer (gatescope 0.1.0): an mle fit with a bootstrap, a lin fit
+    boot = gs.load_result(FORMAT1 / "fit_1q_bootstrap.h5")
+    assert boot.bootstrap.samples == 12 and boot.provenance["seed"] == 3
+    assert boot.warnings == () and boot.status is None and "line" not in boot.counts_columns
+    assert boot.diagnostics.outlier_lines is None
+    lin = gs.load_result(FORMAT1 / "fit_2q_lin.h5")
+    assert "seed" not in lin.provenance                   # format 1 wrote "" for none
+    assert lin.method == "lin" and np.isinf(lin.log_likelihood)
+    # the format-1 writer with states and conditions: a two-qubit state with a bootstrap,
+    # a process with [conditions]
+    state = gs.load_result(FORMAT1 / "state_2q_bootstrap.h5")
+    assert state.kind == "state" and state.rho.shape == (4, 4) and state.choi is None
+    assert state.bootstrap.samples == 8 and "state_fidelity" in state.figures
+    conditioned = gs.load_result(FORMAT1 / "fit_2q_conditions.h5")
+    assert conditioned.conditions == {"delay_ps": 120, "run": "night 3"}
+    again_state = gs.load_result(state.save(tmp_path / "state.h5"))
+    np.testing.assert_array_equal(again_state.rho, state.rho)
+    # saved again, it becomes a format-2 file with the same content
+    again = gs.load_result(lin.save(tmp_path / "again.h5"))
+    np.testing.assert_array_equal(again.choi, lin.choi)
+    with h5py.File(tmp_path / "again.h5", "r") as f:
+        assert int(f.attrs["format_version"]) == 2 and "checksums" in f
+
+
+# -- damaged files: an InputError naming the part, never a traceback --------------------
+
+def damage(path, change):
+    with h5py.File(path, "r+") as f:
+        change(f)
+
+
+@pytest.mark.parametrize("change, part, words", [
+    (lambda f: f.__delitem__("estimate"), "/estimate missing", "checksums"),
+    (lambda f: f["input/counts/counts"].__setitem__(0, 6_000_000_000), "/input/counts/counts",
+     "does not match its checksums"),
+    (lambda f: f["figures/process_fidelity"].attrs.__setitem__("ci_low", 0.1), "/figures/process_fidelity",
+     "does not match its checksums"),
+], ids=["group-removed", "counts-altered", "attribute-altered"])
+def test_a_changed_file_is_refused_naming_the_part(cz_fit, tmp_path, change, part, words):
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    damage(path, change)
+    with pytest.raises(gs.InputError, match=words) as info:
+        gs.load_result(path)
+    assert part in str(info.value)
+
+
+@pytest.mark.parametrize("change, part, words", [
+    (lambda f: f.attrs.__setitem__("format_version", "1"), "/@format_version", "expected a whole number"),
+    (lambda f: f.__delitem__("estimate/chi"), "/estimate/chi", "missing"),
+    (lambda f: (f.__delitem__("estimate/choi"), f["estimate"].create_dataset("choi", data=np.zeros((3, 5)))),
+     "/estimate/choi", "not the Choi matrix"),
+    (lambda f: f["estimate"].attrs.__setitem__("iterations", "many"), "/estimate/@iterations",
+     "expected a whole number"),
+    (lambda f: f["model/prep_states"].__setitem__((0, 0, 0), np.nan), "/model/prep_states",
+     "not finite"),
+], ids=["version-as-text", "chi-missing", "choi-3x5", "iterations-as-text", "nan-state"])
+def test_a_malformed_unchecked_file_is_refused_naming_the_part(cz_fit, tmp_path, change, part, words):
+    # verify=False reads past the checksums, to check the layout checks themselves
+    from gatescope import result_file
+
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    damage(path, change)
+    with pytest.raises(gs.InputError, match=words) as info:
+        result_file.read(path, verify=False)
+    assert info.value.key == part
+
+
+def test_a_truncated_file_is_called_truncated(cz_fit, tmp_path):
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    data = path.read_bytes()
+    path.write_bytes(data[: len(data) // 2])
+    with pytest.raises(gs.InputError) as info:
+        gs.load_result(path)
+    assert "truncated" in info.value.message and "not an HDF5 file" not in info.value.message
+
+
+def test_byte_flips_in_the_data_are_found(cz_fit, tmp_path):
+    # flip one byte inside the stored Choi matrix: the file still opens, its content differs
+    _, res, _ = cz_fit
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r") as f:
+        offset = f["estimate/choi"].id.get_offset()
+    raw = bytearray(path.read_bytes())
+    raw[offset + 3] ^= 0x40
+    path.write_bytes(bytes(raw))
+    with pytest.raises(gs.InputError, match="/estimate/choi changed"):
+        gs.load_result(path)
 def test_conditions_group_round_trip(tmp_path):
     folder = tmp_path / "data"
     exp, _ = simulated_experiment(folder, "H", shots=200, seed=2, n_qubits=1)
@@ -362,6 +542,10 @@ def test_a_file_without_kind_is_a_process(cz_fit, tmp_path):
     with h5py.File(path, "r+") as f:
         assert text(f.attrs["kind"]) == "process"
         del f.attrs["kind"]
-    back = gs.load_result(path)
+    with pytest.raises(gs.InputError, match="checksums"):       # an altered file is refused
+        gs.load_result(path)
+    from gatescope import result_file
+
+    back = gs.Result(**result_file.read(path, verify=False))   # its layout is read as before
     assert back.kind == "process" and back.rho is None
     np.testing.assert_array_equal(back.choi, res.choi)

@@ -43,13 +43,12 @@ default, ``normal``, and why).
 from __future__ import annotations
 
 import time
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
 from .channels import choi_to_chi, choi_to_ptm
-from .errors import GatescopeWarning, InputError, NumericalError
+from .errors import InputError, NumericalError, warn
 from .estimators import MAXIMUM_LIKELIHOOD, Fit, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL, INTERVALS
@@ -164,6 +163,8 @@ class Refitter:
                            **self.options)
         except (NumericalError, np.linalg.LinAlgError) as exc:
             return {"ok": False, "error": f"{type(exc).__name__}: {exc}"}
+        if not np.all(np.isfinite(fit.choi)):
+            return {"ok": False, "error": "the refit's estimate is not finite"}
         figs = compute_figures(fit.choi, self.target, kind=self.model.kind)
         out = {"ok": True, "converged": bool(fit.converged),
                "figures": np.array([figs[name] for name in self.names], dtype=float)}
@@ -365,7 +366,7 @@ def run_bootstrap(model: MeasurementModel | StateModel, point: Fit, target, *, s
     if message:
         if errors:
             message += f" (first error: resample {errors[0][0]}: {errors[0][1]})"
-        warnings.warn(message, GatescopeWarning, stacklevel=2)
+        warn("refits", message, stacklevel=2)
     # Near the boundary the refits of an mle sit below it by more than their spread even
     # when the estimate itself is nearly unbiased (the resampled world is purer than the
     # real one); the normal interval does not use that bias and keeps its coverage
@@ -377,10 +378,10 @@ def run_bootstrap(model: MeasurementModel | StateModel, point: Fit, target, *, s
         advice = (" the mle estimator is much less biased near pure processes"
                   if method not in MAXIMUM_LIKELIHOOD
                   else " more counts reduce it")
-        warnings.warn(f"the bootstrap shows a bias larger than the spread for {listed}: the "
-                      f"estimate sits at the boundary of the physical set or the estimator is "
-                      f"strongly biased here, and the intervals of these figures may not reach "
-                      f"their level;{advice}", GatescopeWarning, stacklevel=2)
+        warn("bias", f"the bootstrap shows a bias larger than the spread for {listed}: the "
+                     f"estimate sits at the boundary of the physical set or the estimator is "
+                     f"strongly biased here, and the intervals of these figures may not reach "
+                     f"their level;{advice}", stacklevel=2)
     spread = ({"rho_std": acc.std("rho")} if model.kind == "state" else
               {"choi_std": acc.std("choi"), "chi_std": acc.std("chi"),
                "ptm_std": acc.std("ptm").real})

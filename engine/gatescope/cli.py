@@ -8,12 +8,14 @@ into exit status 2 (bad input or usage) — anything else unexpected is 1.
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
 import warnings
 from pathlib import Path
 
 from . import options
-from .errors import GatescopeWarning, InputError
+from .errors import GatescopeWarning, InputError, NumericalError
+from .errors import printable as clean
 
 DEMO_DATASET = "cz_bench_b"
 DEMO_OUTPUT = "gatescope-demo"
@@ -27,6 +29,24 @@ class _Parser(argparse.ArgumentParser):
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     sys.stderr.write(f"warning: {message}\n")
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, turned into the same unwinding as Ctrl-C: the parallel runner stops its
+    workers, a file being written is removed, and the command exits with status 1."""
+
+
+def _terminate(signum, frame):
+    raise Terminated()
+
+
+def _typed(argv, *spellings) -> str:
+    """The spelling of an option the user typed (``-o`` or ``--output``), for messages."""
+    for arg in argv:
+        for spelling in spellings:
+            if arg == spelling or arg.startswith(spelling + "="):
+                return spelling
+    return spellings[-1]
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -53,12 +73,20 @@ def build_parser() -> argparse.ArgumentParser:
                    help=f"bootstrap interval construction (default {DEFAULT_INTERVAL})")
     f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
-    f.add_argument("--quiet", action="store_true", help="no progress bar")
+    f.add_argument("--quiet", action="store_true",
+                   help="no progress, no summary: print the path of the result file only")
+    f.add_argument("--force", action="store_true", help="replace an existing result file")
+    f.add_argument("--json", action="store_true",
+                   help="print the figures, the fit's status and the warnings as JSON")
     f.add_argument("--diamond", action="store_true",
                    help="also compute the diamond distance to the target (needs the sdp extra, cvxpy)")
 
     s = sub.add_parser("show", help="print a summary of a result file")
     s.add_argument("result", help="result.h5")
+    s.add_argument("--json", action="store_true", help="print the summary as JSON")
+    s.add_argument("--csv", metavar="FILE", default=None,
+                   help="also write the figures table to FILE (CSV, for spreadsheets)")
+    s.add_argument("--force", action="store_true", help="replace an existing --csv FILE")
 
     m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel or state")
     src = m.add_mutually_exclusive_group(required=True)
@@ -82,6 +110,8 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--seed", type=int, default=None)
     m.add_argument("--title", default=None)
     m.add_argument("-o", "--output", required=True, metavar="DIR")
+    m.add_argument("--force", action="store_true",
+                   help="replace the files of an earlier simulation in DIR")
 
     pl = sub.add_parser(
         "plan", help="write the run sheet: wave-plate angles of every (prep, meas) pair",
@@ -174,27 +204,48 @@ def main(argv=None) -> int:
         return 2
     warnings.showwarning = _show_warning
     warnings.simplefilter("always", GatescopeWarning)
-    command_line = "gatescope " + " ".join(sys.argv[1:] if argv is None else argv)
+    words = sys.argv[1:] if argv is None else list(argv)
+    args.argv = words
+    command_line = "gatescope " + " ".join(words)
+    try:
+        previous = signal.signal(signal.SIGTERM, _terminate)
+    except ValueError:                             # not the main thread: leave signals alone
+        previous = None
     try:
         return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
                 "demo": cmd_demo, "batch": cmd_batch, "bench": cmd_bench}[args.command](
                     args, command_line)
     except InputError as exc:
-        print(f"gatescope: error: {exc}", file=sys.stderr)
+        print(f"gatescope: error: {clean(exc)}", file=sys.stderr)
         return 2
+    except NumericalError as exc:
+        print(f"gatescope: numerical failure: {exc}", file=sys.stderr)
+        return 1
+    except Terminated:
+        print("gatescope: terminated (SIGTERM)", file=sys.stderr)
+        return 1
     except KeyboardInterrupt:
         print("gatescope: interrupted", file=sys.stderr)
         return 1
     except BrokenPipeError:                        # e.g. `gatescope show r.h5 | head`
         sys.stderr.close()
         return 0
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 # --------------------------------------------------------------------------
 
+def _print_warnings_to_stderr(texts) -> None:
+    for text in texts:
+        print(f"warning: {clean(text)}", file=sys.stderr)
+
+
 def cmd_fit(args, command_line) -> int:
+    from .fileio import check_output
     from .pipeline import check_fit_options, fit
-    from .reader import read_experiment
+    from .reader import input_files, read_experiment
 
     check_fit_options(method=args.method, bootstrap=args.bootstrap,
                       bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
@@ -202,19 +253,59 @@ def cmd_fit(args, command_line) -> int:
                       command_line=True)
     exp = read_experiment(args.experiment)
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
-    result = fit(exp, args.method, bootstrap=args.bootstrap, bootstrap_kind=args.bootstrap_kind,
-                 ci_level=args.ci_level, interval=args.interval, seed=args.seed, workers=args.workers,
-                 progress=not args.quiet, command_line=command_line, diamond=args.diamond)
+    check_output(out, force=args.force, inputs=tuple(input_files(exp.path).values()),
+                 option=_typed(args.argv, "-o", "--output"))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = fit(exp, args.method, bootstrap=args.bootstrap,
+                     bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
+                     interval=args.interval, seed=args.seed, workers=args.workers,
+                     progress=not (args.quiet or args.json), command_line=command_line,
+                     diamond=args.diamond)
+    for w in caught:                               # the fit's own warnings are in the result
+        if not issubclass(w.category, GatescopeWarning):
+            _show_warning(w.message, w.category, w.filename, w.lineno)
     result.save(out)
-    print(out)
+    if args.json:
+        from .export import json_text
+
+        _print_warnings_to_stderr(result.warnings)
+        print(json_text(result, out))
+    elif args.quiet:
+        _print_warnings_to_stderr(result.warnings)
+        print(out)
+    else:
+        from .summary import fit_summary
+
+        print(fit_summary(result, out))
     return 0
 
 
 def cmd_show(args, command_line) -> int:
     from .result import load_result
+    from .result_file import describe
     from .summary import summary
 
-    print(summary(load_result(args.result)))
+    path = Path(args.result)
+    if args.csv is not None:
+        from .fileio import check_output
+
+        check_output(args.csv, force=args.force, inputs=(path,), option="--csv",
+                     what="figures table")
+    result = load_result(path)
+    if args.csv is not None:
+        from .export import figures_csv
+        from .fileio import atomic_write_text
+
+        atomic_write_text(args.csv, figures_csv(result))
+    if args.json:
+        from .export import json_text
+
+        print(json_text(result, path))
+    else:
+        print(summary(result, source=describe(path)))
+    if args.csv is not None:
+        print(f"figures table written to {args.csv}", file=sys.stderr)
     return 0
 
 
@@ -236,12 +327,22 @@ def cmd_simulate(args, command_line) -> int:
             raise InputError(str(exc), key="--noise") from None
     option = "--channel" if args.channel else "--gate"
     spec = "+".join([args.channel or args.gate] + list(args.noise))
+    _check_simulation_output(args)
     path = run_simulation(spec, Path(args.output), shots=args.shots,
                           prep=args.prep or "pauli6", meas=args.meas, seed=args.seed,
                           n_qubits=args.qubits, title=args.title, command_line=command_line,
                           spec_option=option)
     print(path)
     return 0
+
+
+def _check_simulation_output(args) -> None:
+    """An earlier simulation in the output folder is replaced only with --force."""
+    from .fileio import check_output
+
+    for name in ("experiment.toml", "counts.csv", "truth.h5"):
+        check_output(Path(args.output) / name, force=args.force,
+                     option=_typed(args.argv, "-o", "--output"), what="simulation")
 
 
 def _simulate_state(args, command_line) -> int:
@@ -256,6 +357,7 @@ def _simulate_state(args, command_line) -> int:
         except ValueError as exc:
             raise InputError(str(exc), key="--noise") from None
     spec = "+".join([args.state] + list(args.noise))
+    _check_simulation_output(args)
     path = run_state_simulation(spec, Path(args.output), shots=args.shots, meas=args.meas,
                                 seed=args.seed, n_qubits=args.qubits, title=args.title,
                                 command_line=command_line)
@@ -298,7 +400,8 @@ def cmd_demo(args, command_line) -> int:
     if source is None:
         # Not in a source checkout: regenerate the bundled data from its recipe (same seed,
         # same numbers) into the output folder.
-        print("bundled data not found beside the package; regenerating it from its recipe",
+        print("bundled data not found beside the package; regenerating it from its recipe"
+              + (f" (replacing {outdir / 'data'})" if (outdir / "data").exists() else ""),
               file=sys.stderr)
         source = run_simulation(DEMO_RECIPE["channel"], outdir / "data", shots=DEMO_RECIPE["shots"],
                                 prep="pauli6", meas="pauli6", seed=DEMO_RECIPE["seed"],
@@ -326,6 +429,8 @@ def _demo_fit(source: Path, recipe: dict, out: Path, command_line) -> None:
     from .summary import summary
 
     exp = read_experiment(source)
+    if out.exists():
+        print(f"demo: replacing {out}, the result of an earlier demo", file=sys.stderr)
     print(f"demo: fitting {source}", file=sys.stderr)
     result = fit(exp, "mle", bootstrap=recipe["bootstrap"], seed=recipe["seed"],
                  progress=True, command_line=command_line)

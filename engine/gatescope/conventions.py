@@ -116,6 +116,7 @@ def split_label(label: str, n_qubits: int, known: "set[str] | dict") -> list[str
 def density(vector: np.ndarray) -> np.ndarray:
     """|ψ><ψ| of a (not necessarily normalised) state vector."""
     v = np.asarray(vector, dtype=complex)
+    v = v / np.max(np.abs(v))            # first to order one: the norm of 1e300 overflows
     v = v / np.linalg.norm(v)
     return np.outer(v, v.conj())
 

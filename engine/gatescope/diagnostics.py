@@ -8,13 +8,12 @@ and p-values, and the rows that do not fit.
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.special import chdtrc
 
-from .errors import GatescopeWarning
+from .errors import warn
 from .estimators import Fit
 from .model import MeasurementModel
 
@@ -47,6 +46,8 @@ class Diagnostics:
     chi2_p_value: float = float("nan")
     deviance_p_value: float = float("nan")
     outlier_rows: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    #: the CSV line (header = line 1) of every outlier row; None where unknown
+    outlier_lines: np.ndarray | None = None
 
     @property
     def p_value(self) -> float:
@@ -105,8 +106,11 @@ def diagnostics(model: MeasurementModel, fit: Fit, n_determined: int) -> Diagnos
     fitted_intensities = 0 if model.fixed_intensities is not None else model.n_groups
     dof = int(model.n_rows - n_determined - fitted_intensities)
     chi2, deviance = float(np.sum(pearson**2)), float(np.sum(dev**2))
+    rows = outlier_rows(pearson, n, nu)
+    lines = model.experiment.lines
     return Diagnostics(nu, pearson, dev, chi2, deviance, dof, p_value(chi2, dof),
-                       p_value(deviance, dof), outlier_rows(pearson, n, nu))
+                       p_value(deviance, dof), rows,
+                       None if lines is None else np.asarray(lines, dtype=np.int64)[rows])
 
 
 def warn_if_poor_fit(diag: Diagnostics) -> None:
@@ -115,9 +119,13 @@ def warn_if_poor_fit(diag: Diagnostics) -> None:
     `fit` calls it for maximum-likelihood estimates only.
     """
     if diag.poor_fit:
-        warnings.warn(
-            f"the model does not describe the data (Pearson chi2 {diag.chi2:.1f}, deviance "
-            f"{diag.deviance:.1f} on {diag.dof} degrees of freedom, p < {POOR_FIT_P:g}; "
-            f"{len(diag.outlier_rows)} row(s) with |residual| > {OUTLIER_RESIDUAL:g}): check for "
-            "miscalibrated optics, drift of the source, or a wrong background", GatescopeWarning,
-            stacklevel=3)
+        lines = diag.outlier_lines if diag.outlier_lines is not None else diag.outlier_rows + 2
+        shown = ", ".join(str(int(k)) for k in np.sort(lines)[:5])
+        more = f" and {len(lines) - 5} more" if len(lines) > 5 else ""
+        where = f" (CSV line{'s' if len(lines) > 1 else ''} {shown}{more})" if len(lines) else ""
+        warn("poor-fit",
+             f"the model does not describe the data (Pearson chi2 {diag.chi2:.1f}, deviance "
+             f"{diag.deviance:.1f} on {diag.dof} degrees of freedom, p < {POOR_FIT_P:g}; "
+             f"{len(diag.outlier_rows)} row(s) with |residual| > {OUTLIER_RESIDUAL:g}{where}): "
+             "check for miscalibrated optics, drift of the source, or a wrong background",
+             stacklevel=2)

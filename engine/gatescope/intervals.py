@@ -61,11 +61,15 @@ class Figure:
     """One figure of merit: its value and, when error bars were computed, an interval.
 
     ``ci`` is (low, high) at confidence ``level`` (a fraction, e.g. 0.95).
+    ``determined`` is False for a figure the data do not determine (its value
+    is the estimator's choice among processes that fit the data equally well,
+    `gatescope.checks.undetermined_figures`).
     """
 
     value: float
     ci: tuple[float, float] | None = None
     level: float | None = None
+    determined: bool = True
 
     def __float__(self) -> float:
         return float(self.value)

@@ -581,3 +581,20 @@ def project_density_kernel(x):
         for b in range(a + 1, d):
             rho[b, a] = np.conj(rho[a, b])
     return rho
+
+
+# --------------------------------------------------------------------------
+# Compilation: the first run compiles, later processes load numba's cache
+# --------------------------------------------------------------------------
+
+def compiled_kernels() -> list:
+    """Every compiled kernel of this module (numba compiles each at its first call, then
+    caches it on disk)."""
+    from numba.core.registry import CPUDispatcher
+
+    return [v for v in globals().values() if isinstance(v, CPUDispatcher)]
+
+
+def compiled_in_this_process() -> int:
+    """Kernel signatures compiled (not loaded from the cache) by this process so far."""
+    return sum(sum(kernel.stats.cache_misses.values()) for kernel in compiled_kernels())

@@ -155,6 +155,38 @@ def blas_thread_counts() -> list[int]:
     return counts
 
 
+_SETTERS = ("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
+            "scipy_openblas_set_num_threads", "openblas_set_num_threads64_")
+_GETTERS = ("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
+            "scipy_openblas_get_num_threads", "openblas_get_num_threads64_")
+
+
+@contextlib.contextmanager
+def single_threaded_blas():
+    """Every OpenBLAS loaded in this process runs one thread inside the block; the
+    thread counts are restored after it.
+
+    The estimators' matrix products are small (d² × d² at most, or thin products
+    over the rows): extra BLAS threads bring little, and on a busy machine their
+    spinning makes a fit many times slower. Workers are single-threaded already.
+    """
+    pairs = []
+    for getter, setter in zip(_openblas_functions(_GETTERS), _openblas_functions(_SETTERS)):
+        getter.restype = ctypes.c_int
+        setter.argtypes = [ctypes.c_int]
+        setter.restype = None
+        pairs.append((setter, int(getter())))
+    if len(pairs) != len(_openblas_functions(_GETTERS)):      # a library without both
+        pairs = []
+    for setter, _ in pairs:
+        setter(1)
+    try:
+        yield
+    finally:
+        for setter, count in pairs:
+            setter(count)
+
+
 def thread_settings(_shared=None, _item=None) -> dict:
     """Thread settings seen where a task runs (a task itself, for checking workers)."""
     import numba
@@ -402,5 +434,5 @@ def _dask_client(address: str):
                          key="--dask") from None
 
 
-__all__ = ["Runner", "chunk_sizes", "limit_threads", "blas_thread_counts", "thread_settings",
-           "fork_is_safe", "THREAD_VARIABLES", "CHUNKS_PER_WORKER"]
+__all__ = ["Runner", "chunk_sizes", "limit_threads", "single_threaded_blas", "blas_thread_counts",
+           "thread_settings", "fork_is_safe", "THREAD_VARIABLES", "CHUNKS_PER_WORKER"]

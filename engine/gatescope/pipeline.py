@@ -3,29 +3,44 @@ process or a state experiment alike.
 
 Data flow, one module a step: the experiment (`reader`) → its measurement
 model (`model`) → the estimate (`estimators`) → figures of merit (`merit`)
-→ error bars (`bootstrap`) → goodness of fit (`diagnostics`) → the
-`Result` (`result`). The command line calls exactly this function.
+→ error bars (`bootstrap`) → goodness of fit (`diagnostics`) → what the
+data and the estimate can claim (`checks`) → the `Result` (`result`). The
+command line calls exactly this function. Every warning raised on the way
+is kept in the result (``Result.warnings``).
 """
 
 from __future__ import annotations
 
+import contextlib
+import hashlib
+import sys
+import tempfile
+import threading
 import time
 import warnings
+from pathlib import Path
 
 import numpy as np
 
+from . import kernels, resources
 from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import run_bootstrap
+from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
-from .errors import GatescopeWarning
+from .errors import collect_warnings, warn
 from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
 from .intervals import DEFAULT_INTERVAL
+from .likelihood import PoissonLikelihood
 from .merit import chsh_gap_warning, compute_figures
 from .model import build_model
 from .options import flag, fraction, whole
+from .options import seed as check_seed
+from .options import workers as check_workers
+from .parallel import single_threaded_blas
+from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
-from .reader import Experiment
+from .reader import Experiment, read_experiment
 from .result import Result, build_result
 
 
@@ -41,6 +56,8 @@ def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
     check_estimator_options(method, options or {}, key=name("method"))
     bootstrap = whole(bootstrap, name("bootstrap"), 0)
     fraction(ci_level, name("ci_level"))
+    check_seed(seed, name("seed"))            # recorded even without a bootstrap
+    check_workers(workers, name("workers"))
     if bootstrap:
         check_bootstrap_options(
             samples=bootstrap, kind=bootstrap_kind, workers=workers,
@@ -73,7 +90,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     workers : int, optional
         Processes for the bootstrap (default: the machine's cores).
     progress : bool
-        Report the bootstrap's progress on stderr.
+        Report on stderr: the compilation of the numerical kernels on a first run
+        (`COMPILE_NOTICE`), and the bootstrap's progress.
     interval : {"normal", "percentile", "basic", "bc"}, optional
         Construction of the bootstrap intervals (default
         `gatescope.intervals.DEFAULT_INTERVAL`, "normal"; see
@@ -85,7 +103,7 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         (mostly loading cvxpy; the fit itself takes a fraction of a
         second), about 2 s for a trace-decreasing estimate, and 2 s of
         solving from three qubits on. Not bootstrapped. A state has no
-        diamond distance: for a state experiment a `GatescopeWarning` says so.
+        diamond distance: for a state experiment a warning (code ``diamond``) says so.
     **options
         Passed to the estimator (``tol``, ``maxiter``, ...).
 
@@ -103,16 +121,128 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     check_fit_options(method=method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options)
+    with collect_warnings() as texts:
+        result = _fit(experiment, method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
+                      ci_level=ci_level, seed=seed, workers=workers, progress=progress,
+                      command_line=command_line, diamond=diamond, interval=interval,
+                      options=options)
+    result.warnings = tuple(texts)
+    return result
+
+
+#: The notice printed while the numerical kernels compile (README, "First run").
+COMPILE_NOTICE = "compiling numerical kernels, first run only, about 20 s"
+#: On a run that may compile, the notice appears once preparing takes longer than this
+#: (loading compiled kernels from numba's cache takes a fraction of it).
+NOTICE_AFTER_SECONDS = 1.5
+#: Iterations of the estimator run to compile its kernels on a first run.
+WARM_UP_ITERATIONS = 3
+
+
+def warm_marker(model, method: str) -> Path | None:
+    """The file that records a finished warm-up of ``method`` on models like ``model``
+    with this source of the kernels, this numba and this Python, beside numba's cache
+    (None when that place is unknown)."""
+    try:
+        import numba
+
+        folder = Path(kernels.compiled_kernels()[0].stats.cache_path)
+        source = Path(kernels.__file__).read_bytes()
+    except (AttributeError, IndexError, OSError):
+        return None
+    key = f"{numba.__version__} {sys.version} {method} {model.kind} {model.trace_decreasing}"
+    digest = hashlib.sha256(source + key.encode("utf-8")).hexdigest()[:16]
+    return folder / f"gatescope-warm-{digest}"
+
+
+def _surrogate(model):
+    """A one-qubit model of the same kind as ``model`` (process or state, trace preserving
+    or not), read from files as every experiment is, so that its arrays have the same
+    types: warming the estimator up on it compiles what ``model``'s fit will call, in
+    milliseconds whatever the size of ``model``."""
+    labels = ("H", "V", "D", "A", "R", "L")
+    if model.kind == "state":
+        toml = 'kind = "state"\nqubits = 1\ncounts = "counts.csv"\n'
+        rows = ["meas,counts"] + [f"{m},{10 + 3 * k}" for k, m in enumerate(labels)]
+    else:
+        toml = 'qubits = 1\ncounts = "counts.csv"\n'
+        if model.trace_decreasing:
+            toml += 'normalization = "global"\ntrace = "decreasing"\ninput_rate = 100.0\n'
+        rows = ["prep,meas,counts"] + [f"{p},{m},{10 + (3 * j + k) % 7}"
+                                       for j, p in enumerate(labels) for k, m in enumerate(labels)]
+    with tempfile.TemporaryDirectory(prefix="gatescope-warm-up-") as folder:
+        Path(folder, "experiment.toml").write_text(toml, encoding="utf-8")
+        Path(folder, "counts.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+        return build_model(read_experiment(folder))
+
+
+def compile_kernels(model, method: str = "mle", *, notify: bool = True,
+                    stream=None) -> float | None:
+    """Compile (or load from numba's cache) the kernels a fit of ``model`` by ``method`` calls.
+
+    Called before the estimator, so that the estimator's ``seconds`` measure the fit
+    alone. Unless a warm-up of this kind finished before (`warm_marker`), a few
+    iterations of the estimator on a one-qubit model of the same kind (`_surrogate`)
+    compile everything it calls, and with ``notify`` `COMPILE_NOTICE` goes to
+    ``stream`` (stderr) once that takes longer than `NOTICE_AFTER_SECONDS`. Returns the
+    seconds spent when something was compiled, else None.
+    """
+    stream = sys.stderr if stream is None else stream
+    marker = warm_marker(model, method)
+    first = marker is None or not marker.exists()
+    timer = None
+    if notify and first:
+        timer = threading.Timer(NOTICE_AFTER_SECONDS,
+                                lambda: print(COMPILE_NOTICE, file=stream, flush=True))
+        timer.start()
+    before = kernels.compiled_in_this_process()
+    t0 = time.perf_counter()
+    try:
+        centre = model.centre()
+        PoissonLikelihood(model).evaluate(centre)
+        if model.kind == "state" or model.dim <= KERNEL_MAX_DIM:
+            project_physical(model, centre)
+        if first:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                try:
+                    estimate(_surrogate(model), method, maxiter=WARM_UP_ITERATIONS)
+                except (ArithmeticError, ValueError):   # the fit itself will say what fails
+                    pass
+            if marker is not None:
+                with contextlib.suppress(OSError):
+                    marker.parent.mkdir(parents=True, exist_ok=True)
+                    marker.touch()
+    finally:
+        if timer is not None:
+            timer.cancel()
+            timer.join()
+    seconds = time.perf_counter() - t0
+    return seconds if kernels.compiled_in_this_process() > before else None
+
+
+def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
+         command_line, diamond, interval, options) -> Result:
     started = time.time()
     t0 = time.perf_counter()
+    if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
+        need = resources.fit_estimate(experiment.n_qubits, experiment.n_rows,
+                                      bootstrap=bootstrap, workers=check_workers(workers))
+        if progress:
+            print(need.text(), file=sys.stderr, flush=True)
+        resources.check_fit(need, str(experiment.path))
     model = build_model(experiment)
-    ident = model.warn_if_undetermined()
-    point = estimate(model, method, **options)
+    compile_seconds = compile_kernels(model, method, notify=progress)
+    rows = check_data(model)
+    ident = model.warn_if_undetermined(rows)
+    with single_threaded_blas():          # small products: threads only oversubscribe
+        point = estimate(model, method, **options)
+    verdict = assess_estimate(model, point, options)
     details = {}
     target = experiment.target_state if model.kind == "state" else experiment.target
     if diamond and model.kind == "state":
-        warnings.warn("diamond distance skipped: it is a figure of processes, and this is a "
-                      "state experiment", GatescopeWarning, stacklevel=2)
+        warn("diamond", "diamond distance skipped: it is a figure of processes, and this is a "
+                        "state experiment", stacklevel=2)
     values = compute_figures(point.choi, target, diamond=diamond, details=details,
                              kind=model.kind)
     boot = None
@@ -122,22 +252,29 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
-    if point.method in MAXIMUM_LIKELIHOOD:
+    no_signal = warn_about_fit(model, point, diag.dof, ident.rank)
+    if point.method in MAXIMUM_LIKELIHOOD and verdict.physical and not no_signal:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²
         # reference even for a model that fits: the test is for the ML estimate only
         warn_if_poor_fit(diag)
+    undetermined = undetermined_figures(model, rows, ident, values, no_signal=no_signal)
     prov = provenance(seed=seed, command_line=command_line, started=started,
                       wall=time.perf_counter() - t0)
+    if compile_seconds is not None:
+        prov["compile_seconds"] = float(compile_seconds)
     result = build_result(experiment, point.choi, values, details, method=point.method,
-                          converged=point.converged, iterations=point.iterations,
+                          converged=verdict.converged, iterations=point.iterations,
                           log_likelihood=point.log_likelihood, stop_reason=point.stop_reason,
                           seconds=point.seconds, intensities=point.intensities,
                           diagnostics=diag, provenance=prov)
+    result.status = verdict.status
+    for name in undetermined:
+        result.figures[name].determined = False
     if boot is not None:
         result.attach_bootstrap(boot, ci_level)
         if "chsh_max" in boot.names:
             values = boot.figures[:, boot.names.index("chsh_max")]
             text = chsh_gap_warning(details, float(np.nanstd(values, ddof=1)))
             if text:
-                warnings.warn(text, GatescopeWarning, stacklevel=2)
+                warn("chsh", text, stacklevel=2)
     return result

@@ -41,7 +41,8 @@ def provenance(*, seed=None, command_line=None, started: float, wall: float) -> 
     Parameters
     ----------
     seed : int, optional
-        The seed the result's random numbers came from (bootstrap, simulation).
+        The seed the result's random numbers came from (bootstrap, simulation);
+        absent from the attributes when there is none.
     command_line : str, optional
         The command that made the result (default: this process's argv).
     started : float
@@ -53,7 +54,6 @@ def provenance(*, seed=None, command_line=None, started: float, wall: float) -> 
     prov = {
         "gatescope_version": version("gatescope"),
         "command_line": " ".join(sys.argv) if command_line is None else command_line,
-        "seed": "" if seed is None else int(seed),
         "start_utc": _dt.datetime.fromtimestamp(started, utc).isoformat(),
         "end_utc": _dt.datetime.fromtimestamp(started + wall, utc).isoformat(),
         "wall_seconds": float(wall),
@@ -61,6 +61,8 @@ def provenance(*, seed=None, command_line=None, started: float, wall: float) -> 
         "platform": _platform(),
         "python": sys.version.split()[0],
     }
+    if seed is not None:                 # no seed (no random numbers): no entry
+        prov["seed"] = int(seed)
     for dep in DEPENDENCIES:
         prov[f"version_{dep}"] = version(dep)
     return prov

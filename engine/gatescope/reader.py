@@ -12,7 +12,9 @@ import csv
 import hashlib
 import io
 import math
+import os
 import re
+import stat
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,6 +26,8 @@ from .conventions import (
     check_unitary, density, kron_all, named_gate, named_state, split_label, wave_plate,
 )
 from .errors import InputError
+from .options import suggestion
+from .resources import check_reading
 
 NORMALIZATIONS = ("per-preparation", "global", "per-group")
 TRACE_KINDS = ("preserving", "decreasing")
@@ -32,6 +36,11 @@ TOP_KEYS = ("title", "qubits", "target", "counts", "normalization", "trace",
 REQUIRED_COLUMNS = ("prep", "meas", "counts")
 OPTIONAL_COLUMNS = ("seconds", "background", "efficiency", "group")
 MAX_QUBITS = 6
+#: Largest magnitude of a number in the data (seconds, efficiency, background,
+#: input_rate), and the smallest of a positive one: no laboratory quantity in these
+#: units comes near, so such a value is a typo or a unit mistake, and beyond it the
+#: products of the row model (rate × seconds × efficiency) leave double precision.
+MAX_MAGNITUDE = 1e15
 #: What an experiment characterises: a process (prepared inputs, analysed outputs) or a
 #: state (analysed only; its counts file has no prep column).
 KINDS = ("process", "state")
@@ -115,6 +124,9 @@ class Experiment:
     kind: str = "process"
     target_state: np.ndarray | None = None
     target_state_name: str | None = None
+    #: physical line of every row in the counts file (header = line 1): the row
+    #: number used in messages, warnings, `show` and /diagnostics/outlier_lines
+    lines: np.ndarray | None = None
 
     @property
     def dim(self) -> int:
@@ -200,20 +212,52 @@ def _parse_complex(value, where: str, toml: _Toml) -> complex:
 def _parse_float(value, where: str, toml: _Toml, *, positive: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise toml.error(where, f"expected a number, got {value!r}")
-    x = float(value)
+    try:
+        x = float(value)
+    except OverflowError:                          # a TOML integer beyond double range
+        raise toml.error(where, f"{value!r} is out of range") from None
     if not math.isfinite(x):
         raise toml.error(where, f"{value!r} is not finite")
     if positive and x <= 0:
         raise toml.error(where, f"must be positive, got {value!r}")
+    if positive and not 1 / MAX_MAGNITUDE <= x <= MAX_MAGNITUDE:
+        raise toml.error(where, f"{value!r} is outside [{1 / MAX_MAGNITUDE:g}, {MAX_MAGNITUDE:g}]: "
+                                "a typo or a unit mistake?")
     return x
+
+
+def _load_unitary_file(upath: Path, toml: _Toml) -> np.ndarray:
+    """A numeric 2-D array from a .npy file (no pickles, no archives, no records)."""
+    _regular_file(upath, "unitary file", error=lambda m: toml.error("target.unitary", m))
+    try:
+        u = np.load(upath, allow_pickle=False)
+    except Exception as exc:  # numpy raises several kinds for a bad file
+        raise toml.error("target.unitary", f"cannot read {upath} as a .npy array: {exc}") from None
+    if not isinstance(u, np.ndarray):               # np.load gives an NpzFile for an archive
+        if hasattr(u, "close"):
+            u.close()
+        raise toml.error("target.unitary", f"{upath} is an .npz archive; save the unitary alone "
+                                           "with numpy.save (a .npy file)")
+    if u.dtype.names is not None or u.dtype.kind not in "biufc":
+        what = "records" if u.dtype.names is not None else "text" if u.dtype.kind in "SU" else \
+            "objects" if u.dtype.kind == "O" else "values"
+        raise toml.error("target.unitary", f"{upath} holds {what} (dtype {u.dtype}), not numbers")
+    if u.ndim != 2:
+        raise toml.error("target.unitary", f"{upath} holds a {u.ndim}-dimensional array; "
+                                           "the unitary is a square matrix")
+    if not np.all(np.isfinite(u)):
+        raise toml.error("target.unitary", f"{upath} holds values that are not finite")
+    return u
 
 
 def _read_target(raw, n_qubits: int, toml: _Toml, base: Path):
     d = 2 ** n_qubits
     if isinstance(raw, str):
         if raw not in GATE_NAMES:
-            raise toml.error("target", f"unknown gate {raw!r}; known gates: {', '.join(GATE_NAMES)}, "
-                                       "or { unitary = ... }")
+            hint = suggestion(raw, GATE_NAMES)
+            mean = f"did you mean {hint!r}? " if hint is not None else ""
+            raise toml.error("target", f"unknown gate {raw!r}; {mean}known gates: "
+                                       f"{', '.join(GATE_NAMES)}, or {{ unitary = ... }}")
         u = named_gate(raw)
         name = raw
     elif isinstance(raw, dict):
@@ -225,13 +269,7 @@ def _read_target(raw, n_qubits: int, toml: _Toml, base: Path):
             raise toml.error("target", "a target table needs the key 'unitary'")
         spec = raw["unitary"]
         if isinstance(spec, str):
-            upath = (base / spec)
-            try:
-                u = np.load(upath, allow_pickle=False)
-            except FileNotFoundError:
-                raise toml.error("target.unitary", f"file not found: {upath}") from None
-            except Exception as exc:  # numpy raises several kinds for a bad file
-                raise toml.error("target.unitary", f"cannot read {upath} as a .npy array: {exc}") from None
+            u = _load_unitary_file(base / spec, toml)
             name = f"unitary from {spec}"
         elif isinstance(spec, list):
             if not all(isinstance(r, list) for r in spec):
@@ -356,7 +394,8 @@ def _read_custom_states(raw, toml: _Toml):
             if not isinstance(value, list) or len(value) != 2:
                 raise toml.error(where, "expected two amplitudes (of H and V)")
             v = np.array([_parse_complex(x, where, toml) for x in value])
-            if np.linalg.norm(v) < 1e-12:
+            scale = float(np.max(np.abs(v)))
+            if scale == 0 or scale * np.linalg.norm(v / scale) < 1e-12:   # no overflow at 1e300
                 raise toml.error(where, "the zero vector is not a state")
             rho = density(v)
             out[name] = (rho, rho)
@@ -373,7 +412,7 @@ def _read_custom_states(raw, toml: _Toml):
                 if bad:
                     raise toml.error(where, f"plate {k}: unknown key {sorted(bad)[0]!r}")
                 pkind = plate.get("kind")
-                if pkind not in PLATE_KINDS:
+                if not isinstance(pkind, str) or pkind not in PLATE_KINDS:
                     raise toml.error(where, f"plate {k}: unknown plate kind {pkind!r} "
                                             "(expected 'half' or 'quarter')")
                 if "angle_deg" not in plate:
@@ -397,13 +436,71 @@ def _sha256(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+#: The experiment file a folder stands for, wherever an experiment file is expected.
+EXPERIMENT_FILE = "experiment.toml"
+
+
+def _shown(path) -> str:
+    """A path as it can be printed (a NUL byte would end the message on some terminals)."""
+    return str(path).replace("\x00", "\\0")
+
+
+def _regular_file(path: Path, what: str, *, error=None) -> int:
+    """The size of ``path`` when it is a regular file; else an InputError saying what it is.
+
+    Devices (``/dev/zero``), pipes and sockets never end or block, and a folder is not
+    a file: they are refused before anything is read. ``error(message)`` makes the
+    InputError (default: one naming the file).
+    """
+    if error is None:
+        def error(message):
+            return InputError(message, file=_shown(path))
+    if "\x00" in str(path):
+        raise error(f"the {what} path contains a NUL byte")
+    try:
+        info = os.stat(path)
+    except FileNotFoundError:
+        raise error(f"{what} not found" + (f": {_shown(path)}" if what == "unitary file" else "")) \
+            from None
+    except (OSError, ValueError) as exc:
+        raise error(f"cannot read {what}: {getattr(exc, 'strerror', None) or exc}") from None
+    if stat.S_ISDIR(info.st_mode):
+        raise error(f"is a folder, not a {what}")
+    if not stat.S_ISREG(info.st_mode):
+        raise error(f"is not a regular file (a device, a pipe or a socket); give the {what} itself")
+    return info.st_size
+
+
+def _read_bytes(path: Path, what: str, *, guard_memory: bool = False) -> bytes:
+    size = _regular_file(path, what)
+    if guard_memory:
+        check_reading(size, _shown(path))
+    try:
+        return path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read {what}: {exc.strerror}", file=_shown(path)) from None
+
+
+def experiment_path(path) -> Path:
+    """The experiment file of ``path``: the path itself, or ``experiment.toml`` inside a folder."""
+    path = Path(path)
+    if "\x00" not in str(path) and path.is_dir():
+        inside = path / EXPERIMENT_FILE
+        if not inside.exists():
+            raise InputError(f"is a folder without an {EXPERIMENT_FILE}; give the experiment file",
+                             file=_shown(path))
+        return inside
+    return path
+
+
 def read_experiment(path) -> Experiment:
     """Read and validate ``experiment.toml`` and the counts CSV it names.
 
     Parameters
     ----------
     path : str or Path
-        The experiment file (docs/file-formats.md, "Input"). Paths inside it are relative to it.
+        The experiment file (docs/file-formats.md, "Input"), or the experiment folder
+        that holds it as ``experiment.toml``. Paths inside it are relative to it.
 
     Returns
     -------
@@ -414,7 +511,7 @@ def read_experiment(path) -> Experiment:
     InputError
         For every problem, naming the file, the line or key, and what is wrong.
     """
-    path = Path(path)
+    path = experiment_path(path)
     raw_bytes, text, data = _load_toml(path)
     toml = _Toml(path, text)
 
@@ -463,6 +560,10 @@ def read_experiment(path) -> Experiment:
             raise toml.error("trace", "trace = \"decreasing\" needs normalization = \"global\"")
         if input_rate is None:
             raise toml.error("trace", "trace = \"decreasing\" needs the key input_rate")
+    elif input_rate is not None:
+        raise toml.error("input_rate", "input_rate is used only with trace = \"decreasing\" (a "
+                                       "trace-preserving fit normalises the intensities away); "
+                                       "remove it, or add trace = \"decreasing\"")
 
     right_circular = "H-iV"
     conventions = data.get("conventions", {})
@@ -492,6 +593,8 @@ def read_experiment(path) -> Experiment:
     counts_name = data["counts"]
     if not isinstance(counts_name, str) or not counts_name.strip():
         raise toml.error("counts", "expected the CSV file name as a string")
+    if "\x00" in counts_name:
+        raise toml.error("counts", "the file name contains a NUL byte")
     counts_path = path.parent / counts_name
     table = _read_counts(counts_path, n_qubits, right_circular, custom, normalization, kind)
 
@@ -507,12 +610,7 @@ def read_experiment(path) -> Experiment:
 
 def _load_toml(path: Path):
     """(bytes, text, table) of an experiment file; InputError when it cannot be read or parsed."""
-    try:
-        raw_bytes = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("file not found", file=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read file: {exc.strerror}", file=str(path)) from None
+    raw_bytes = _read_bytes(path, "file")
     try:
         text = raw_bytes.decode("utf-8")
     except UnicodeDecodeError as exc:
@@ -525,6 +623,9 @@ def _load_toml(path: Path):
         m = re.search(r"line (\d+)", str(exc))
         raise InputError(f"not valid TOML: {exc}", file=str(path),
                          line=int(m.group(1)) if m else None) from None
+    except RecursionError:
+        raise InputError("not valid TOML: arrays or tables nested too deeply", file=str(path)) \
+            from None
     return raw_bytes, text, data
 
 
@@ -590,13 +691,27 @@ def input_files(path) -> dict:
 
 
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$|^[+-]?(nan|inf|infinity)$", re.I)
+# ASCII digits only: Python's float() also reads "١٢" and "１２", which no lab file means
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$|^[+-]?(nan|inf|infinity)$",
+                     re.I | re.ASCII)
+#: "1,044", "1.044.210", "1'044", "1 044": digits grouped by three, as a spreadsheet shows them
+_GROUPED = re.compile(r"^\d{1,3}([,.' \u00a0\u202f]\d{3})+$", re.ASCII)
 
 
 def _number(text: str) -> float:
-    """A decimal number as written in a CSV cell (no underscores, no hex)."""
+    """A decimal number as written in a CSV cell (ASCII digits; no underscores, no hex)."""
     if not _NUMBER.match(text):
-        raise ValueError(f"{text!r} is not a number")
+        raise ValueError(f"{text!r} is not a number" + _grouping_hint(text))
     return float(text)
+
+
+def _grouping_hint(text: str) -> str:
+    if _GROUPED.match(text):
+        plain = re.sub(r"\D", "", text)
+        return f" (a thousands separator? write {plain})"
+    if any(c.isdigit() and not c.isascii() for c in text):
+        return " (only the ASCII digits 0-9 are read)"
+    return ""
 
 
 def _parse_counts_cell(text: str) -> int:
@@ -606,7 +721,7 @@ def _parse_counts_cell(text: str) -> int:
     if x < 0:
         raise ValueError(f"counts must be non-negative, got {text!r}")
     if x != math.floor(x):
-        raise ValueError(f"counts must be whole numbers, got {text!r}")
+        raise ValueError(f"counts must be whole numbers, got {text!r}{_grouping_hint(text)}")
     if x > 2**62:
         raise ValueError(f"counts value {text!r} is too large")
     return int(x)
@@ -619,6 +734,9 @@ def _parse_positive_cell(text: str, column: str, *, allow_zero: bool) -> float:
     if x < 0 or (x == 0 and not allow_zero):
         need = "non-negative" if allow_zero else "positive"
         raise ValueError(f"{column} must be {need}, got {text!r}")
+    if x > MAX_MAGNITUDE or (not allow_zero and x < 1 / MAX_MAGNITUDE):
+        raise ValueError(f"{column} {text!r} is outside [{1 / MAX_MAGNITUDE:g}, {MAX_MAGNITUDE:g}]: "
+                         "a typo or a unit mistake?")
     return x
 
 
@@ -636,12 +754,7 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
                  normalization: str, kind: str = "process") -> dict:
     file = str(counts_path)
     is_state = kind == "state"
-    try:
-        raw = counts_path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("counts file not found", file=file) from None
-    except OSError as exc:
-        raise InputError(f"cannot read counts file: {exc.strerror}", file=file) from None
+    raw = _read_bytes(counts_path, "counts file", guard_memory=True)
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -650,15 +763,22 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         raise InputError("the counts file is empty", file=file, line=1)
 
     reader = csv.reader(io.StringIO(text, newline=""), skipinitialspace=True)
+    rows = _csv_rows(reader, file)
     header = None
-    for cells in reader:
+    for cells, header_line in rows:
         if any(c.strip() for c in cells):
             header = [c.strip() for c in cells]
             break
-    header_line = reader.line_num
     if header is None:
         raise InputError("the counts file has no header row (only empty cells)", file=file, line=1)
     allowed = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
+    if len(header) == 1:
+        for sep, name in ((";", "semicolons"), ("\t", "tabs")):
+            if sep in header[0]:
+                raise InputError(f"the header is one cell, {header[0]!r}: the file seems to be "
+                                 f"separated by {name}; gatescope reads comma-separated values "
+                                 "(save or export the table as CSV with commas)",
+                                 file=file, line=header_line)
     for col in header:
         if col not in allowed:
             raise InputError(f"unknown column {col!r}; allowed columns: {', '.join(allowed)}",
@@ -680,6 +800,10 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
     if normalization == "per-group" and "group" not in header:
         raise InputError("normalization = \"per-group\" needs a 'group' column",
                          file=file, line=header_line)
+    if normalization != "per-group" and "group" in header:
+        raise InputError(f"a 'group' column is used only with normalization = \"per-group\" (this "
+                         f"experiment's normalization is \"{normalization}\"): set it in the "
+                         "experiment file, or remove the column", file=file, line=header_line)
     pos = {c: header.index(c) for c in header}
 
     known = set(BUILTIN_LABELS) | set(custom)
@@ -701,7 +825,8 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
             try:
                 parts = tuple(split_label(label, n_qubits, known))
             except ValueError as exc:
-                raise InputError(f"column '{column}': {exc}", file=file, line=line) from None
+                raise InputError(f"column '{column}': {_label_problem(label, n_qubits, known, exc)}",
+                                 file=file, line=line) from None
             parsed[column][label] = parts
         idx = settings.get(parts)
         if idx is None:
@@ -715,12 +840,13 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         return idx
 
     n_rows = 0
-    for cells in reader:
-        line = reader.line_num
+    lines = []
+    for cells, line in rows:
         if not any(c.strip() for c in cells):
             continue
         if len(cells) != len(header):
-            raise InputError(f"expected {len(header)} cells, found {len(cells)}", file=file, line=line)
+            raise InputError(f"expected {len(header)} cells, found {len(cells)}"
+                             + _split_number_hint(cells), file=file, line=line)
         cells = [c.strip() for c in cells]
         for col in required:
             if not cells[pos[col]]:
@@ -745,9 +871,10 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
             except ValueError as exc:
                 msg = str(exc)
                 if "is not a number" in msg:
-                    msg = f"column '{col}': {value!r} is not a number"
+                    msg = f"column '{col}': {msg}"
                 raise InputError(msg, file=file, line=line) from None
             cols[col].append(value)
+        lines.append(line)
         n_rows += 1
     if n_rows == 0:
         raise InputError("the counts file has a header but no data rows", file=file, line=header_line)
@@ -787,4 +914,59 @@ def _read_counts(counts_path: Path, n_qubits: int, right_circular: str, custom: 
         group=tuple(cols["group"]) if "group" in cols else None,
         group_index=_frozen(group_index), group_names=group_names,
         columns=tuple(header), csv_sha256=_sha256(raw),
+        lines=_frozen(np.array(lines, dtype=np.int64)),
     ) | prep_columns
+
+
+def _csv_rows(reader, file: str):
+    """(cells, first physical line) of every CSV record; a record that runs over several
+    lines inside quotes, or that the csv module cannot read, is an InputError at the line
+    where it starts (an unbalanced quote is reported where it opens, not where the file ends)."""
+    end = 0
+    while True:
+        start = end + 1
+        try:
+            cells = next(reader)
+        except StopIteration:
+            return
+        except csv.Error as exc:
+            message = str(exc)
+            if "field larger than field limit" in message:
+                message = (f"a cell is longer than {csv.field_size_limit():,} characters "
+                           "(an unbalanced quote?)")
+            raise InputError(f"cannot read the line as CSV: {message}", file=file, line=start) \
+                from None
+        end = reader.line_num
+        if end > start and any("\n" in c or "\r" in c for c in cells):
+            raise InputError(f"a quoted cell runs from line {start} to line {end}: is a closing "
+                             "quote (\") missing on this line?", file=file, line=start)
+        yield cells, start
+
+
+def _split_number_hint(cells) -> str:
+    """For a row with too many cells: a number that a thousands separator split in two."""
+    for a, b in zip(cells, cells[1:]):
+        if re.fullmatch(r"\s*\d{1,3}", a, re.ASCII) and re.fullmatch(r"\d{3}\s*", b, re.ASCII):
+            return (f" ('{a.strip()},{b.strip()}' looks like a number with a thousands separator: "
+                    f"write {a.strip()}{b.strip()})")
+    return ""
+
+
+def _label_problem(label: str, n_qubits: int, known, exc: ValueError) -> str:
+    """What is wrong with a label, with the nearest known label or the qubit count."""
+    text = label.strip()
+    plural = "qubit" if n_qubits == 1 else "qubits"
+    if n_qubits == 1 and len(text) > 1 and all(c in known for c in text):
+        return (f"label {label!r} names {len(text)} qubits but the experiment has 1 qubit "
+                "(key 'qubits' in the experiment file)")
+    message = str(exc)
+    if message.startswith("label "):           # the wrong number of parts
+        return f"{message} {plural} (key 'qubits' in the experiment file)"
+    unknown = re.search(r"unknown state label '(.*?)'", message)
+    if unknown:
+        hint = suggestion(unknown.group(1), sorted(known))
+        if hint is not None:
+            same = hint.lower() == unknown.group(1).lower()
+            return (f"{message}; " + ("labels are case-sensitive: " if same else "")
+                    + f"did you mean {hint!r}?")
+    return message

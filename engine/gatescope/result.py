@@ -59,6 +59,10 @@ class Result:
     conditions : the experiment's ``[conditions]`` (name → int, float or
         str), stored as the attributes of /conditions
     kind : "process" or "state" (`gatescope.reader.KINDS`)
+    warnings : the text of every warning the fit raised, each starting with
+        its code in brackets (`gatescope.errors.WARNING_CODES`); /warnings
+    status : how the estimate ended, one of `gatescope.checks.STATUSES`
+        (None when unknown: a file written before it was recorded)
     """
 
     choi: np.ndarray
@@ -91,6 +95,8 @@ class Result:
     rho: np.ndarray | None = None
     single_meas_effects: np.ndarray | None = None
     meas_parts: np.ndarray | None = None
+    warnings: tuple = ()
+    status: str | None = None
 
     @property
     def dim(self) -> int:
@@ -124,8 +130,9 @@ class Result:
 
 
 def counts_columns(exp: Experiment) -> dict:
-    """The CSV columns as read, plus each row's ``prep_index`` and ``meas_index`` (a state
-    has neither ``prep`` nor ``prep_index``)."""
+    """The CSV columns as read, plus each row's ``prep_index``, ``meas_index`` and ``line``
+    (its physical line in the CSV, header = line 1); a state has neither ``prep`` nor
+    ``prep_index``."""
     cols = {"prep": np.array(exp.prep, dtype=object), "meas": np.array(exp.meas, dtype=object),
             "counts": np.asarray(exp.counts, dtype=np.int64)}
     if exp.kind == "state":
@@ -138,6 +145,8 @@ def counts_columns(exp: Experiment) -> dict:
     if exp.kind != "state":
         cols["prep_index"] = np.asarray(exp.prep_index, dtype=np.int64)
     cols["meas_index"] = np.asarray(exp.meas_index, dtype=np.int64)
+    if exp.lines is not None:
+        cols["line"] = np.asarray(exp.lines, dtype=np.int64)
     return cols
 
 

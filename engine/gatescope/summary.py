@@ -1,4 +1,13 @@
-"""A compact terminal summary of a `Result` (the `show` command), of a process or a state."""
+"""A compact terminal summary of a `Result` (the `show` command), of a process or a
+state, and the short summary `fit` prints.
+
+Honest screens: the warnings a fit raised come first; a figure the data do
+not determine is shown as such, with the estimator's value in brackets; a
+value outside the range of every physical process is flagged; nothing that
+is not a number (NaN, ±inf) is printed as one; rows are named by their line
+in the CSV (header = line 1). Control characters from the file (a title with
+escape sequences, say) are printed escaped, never sent to the terminal.
+"""
 
 from __future__ import annotations
 
@@ -6,9 +15,12 @@ import tomllib
 
 import numpy as np
 
+from .checks import PHYSICAL_TOLERANCE
 from .conventions import n_qubits_of
 from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
+from .errors import printable as clean
 from .estimators import MAXIMUM_LIKELIHOOD
+from .intervals import parameter_range
 from .result import Result
 
 LABELS = {
@@ -44,10 +56,56 @@ DENSITY_MATRIX_MAX_QUBITS = 2
 MAX_OUTLIERS_SHOWN = 20
 
 
+#: Main figures of the short summary `fit` prints, in order.
+MAIN_FIGURES = ("process_fidelity", "average_gate_fidelity", "purity", "unitarity",
+                "truth_table_fidelity", "concurrence")
+STATE_MAIN_FIGURES = ("state_fidelity", "purity", "concurrence", "negativity", "chsh_max")
+
+
 def _num(x: float) -> str:
+    if not np.isfinite(x):
+        return "not defined"
     if abs(x) < 5e-13:
         return "0"
     return f"{x:.5f}" if abs(x) >= 1e-4 else f"{x:.3g}"
+
+
+def status_of(r: Result) -> str:
+    """How the estimate ended (`gatescope.checks.STATUSES`); for files that did not record
+    it, from the converged flag and the smallest eigenvalue."""
+    if r.status:
+        return r.status
+    if r.origin == "truth":
+        return "converged"
+    low = r.figures.get("min_eigenvalue")           # a process's; a state's is not stored
+    if low is not None and np.isfinite(low.value) and low.value < -PHYSICAL_TOLERANCE * r.dim:
+        return "unphysical"
+    return "converged" if r.converged else "not converged"
+
+
+def _status_text(r: Result) -> str:
+    status = status_of(r)
+    if status == "converged":
+        return "converged"
+    if status == "converged to rounding":
+        return ("converged to rounding precision (the log-likelihood cannot be resolved further "
+                "at these counts)")
+    if status == "unphysical":
+        low = r.figures.get("min_eigenvalue")
+        return "UNPHYSICAL estimate" + (f" (smallest eigenvalue of J {_num(low.value)})"
+                                        if low is not None and r.kind != "state" else "")
+    return "NOT converged"
+
+
+def _out_of_range(name: str, value: float, dim: int, kind: str = "process") -> str:
+    bounds = parameter_range(name, dim, kind)
+    if bounds is None or not np.isfinite(value):
+        return ""
+    slack = 1e-9
+    if value < bounds[0] - slack or value > bounds[1] + slack:
+        return (f"  (!) outside [{_num(bounds[0])}, {_num(bounds[1])}], impossible for a physical "
+                + ("state" if kind == "state" else "process"))
+    return ""
 
 
 def _signed(x: float) -> str:
@@ -65,28 +123,70 @@ def _fmt_figure(fig) -> str:
             f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%")
 
 
-def summary(result: Result) -> str:
-    """Figures (with intervals), fit status, goodness of fit and provenance as text."""
+def title_of(r: Result) -> str:
+    """The experiment's title ("" when none)."""
+    try:
+        return str(tomllib.loads(r.experiment_toml).get("title", ""))
+    except (tomllib.TOMLDecodeError, RecursionError):  # written by hand elsewhere; cosmetic
+        return ""
+
+
+def _figure_line(name: str, fig, dim: int, kind: str = "process") -> str:
+    label = f"  {_label(name, kind == 'state'):30s} "
+    if not fig.determined:
+        return label + f"not determined by the data (the estimator's value: {_num(fig.value)})"
+    return label + _fmt_figure(fig) + _out_of_range(name, fig.value, dim, kind)
+
+
+def _warning_lines(r: Result) -> list[str]:
+    out = []
+    if r.warnings:
+        out.append(f"WARNINGS ({len(r.warnings)}), kept in the result file:")
+        out.extend(f"  {w}" for w in r.warnings)
+        out.append("")
+    if r.origin != "truth" and status_of(r) == "unphysical" and \
+            not any(w.startswith("[unphysical]") for w in r.warnings):
+        what = "state" if r.kind == "state" else "process"
+        out.append(f"UNPHYSICAL ESTIMATE: the {r.method} estimate is not a physical {what}; "
+                   f"figures marked (!) lie outside the range of every physical {what}, and the "
+                   "likelihood is not defined where it predicts negative counts. Refit with mle "
+                   "(or pls) for a physical estimate.")
+        out.append("")
+    undetermined = [_label(k, r.kind == "state") for k, f in r.figures.items() if not f.determined]
+    if undetermined:
+        what = "states" if r.kind == "state" else "processes"
+        out.append(f"NOT DETERMINED BY THE DATA: {', '.join(undetermined)} (their values depend "
+                   f"on the estimator's choice among {what} that fit the data equally well)")
+        out.append("")
+    return out
+
+
+def summary(result: Result, *, source: str | None = None) -> str:
+    """Figures (with intervals), fit status, goodness of fit and provenance as text.
+
+    ``source`` is an extra line about the file (its format, its checksums).
+    """
     r = result
     lines = []
-    try:
-        toml_title = str(tomllib.loads(r.experiment_toml).get("title", ""))
-    except tomllib.TOMLDecodeError:     # a file written by hand elsewhere; the title is cosmetic
-        toml_title = ""
-    n = n_qubits_of(r.dim)
+    toml_title = title_of(r)
+    dim = r.dim
+    n = n_qubits_of(dim)
     state = r.kind == "state"
     lines.append(f"gatescope result: {toml_title or '(untitled)'}")
     lines.append(f"  {'state, ' if state else ''}qubits {n}, "
                  f"target {'state ' if state else ''}{r.target_name or 'none'}, "
                  f"rows {len(r.counts_columns['counts'])}, "
                  f"counts {int(np.sum(r.counts_columns['counts']))}")
+    if source:
+        lines.append(f"  {source}")
     if r.conditions:
         lines.append("  conditions: " + ", ".join(f"{name} = {value!r}"
                                                   for name, value in r.conditions.items()))
     lines.append("")
+    lines.extend(_warning_lines(r))
     lines.append("figures of merit")
     for name, fig in r.figures.items():
-        lines.append(f"  {_label(name, state):30s} {_fmt_figure(fig)}")
+        lines.append(_figure_line(name, fig, dim, r.kind))
     lines.extend(_state_details(r) if state else _figure_details(r))
     if r.bootstrap is not None:
         b = r.bootstrap
@@ -103,20 +203,28 @@ def summary(result: Result) -> str:
         lines.append(f"  log-likelihood at the simulated counts {r.log_likelihood:.6f}")
     else:
         lines.append("fit")
-        lines.append(f"  method {r.method}, converged {'yes' if r.converged else 'NO'}, "
-                     f"{r.iterations} iterations, {r.seconds:.3f} s")
+        lines.append(f"  method {r.method}, {_status_text(r)}, {r.iterations} iterations, "
+                     f"{r.seconds:.3f} s")
         lines.append(f"  stop reason: {r.stop_reason}")
-        lines.append(f"  log-likelihood {r.log_likelihood:.6f}")
+        if np.isfinite(r.log_likelihood):
+            lines.append(f"  log-likelihood {r.log_likelihood:.6f}")
+        else:
+            lines.append("  log-likelihood: not defined for this estimate (it predicts no counts, "
+                         "or negative counts, where counts were seen)")
         lines.extend(_goodness_of_fit(r))
     pr = r.provenance
     lines.append("")
     lines.append("provenance")
-    lines.append(f"  gatescope {pr.get('gatescope_version', '?')}, created {r.created_utc}")
+    compiled = pr.get("compile_seconds")
+    lines.append(f"  gatescope {pr.get('gatescope_version', '?')}, created {r.created_utc}"
+                 + (f", {compiled:.1f} s compiling numerical kernels (first run)"
+                    if isinstance(compiled, (int, float)) else ""))
+    seed = pr.get("seed")
     lines.append(f"  host {pr.get('host', '?')}, python {pr.get('python', '?')}, "
-                 f"seed {pr.get('seed', '') if pr.get('seed', '') != '' else 'none'}")
+                 f"seed {seed if seed not in (None, '') else 'none'}")
     lines.append(f"  command: {pr.get('command_line', '')}")
     lines.append(f"  input sha256: experiment {r.toml_sha256[:12]}…, counts {r.csv_sha256[:12]}…")
-    return "\n".join(lines)
+    return "\n".join(clean(line) for line in lines)
 
 
 def _label(name: str, state: bool) -> str:
@@ -189,32 +297,94 @@ def _figure_details(r: Result) -> list[str]:
     return out
 
 
+def row_numbers(r: Result, rows) -> tuple[str, np.ndarray]:
+    """(heading, numbers) of rows: their CSV lines (header = line 1) when the file has
+    them; else, for files that did not record them, the data row (first = 1)."""
+    rows = np.asarray(rows, dtype=int)
+    line = r.counts_columns.get("line")
+    if line is not None:
+        return "line", np.asarray(line, dtype=int)[rows]
+    return "row", rows + 1
+
+
+def _row_table(r: Result, rows, heading: str, *, residual: bool) -> list[str]:
+    dg = r.diagnostics
+    cols = r.counts_columns
+    name, numbers = row_numbers(r, rows)
+    where = "CSV line, header = line 1" if name == "line" else "CSV data row, first = 1"
+    has_prep = "prep" in cols                          # a state has no preparations
+    out = [f"  {heading} ({where}):",
+           f"    {name:>6s}  " + (f"{'prep':10s} " if has_prep else "")
+           + f"{'meas':10s} {'counts':>9s} {'expected':>11s}"
+           + (f" {'residual':>9s}" if residual else "")]
+    for k, number in list(zip(rows, numbers))[:MAX_OUTLIERS_SHOWN]:
+        prep = f"{str(cols['prep'][k]):10s} " if has_prep else ""
+        out.append(f"    {number:6d}  {prep}{str(cols['meas'][k]):10s} "
+                   f"{int(cols['counts'][k]):9d} {dg.expected_counts[k]:11.2f}"
+                   + (f" {dg.pearson_residuals[k]:+9.2f}" if residual else ""))
+    if len(rows) > MAX_OUTLIERS_SHOWN:
+        out.append(f"    ... and {len(rows) - MAX_OUTLIERS_SHOWN} more")
+    return out
+
+
 def _goodness_of_fit(r: Result) -> list[str]:
     dg = r.diagnostics
-    out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance {dg.deviance:.2f} "
-           f"(p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
-    if r.method not in MAXIMUM_LIKELIHOOD:
-        out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these p-values "
-                   "are lower than for the model itself; refit with mle to test the model)")
-    elif dg.poor_fit:
-        out.append(f"  WARNING: p < {POOR_FIT_P:g}, the model does not describe the data: check for "
-                   "miscalibrated optics, drift of the source, or a wrong background")
+    expected = np.asarray(dg.expected_counts, dtype=float)
+    nonpositive = np.flatnonzero(expected <= 0)
+    defined = np.isfinite(dg.chi2) and np.isfinite(dg.deviance)
+    tested = defined and dg.dof > 0 and np.isfinite(dg.chi2_p_value)
+    if not defined:
+        out = [f"  goodness of fit: not defined for this estimate ({nonpositive.size} row(s) with "
+               "non-positive expected counts)"]
+    elif not tested:
+        out = [f"  Pearson chi2 {dg.chi2:.2f}, deviance {dg.deviance:.2f}; no test: {dg.dof} "
+               "degrees of freedom"]
+    else:
+        out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance "
+               f"{dg.deviance:.2f} (p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
+        if r.method not in MAXIMUM_LIKELIHOOD:
+            out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these "
+                       "p-values are lower than for the model itself; refit with mle to test the "
+                       "model)")
+        elif dg.poor_fit:
+            out.append(f"  WARNING: p < {POOR_FIT_P:g}, the model does not describe the data: "
+                       "check for miscalibrated optics, drift of the source, or a wrong "
+                       "background")
+    if nonpositive.size:
+        out.extend(_row_table(r, nonpositive, f"{nonpositive.size} row(s) where the estimate "
+                                              "expects zero or negative counts", residual=False))
     rows = np.asarray(dg.outlier_rows, dtype=int)
+    rows = rows[expected[rows] > 0]
     if rows.size:
-        out.append(f"  {rows.size} row(s) with |Pearson residual| > {OUTLIER_RESIDUAL:g} "
-                   "(CSV data row, first = 1):")
-        has_prep = "prep" in r.counts_columns              # a state has no preparations
-        prep_head = f"{'prep':10s} " if has_prep else ""
-        out.append(f"    {'row':>6s}  {prep_head}{'meas':10s} {'counts':>9s} {'expected':>11s} "
-                   f"{'residual':>9s}")
-        order = rows[np.argsort(-np.abs(np.nan_to_num(dg.pearson_residuals[rows], nan=np.inf)),
-                                kind="stable")]
-        cols = r.counts_columns
-        for k in order[:MAX_OUTLIERS_SHOWN]:
-            prep = f"{str(cols['prep'][k]):10s} " if has_prep else ""
-            out.append(f"    {k + 1:6d}  {prep}{str(cols['meas'][k]):10s} "
-                       f"{int(cols['counts'][k]):9d} {dg.expected_counts[k]:11.2f} "
-                       f"{dg.pearson_residuals[k]:+9.2f}")
-        if rows.size > MAX_OUTLIERS_SHOWN:
-            out.append(f"    ... and {rows.size - MAX_OUTLIERS_SHOWN} more (all in /diagnostics/outlier_rows)")
+        order = rows[np.argsort(-np.abs(dg.pearson_residuals[rows]), kind="stable")]
+        out.extend(_row_table(r, order, f"{rows.size} row(s) with |Pearson residual| > "
+                                        f"{OUTLIER_RESIDUAL:g}", residual=True))
     return out
+
+
+def fit_summary(result: Result, path) -> str:
+    """The short summary `fit` prints: the main figures with their intervals, the fit's
+    status and p-value, the warnings (cut to one line; `show` prints them whole) and
+    the path of the result file."""
+    r = result
+    dim = r.dim
+    lines = [f"gatescope fit: {title_of(r) or '(untitled)'}"]
+    main = STATE_MAIN_FIGURES if r.kind == "state" else MAIN_FIGURES
+    shown = [k for k in main if k in r.figures] or list(r.figures)[:4]
+    for name in shown:
+        lines.append(_figure_line(name, r.figures[name], dim, r.kind))
+    fit = f"  fit: {r.method}, {_status_text(r).split(' (')[0]}"
+    dg = r.diagnostics
+    if dg is not None and np.isfinite(dg.p_value) and dg.dof > 0:
+        fit += f"; goodness of fit p = {dg.p_value:.3g} ({dg.dof} degrees of freedom)"
+    elif dg is not None:
+        fit += "; no goodness-of-fit test"
+    lines.append(fit)
+    if r.warnings:
+        lines.append(f"  {len(r.warnings)} warning(s):")
+        for w in r.warnings:
+            lines.append(f"    {w if len(w) <= 110 else w[:107] + '...'}")
+    else:
+        lines.append("  no warnings")
+    lines.append(f"  result written to {path} (gatescope show for everything)")
+    return "\n".join(clean(line) for line in lines)

@@ -50,6 +50,18 @@ def test_pls_is_the_projection_of_lin(make_experiment):
     assert pls.info["lin_min_eigenvalue"] == lin.info["min_eigenvalue"]
 
 
+def test_the_pseudo_inverses_are_computed_once_per_model(make_experiment, monkeypatch):
+    # a reproducer: a 5-qubit fit spent minutes in the linear-inversion start, one SVD per
+    # pass; the passes (and a bootstrap's refits) now share one pseudo-inverse per factor
+    exp, _ = make_experiment("CZ+amplitude-damping:0.2", shots=500, seed=2)
+    model = MeasurementModel(exp)
+    calls = []
+    pinv = np.linalg.pinv
+    monkeypatch.setattr(np.linalg, "pinv", lambda a, *k, **kw: calls.append(a.shape) or pinv(a, *k, **kw))
+    first = estimate(model, "lin")
+    assert first.iterations >= 2 and len(calls) == 2
+    again = estimate(model, "lin", counts=np.asarray(exp.counts, dtype=float) + 1.0)
+    assert len(calls) == 2 and not np.array_equal(again.choi, first.choi)
 def test_state_least_squares_solvers_agree(make_state_experiment, monkeypatch):
     # A complete three-qubit grid is solved by the Kronecker formula, a dense least
     # squares or LSQR: the same constrained problem, the same solution.

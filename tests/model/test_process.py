@@ -162,3 +162,16 @@ def test_identifiability_of_an_incomplete_pair_table(make_experiment, monkeypatc
     bound = MeasurementModel(exp).identifiability()
     present = int((MeasurementModel(exp).pairs_present() > 0).sum())
     assert present == 20 and bound.rank == min(4 * 3, present)
+
+
+def test_identifiability_of_a_subset_of_rows(make_experiment):
+    # the rows of the H and V preparations alone span two input directions (I and Z)
+    exp, _ = make_experiment("H", shots=200, n_qubits=1)
+    model = MeasurementModel(exp)
+    rows = np.isin(np.asarray(exp.prep)[:], ["H", "V"])
+    sub = model.identifiability(rows)
+    assert (sub.prep_rank, sub.meas_rank) == (2, 3) and not sub.complete
+    assert set(sub.missing_inputs) == {"X", "Y"}
+    assert model.identifiability().complete
+    with pytest.warns(gs.GatescopeWarning, match=r"^\[undetermined\] the preparations span only 2"):
+        model.warn_if_undetermined(rows)

@@ -14,6 +14,7 @@ states.
 from __future__ import annotations
 
 import time
+import weakref
 
 import numpy as np
 from scipy.sparse.linalg import LinearOperator, lsqr
@@ -47,6 +48,18 @@ def _frequencies(model: MeasurementModel, counts: np.ndarray, probs: np.ndarray)
     return freq, lam
 
 
+#: Pseudo-inverses of the analyser and preparation coordinates, per model: the passes of
+#: one fit (and the refits of a bootstrap) reuse them instead of one SVD per pass.
+_PINV = weakref.WeakKeyDictionary()
+
+
+def _kronecker_pinvs(model: MeasurementModel, e1: np.ndarray, r: np.ndarray):
+    cached = _PINV.get(model)
+    if cached is None:
+        cached = _PINV[model] = (np.linalg.pinv(e1), np.linalg.pinv(r).T)
+    return cached
+
+
 def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarray:
     """PTM R minimising Σ_k (f_k − p_k(R))², p = (1/d) e_mᵀ R r_p.
 
@@ -71,7 +84,8 @@ def _linear_least_squares(model: MeasurementModel, freq: np.ndarray) -> np.ndarr
     if q.size == mult.size and np.all(mult == mult[0]):
         # complete table, equal multiplicity: the design is a Kronecker product
         y = (sums / mult).reshape(model.n_preps, model.n_meas).T - fixed_table
-        sol = (np.linalg.pinv(e1) @ y @ np.linalg.pinv(r).T).reshape(-1)
+        pinv_e, pinv_r = _kronecker_pinvs(model, e1, r)
+        sol = (pinv_e @ y @ pinv_r).reshape(-1)
     elif q.size * n_cols <= _DENSE_LIMIT:
         design = (e1[m_idx][:, :, None] * r[p_idx][:, None, :]).reshape(q.size, n_cols)
         sol = np.linalg.lstsq(weight[:, None] * design, target, rcond=None)[0]

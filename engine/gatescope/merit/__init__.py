@@ -53,12 +53,10 @@ Target figures are absent when the experiment names no target.
 
 from __future__ import annotations
 
-import warnings
-
 import numpy as np
 
 from ..channels import apply_channel
-from ..errors import GatescopeWarning
+from ..errors import warn
 from .diamond import cvxpy_available, diamond_distance
 from .entanglement import concurrence, entangling_input
 from .process import (average_gate_fidelity, local_phase_fidelity, min_eigenvalue,
@@ -128,17 +126,17 @@ def compute_figures(choi: np.ndarray, target: np.ndarray | None, *, diamond: boo
         extra["concurrence_ideal"] = float(ideal)
     if diamond:
         if not cvxpy_available():
-            warnings.warn("diamond distance skipped: it needs cvxpy, the 'sdp' extra "
-                          "(pip install 'gatescope[sdp]')", GatescopeWarning, stacklevel=2)
+            warn("diamond", "diamond distance skipped: it needs cvxpy, the 'sdp' extra "
+                            "(pip install 'gatescope[sdp]')", stacklevel=2)
         else:
             dn = diamond_distance(choi, target)
             if dn["status"] not in ("optimal", "optimal_inaccurate"):
-                warnings.warn(f"diamond distance skipped: the solver ended with status "
-                              f"{dn['status']!r}", GatescopeWarning, stacklevel=2)
+                warn("diamond", f"diamond distance skipped: the solver ended with status "
+                                f"{dn['status']!r}", stacklevel=2)
             else:
                 if dn["status"] != "optimal":
-                    warnings.warn(f"diamond distance: the solver reports {dn['status']!r}",
-                                  GatescopeWarning, stacklevel=2)
+                    warn("diamond", f"diamond distance: the solver reports {dn['status']!r}",
+                         stacklevel=2)
                 out["diamond_distance"] = dn["value"]
                 extra["diamond_status"] = dn["status"]
                 extra["diamond_solver"] = dn["solver"]

@@ -19,14 +19,13 @@ memory O(d⁴ + P·M + rows).
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
 from ..channels import apply_on_every_qubit, choi_qubit_axes, from_qubit_axes
 from ..conventions import pauli_basis, pauli_labels
-from ..errors import GatescopeWarning
+from ..errors import warn
 from ..reader import Experiment
 
 
@@ -104,6 +103,7 @@ class MeasurementModel:
         self.fixed_intensities = (np.array([float(experiment.input_rate)])
                                   if self.trace_decreasing else None)
         self._pair_multiplicity = np.bincount(self.pair_index, minlength=self.n_preps * self.n_meas)
+        self._pauli = None
         self.structured = self.n_qubits >= STRUCTURED_FROM_QUBITS
         if self.structured:
             self._setup_qubitwise(experiment)
@@ -187,22 +187,39 @@ class MeasurementModel:
         """Real Pauli vectors r_p[j] = Tr(ρ_p P_j) and e_m[i] = Tr(E_m P_i).
 
         In these coordinates p = (1/d) e_mᵀ R r_p, R the Pauli transfer matrix.
+        Computed once per model (a linear inversion asks for them at every pass).
         """
-        d = self.dim
-        # Tr(X P) = Σ X[a,b] P[b,a]
-        flat_t = pauli_basis(self.n_qubits).transpose(0, 2, 1).reshape(d * d, d * d)
-        r = (self.experiment.prep_states.reshape(self.n_preps, -1) @ flat_t.T).real
-        e = (self.experiment.meas_effects.reshape(self.n_meas, -1) @ flat_t.T).real
-        return r, e
+        if self._pauli is None:
+            d = self.dim
+            # Tr(X P) = Σ X[a,b] P[b,a]
+            flat_t = pauli_basis(self.n_qubits).transpose(0, 2, 1).reshape(d * d, d * d)
+            r = (self.experiment.prep_states.reshape(self.n_preps, -1) @ flat_t.T).real
+            e = (self.experiment.meas_effects.reshape(self.n_meas, -1) @ flat_t.T).real
+            r.setflags(write=False)
+            e.setflags(write=False)
+            self._pauli = (r, e)
+        return self._pauli
 
-    def pairs_present(self) -> np.ndarray:
-        """Multiplicity of every (prep, meas) pair in the rows, shape (P, M)."""
-        return self._pair_multiplicity.reshape(self.n_preps, self.n_meas)
+    def pairs_present(self, rows: np.ndarray | None = None) -> np.ndarray:
+        """Multiplicity of every (prep, meas) pair in the rows (or in the rows selected by
+        the boolean mask ``rows``), shape (P, M)."""
+        if rows is None:
+            return self._pair_multiplicity.reshape(self.n_preps, self.n_meas)
+        return np.bincount(self.pair_index[rows], minlength=self.n_preps * self.n_meas).reshape(
+            self.n_preps, self.n_meas)
 
-    def identifiability(self) -> Identifiability:
+    def identifiability(self, rows: np.ndarray | None = None) -> Identifiability:
         """Which process parameters the rows determine (d⁴ − d² for trace-preserving
-        maps, d⁴ for trace non-increasing ones)."""
+        maps, d⁴ for trace non-increasing ones).
+
+        ``rows``, a boolean mask, restricts the question to those rows (the rows that
+        carry information, `gatescope.checks.informative_rows`).
+        """
         r, e = self.pauli_coordinates()
+        present = self.pairs_present(rows) > 0
+        if rows is not None:             # only the settings that appear in those rows
+            r, e = r[present.any(axis=1)], e[present.any(axis=0)]
+            present = present[present.any(axis=1)][:, present.any(axis=0)]
         d = self.dim
         labels = pauli_labels(self.n_qubits)
         # a trace-preserving map has its output identity component fixed; a trace
@@ -211,7 +228,6 @@ class MeasurementModel:
         prep_rank, missing_in = _span(r, labels)
         meas_rank, missing_out = _span(e[:, first:], labels[first:])
         n_params = d ** 4 - (0 if self.trace_decreasing else d ** 2)
-        present = self.pairs_present() > 0
         if present.all():
             rank = prep_rank * meas_rank
         elif n_params <= DENSE_RANK_MAX_PARAMETERS:
@@ -224,26 +240,26 @@ class MeasurementModel:
         return Identifiability(prep_rank, meas_rank, rank, n_params,
                                tuple(missing_in), tuple(missing_out))
 
-    def warn_if_undetermined(self) -> Identifiability:
-        """Warn (GatescopeWarning) naming the part of the process the data leave open."""
-        ident = self.identifiability()
+    def warn_if_undetermined(self, rows: np.ndarray | None = None) -> Identifiability:
+        """Warn (GatescopeWarning, code ``undetermined``) naming the part of the process
+        the data (the rows selected by ``rows``, all by default) leave open."""
+        ident = self.identifiability(rows)
         d2 = self.dim ** 2
         n_out = d2 if self.trace_decreasing else d2 - 1
         if ident.prep_rank < d2:
-            warnings.warn(
-                f"the preparations span only {ident.prep_rank} of {d2} input operator directions: "
-                f"the process is undetermined on the input Pauli components "
-                f"{_short(ident.missing_inputs)}; the fit still runs", GatescopeWarning, stacklevel=3)
+            warn("undetermined",
+                 f"the preparations span only {ident.prep_rank} of {d2} input operator directions: "
+                 f"the process is undetermined on the input Pauli components "
+                 f"{_short(ident.missing_inputs)}; the fit still runs", stacklevel=2)
         if ident.meas_rank < n_out:
-            warnings.warn(
-                f"the analyser effects span only {ident.meas_rank} of {n_out} output "
-                f"directions: the output Pauli components {_short(ident.missing_outputs)} are not "
-                f"measured; the fit still runs", GatescopeWarning, stacklevel=3)
+            warn("undetermined",
+                 f"the analyser effects span only {ident.meas_rank} of {n_out} output "
+                 f"directions: the output Pauli components {_short(ident.missing_outputs)} are not "
+                 f"measured; the fit still runs", stacklevel=2)
         if ident.prep_rank == d2 and ident.meas_rank == n_out and not ident.complete:
-            warnings.warn(
-                f"the (prep, meas) pairs present determine only {ident.rank} of "
-                f"{ident.n_parameters} process parameters; the fit still runs",
-                GatescopeWarning, stacklevel=3)
+            warn("undetermined",
+                 f"the (prep, meas) pairs present determine only {ident.rank} of "
+                 f"{ident.n_parameters} process parameters; the fit still runs", stacklevel=2)
         return ident
 
 

@@ -26,13 +26,11 @@ and no rows × d² (or settings × d²) matrix exists at any size.
 
 from __future__ import annotations
 
-import warnings
-
 import numpy as np
 
 from ..channels import apply_on_every_qubit
 from ..conventions import pauli_basis, pauli_labels
-from ..errors import GatescopeWarning
+from ..errors import warn
 from ..reader import Experiment
 from .process import STRUCTURED_FROM_QUBITS, Identifiability, _short, _span
 
@@ -330,24 +328,25 @@ class StateModel:
         present = np.bincount(self.setting_grid[self._meas_multiplicity > 0],
                               minlength=self.grid_size)
         if np.count_nonzero(present) != self.grid_size:
-            warnings.warn("identifiability: too many settings for the exact rank and not a "
-                          "complete product grid; the rank reported is an upper bound",
-                          GatescopeWarning, stacklevel=2)
+            warn("undetermined", "identifiability: too many settings for the exact rank and not "
+                                 "a complete product grid; the rank reported is an upper bound",
+                 stacklevel=2)
         return Identifiability(1, meas_rank, min(meas_rank - 1, n_params), n_params, (), missing)
 
-    def warn_if_undetermined(self) -> Identifiability:
-        """Warn (GatescopeWarning) naming the Pauli components the data leave open."""
+    def warn_if_undetermined(self, rows: np.ndarray | None = None) -> Identifiability:
+        """Warn (GatescopeWarning, code ``undetermined``) naming the Pauli components the
+        data leave open. ``rows`` is accepted for the interface of the process model; a
+        state's identifiability is that of all its rows."""
         ident = self.identifiability()
         if ident.missing_outputs:
-            warnings.warn(
-                f"the analyser effects span only {ident.meas_rank} of {self.dim ** 2} operator "
-                f"directions: the Pauli components {_short(ident.missing_outputs)} of the state "
-                f"are not measured; the fit still runs", GatescopeWarning, stacklevel=3)
+            warn("undetermined",
+                 f"the analyser effects span only {ident.meas_rank} of {self.dim ** 2} operator "
+                 f"directions: the Pauli components {_short(ident.missing_outputs)} of the state "
+                 f"are not measured; the fit still runs", stacklevel=2)
         elif not ident.complete:
-            warnings.warn(
-                f"with the intensities fitted, the rows determine only {ident.rank} of "
-                f"{ident.n_parameters} state parameters; the fit still runs",
-                GatescopeWarning, stacklevel=3)
+            warn("undetermined",
+                 f"with the intensities fitted, the rows determine only {ident.rank} of "
+                 f"{ident.n_parameters} state parameters; the fit still runs", stacklevel=2)
         return ident
 
 

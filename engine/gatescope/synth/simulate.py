@@ -37,18 +37,20 @@ from pathlib import Path
 
 import numpy as np
 
-from ..conventions import LABEL_SETS, builtin_states, density, kron_all, named_gate
+from ..conventions import LABEL_SETS, builtin_states, density, kron_all, n_qubits_of, named_gate
 from ..errors import InputError
 from ..fileio import atomic_write_text
 from ..likelihood import PoissonLikelihood
 from ..merit import compute_figures
 from ..model import build_model
+from ..options import whole
 from ..provenance import provenance
-from ..reader import read_experiment
+from ..reader import MAX_QUBITS, read_experiment
 from ..result import build_result
 from .lab import (IDEAL_SUCCESS, LabNoise, accidental_background, actual_optics,
                   detectors_in_coincidence, drift_factors)
 from .noise import parse_channel_spec, spec_channel
+from .plan import MAX_ROWS
 
 
 @dataclass(frozen=True)
@@ -331,12 +333,23 @@ def run_simulation(spec: str, outdir: Path, *, shots: float = 1000.0, prep: str 
     is the option a bad SPEC is blamed on. Returns the path of experiment.toml.
     """
     started = time.time()
+    whole(n_qubits, "--qubits", 1, MAX_QUBITS)
     try:
-        channel = channel_from_spec(spec, n_qubits)
+        parsed = parse_channel_spec(spec)
+        rnd = parsed.random
+        size = n_qubits if rnd is not None else n_qubits_of(named_gate(parsed.gate).shape[0])
     except ValueError as exc:
         raise InputError(str(exc), key=spec_option) from None
     prep_set = checked_set(prep, "--prep")
     meas_set = checked_set(meas, "--meas")
+    n_rows = (len(prep_set) * len(meas_set)) ** size
+    if n_rows > MAX_ROWS:
+        raise InputError(f"{size} qubits with these sets make {n_rows:,} rows (more than "
+                         f"{MAX_ROWS:,})", key="--qubits" if rnd is not None else spec_option)
+    try:
+        channel = channel_from_spec(spec, n_qubits)
+    except ValueError as exc:
+        raise InputError(str(exc), key=spec_option) from None
     shots = checked_shots(shots)
     seed = simulation_seed(seed)
     acq = acquisition(channel, shots=shots, prep_set=prep_set, meas_set=meas_set)
