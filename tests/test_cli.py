@@ -314,3 +314,17 @@ def test_demo_says_what_it_replaces(tmp_path, monkeypatch, capsys):
         assert "replacing" not in capsys.readouterr().err
         assert main(["demo"]) == 0
     assert "demo: replacing gatescope-demo/result.h5" in capsys.readouterr().err
+
+
+def test_cli_bench_prints_the_table_and_writes_the_folder(tmp_path, capsys):
+    out = tmp_path / "bench"
+    assert main(["bench", "--channel", "H+depolarizing:0.2", "--channel", "random:2:1",
+                 "--qubits", "1", "--shots", "500,5000", "--methods", "lin,mle", "--repeats", "3",
+                 "--seed", "4", "--workers", "1", "--quiet", "-o", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "H+depolarizing:0.2" in text and "random:2:1" in text and "hs_mse" in text
+    assert "24 repetitions run now, 0 taken from" in text and "(seed 4)" in text
+    for name in ("bench.csv", "bench.h5", "settings.json", "runs.jsonl"):
+        assert (out / name).exists()
+    assert main(["bench", "--channel", "H", "--shots", "10,x", "-o", str(tmp_path / "x")]) == 2
+    assert "option --shots:" in capsys.readouterr().err

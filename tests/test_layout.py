@@ -23,7 +23,7 @@ CORE = ["errors", "options", "fileio", "checksum", "resources", "provenance", "p
         "merit", "intervals", "bootstrap", "diagnostics", "checks", "result_file", "result", "pipeline",
         "summary", "export", "__init__"]
 #: Capabilities, in the order they may build on each other.
-CAPABILITIES = ["synth", "batch"]
+CAPABILITIES = ["synth", "batch", "report", "bench"]
 #: The entry points, above everything.
 ENTRY = ["cli", "__main__"]
 ORDER = CORE + CAPABILITIES + ENTRY

@@ -54,7 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .conventions import GATE_NAMES
     from .estimators import METHODS
     from .intervals import DEFAULT_INTERVAL, INTERVALS
-    from .synth.noise import NOISE_KINDS
+    from .synth.noise import spec_forms
     from .synth.state import STATE_NOISE_KINDS
 
     p = _Parser(prog="gatescope",
@@ -91,14 +91,14 @@ def build_parser() -> argparse.ArgumentParser:
     m = sub.add_parser("simulate", help="write a synthetic experiment of a known channel or state")
     src = m.add_mutually_exclusive_group(required=True)
     src.add_argument("--gate", help=f"a named gate ({' '.join(GATE_NAMES)})")
-    src.add_argument("--channel", metavar="SPEC", help="GATE[+KIND:P]... or random:RANK[:SEED]")
+    src.add_argument("--channel", metavar="SPEC",
+                     help="GATE[+TERM]... or random:RANK[:SEED][+TERM]... (README, Commands)")
     src.add_argument("--state", metavar="SPEC",
                      help="a state experiment: STATE[+KIND:P]... (STATE a product label, phi+, "
                           "phi-, psi+, psi-, GHZ or W) or random:RANK[:SEED]")
-    m.add_argument("--noise", action="append", default=[], metavar="KIND:P",
-                   help=f"noise after the gate, KIND:P with KIND one of {', '.join(NOISE_KINDS)} "
-                        f"(for a state also {', '.join(STATE_NOISE_KINDS[len(NOISE_KINDS):])}; "
-                        "repeatable)")
+    m.add_argument("--noise", action="append", default=[], metavar="TERM",
+                   help=f"noise after the gate, one of {spec_forms()} (for a state "
+                        f"{', '.join(STATE_NOISE_KINDS)}; repeatable)")
     m.add_argument("--qubits", type=int, default=2,
                    help="qubits of a random channel, or of a GHZ, W or random state (default 2)")
     m.add_argument("--shots", type=float, default=1000.0, metavar="N",
@@ -154,7 +154,42 @@ def build_parser() -> argparse.ArgumentParser:
                    help="keep looking for new or changed experiments every SECONDS until stopped")
     b.add_argument("--dask", default=None, metavar="ADDRESS",
                    help="run on this dask.distributed scheduler (needs the dask extra)")
+    _add_bench_parser(sub)
     return p
+
+
+def _add_bench_parser(sub) -> None:
+    from .bench.run import DEFAULT_REPEATS
+    from .intervals import DEFAULT_INTERVAL, INTERVALS
+
+    b = sub.add_parser(
+        "bench", help="how good is an estimator: repeated fits of simulated data of known channels",
+        description="Simulate every channel at every count level many times, fit with every "
+                    "method, and tabulate the errors against the truth beside the Cramér-Rao "
+                    "bound (DIR/bench.csv, DIR/bench.h5, DIR/bench.png). A rerun in the same "
+                    "folder continues where it stopped.")
+    b.add_argument("--channel", action="append", required=True, metavar="SPEC",
+                   help="a channel SPEC as for simulate (repeatable)")
+    b.add_argument("--shots", default="100,1000,10000", metavar="N,N,...",
+                   help="count levels: expected counts per preparation and analyser basis "
+                        "(default 100,1000,10000)")
+    b.add_argument("--methods", default=None, metavar="M,M,...",
+                   help="estimators (default: all)")
+    b.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    b.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    b.add_argument("--qubits", type=int, default=2, help="qubits of random channels (default 2)")
+    b.add_argument("--repeats", type=int, default=DEFAULT_REPEATS, metavar="R",
+                   help=f"repetitions per channel, count level and method (default {DEFAULT_REPEATS})")
+    b.add_argument("--bootstrap", type=int, default=0, metavar="B",
+                   help="bootstrap resamples per repetition, for the coverage of the intervals")
+    b.add_argument("--interval", choices=INTERVALS, default=DEFAULT_INTERVAL,
+                   help=f"interval whose coverage is tabulated (default {DEFAULT_INTERVAL})")
+    b.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL")
+    b.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
+    b.add_argument("--dask", default=None, metavar="ADDRESS", help="a dask scheduler to run on")
+    b.add_argument("--seed", type=int, default=None, help="bench seed (recorded; a folder keeps its own)")
+    b.add_argument("--quiet", action="store_true", help="no progress bar")
+    b.add_argument("-o", "--output", required=True, metavar="DIR")
 
 
 def main(argv=None) -> int:
@@ -178,7 +213,8 @@ def main(argv=None) -> int:
         previous = None
     try:
         return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
-                "demo": cmd_demo, "batch": cmd_batch}[args.command](args, command_line)
+                "demo": cmd_demo, "batch": cmd_batch, "bench": cmd_bench}[args.command](
+                    args, command_line)
     except InputError as exc:
         print(f"gatescope: error: {clean(exc)}", file=sys.stderr)
         return 2
@@ -274,7 +310,7 @@ def cmd_show(args, command_line) -> int:
 
 
 def cmd_simulate(args, command_line) -> int:
-    from .synth.noise import parse_noise
+    from .synth.noise import parse_term
     from .synth.simulate import run_simulation
 
     if args.state is not None:
@@ -286,7 +322,7 @@ def cmd_simulate(args, command_line) -> int:
         options.choice(args.gate, GATE_NAMES, "--gate", "gate")
     for text in args.noise:
         try:
-            parse_noise(text)
+            parse_term(text)
         except ValueError as exc:
             raise InputError(str(exc), key="--noise") from None
     option = "--channel" if args.channel else "--gate"
@@ -424,3 +460,22 @@ def cmd_batch(args, command_line) -> int:
     return run_batch(args.paths, args.output, workers=args.workers, bootstrap=args.bootstrap,
                      method=args.method, seed=args.seed, force=args.force, watch=args.watch,
                      dask=args.dask, command_line=command_line).exit_status
+
+
+def cmd_bench(args, command_line) -> int:
+    from .bench import run_bench
+    from .bench.table import text_table
+
+    out = run_bench(args.channel, args.output, shots=args.shots, methods=args.methods,
+                    prep=args.prep, meas=args.meas, qubits=args.qubits, repeats=args.repeats,
+                    bootstrap=args.bootstrap, interval=args.interval, ci_level=args.ci_level,
+                    seed=args.seed, workers=args.workers, address=args.dask,
+                    progress=not args.quiet, command_line=command_line, flags=True)
+    print(text_table(out.rows))
+    print(f"\n{out.new} repetitions run now, {out.reused} taken from {out.folder} (seed {out.seed})")
+    for note in out.notes:
+        print(note)
+    for path in (out.csv, out.h5, out.plot):
+        if path is not None:
+            print(path)
+    return 0

@@ -11,12 +11,19 @@ from gatescope.conventions import GATES
 from gatescope.synth import noise
 
 
+def _parts(spec):
+    parsed = noise.parse_channel_spec(spec)
+    return parsed.gate, parsed.noise, parsed.random
+
+
 def test_spec_strings_parse():
-    assert noise.parse_channel_spec("CZ") == ("CZ", [], None)
-    assert noise.parse_channel_spec("CZ+depolarizing:0.02+zz:0.1") == \
+    assert _parts("CZ") == ("CZ", [], None)
+    assert _parts("CZ+depolarizing:0.02+zz:0.1") == \
         ("CZ", [("depolarizing", 0.02), ("zz", 0.1)], None)
-    assert noise.parse_channel_spec("random:4:9") == (None, [], (4, 9))
-    assert noise.parse_channel_spec("random:4") == (None, [], (4, None))
+    assert _parts("random:4:9") == (None, [], (4, 9))
+    assert _parts("random:4") == (None, [], (4, None))
+    assert _parts("random:4:9+dephasing:0.1") == (None, [("dephasing", 0.1)], (4, 9))
+    assert noise.parse_channel_spec("CZ+zz:0.1").lab == noise.LabNoise()
 
 
 @pytest.mark.parametrize("spec, words", [

@@ -1,9 +1,13 @@
 """Known channels for simulation: noise channels, random channels, SPEC strings.
 
-A channel SPEC names a gate followed by noise, ``GATE[+KIND:P]...`` (for
-example ``CZ+depolarizing:0.02+zz:0.1``), or a random channel,
-``random:RANK[:SEED]``. The noise kinds act after the gate, in the order
-given (README, "Commands"):
+A channel SPEC (README, "Commands" and "Noise that labs have") is one
+grammar for `simulate --channel`, `bench --channel` and the demo recipe:
+
+    GATE[+TERM]...   or   random:RANK[:SEED][+TERM]...
+
+``random:RANK[:SEED]`` is a random CPTP channel of that Choi rank. A TERM
+is ``KIND:V[:V...]``. Process noise acts after the gate (or the random
+channel), in the order given:
 
 * ``depolarizing:p`` — Φ ↦ (1−p)·Φ + p·(ρ ↦ Tr ρ · I/d) on the whole process;
 * ``dephasing:p`` — ρ ↦ (1−p)·ρ + p·ZρZ on every qubit;
@@ -12,6 +16,22 @@ given (README, "Commands"):
 * ``zz:phi`` — exp(−i·phi·Z⊗Z/2) on each neighbouring pair of qubits
   (phi in radians).
 
+The bench kinds of `gatescope.synth.lab` (each at most once):
+
+* ``distinguishability:X`` — the postselected linear-optics CZ or CNOT with
+  a fraction X of distinguishable photon pairs; it replaces the gate, so it
+  must directly follow CZ or CNOT (trace decreasing);
+* ``plates:ANGLE:RETARD[:SEED]`` — every wave plate has a fixed angle
+  offset ~ N(0, ANGLE²) and retardance error ~ N(0, RETARD²), degrees,
+  drawn from SEED (default 0);
+* ``accidentals:SINGLES:WINDOW_NS`` — accidental coincidences from singles
+  rates SINGLES (per second, every detector) and a coincidence window
+  WINDOW_NS (nanoseconds);
+* ``drift:CHANGE`` — the source intensity changes linearly over the rows by
+  CHANGE (relative, |CHANGE| < 2), mean 1; ``drift-walk:SIGMA[:SEED]`` — a
+  random walk of the log-intensity whose total change has standard
+  deviation SIGMA (without SEED a new walk for every simulation seed).
+
 Errors are `ValueError` with a message for the user; the callers that take
 a SPEC from the user turn them into an `InputError` naming the option.
 """
@@ -19,11 +39,13 @@ a SPEC from the user turn them into an `InputError` naming the option.
 from __future__ import annotations
 
 import itertools
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..channels import choi_from_kraus, choi_from_unitary, compose
 from ..conventions import GATE_NAMES, kron_all, n_qubits_of, named_gate
+from .lab import LAB_FORMS, LAB_KINDS, LabNoise, distinguishability_gate, lab_noise, parse_lab_term
 
 
 def depolarizing(p: float, d: int) -> np.ndarray:
@@ -116,25 +138,70 @@ def random_channel(n_qubits: int, rank: int, seed: int | None = None) -> np.ndar
     return choi_from_kraus(kraus)
 
 
-def parse_channel_spec(spec: str):
-    """Parse a channel SPEC, ``GATE[+KIND:P]...`` or ``random:RANK[:SEED]``.
+@dataclass(frozen=True)
+class ChannelSpec:
+    """A parsed channel SPEC.
 
-    Returns
-    -------
+    Attributes
+    ----------
+    text : str
+        The SPEC as given.
     gate : str or None
         The gate name (the target of the simulated experiment), None for a
         random channel.
     noise : list of (kind, value)
-    random : tuple (rank, seed) or None
+        The process-noise terms, in order.
+    random : (rank, seed or None) or None
+        ``random:RANK[:SEED]``.
+    lab : LabNoise
+        The bench kinds (`gatescope.synth.lab`).
     """
+
+    text: str
+    gate: str | None
+    noise: list
+    random: tuple | None = None
+    lab: LabNoise = field(default_factory=LabNoise)
+
+
+def parse_channel_spec(spec: str) -> ChannelSpec:
+    """Parse a channel SPEC, ``GATE[+TERM]...`` or ``random:RANK[:SEED][+TERM]...``
+    (the grammar of the module docstring); ValueError naming what is wrong."""
     text = spec.strip()
-    if text.startswith("random:"):
-        return None, [], parse_random(text, f"channel {spec!r}")
     pieces = text.split("+")
-    gate = pieces[0]
-    if gate not in GATE_NAMES:
-        raise ValueError(f"channel {spec!r}: unknown gate {gate!r}; known gates: {', '.join(GATE_NAMES)}")
-    return gate, [parse_noise(p) for p in pieces[1:]], None
+    head = pieces[0]
+    gate, rnd = None, None
+    if head.startswith("random:") or head == "random":
+        rnd = parse_random(head, f"channel {spec!r}")
+    elif head in GATE_NAMES:
+        gate = head
+    else:
+        raise ValueError(f"channel {spec!r}: unknown gate {head!r}; known gates: "
+                         f"{', '.join(GATE_NAMES)}")
+    noise, bench = [], []
+    for position, piece in enumerate(pieces[1:]):
+        kind, term = parse_term(piece)
+        if kind in LAB_KINDS:
+            if kind == "distinguishability" and (gate not in ("CZ", "CNOT") or position != 0):
+                raise ValueError(f"channel {spec!r}: distinguishability replaces the gate by its "
+                                 "postselected linear-optics version, so it must directly "
+                                 "follow CZ or CNOT")
+            bench.append((kind, term))
+        else:
+            noise.append((kind, term))
+    return ChannelSpec(text, gate, noise, rnd, lab_noise(bench, spec))
+
+
+def parse_term(text: str) -> tuple[str, object]:
+    """Parse one TERM of a channel SPEC: (kind, value) for process noise, (kind, values)
+    for a bench kind (`gatescope.synth.lab.parse_lab_term`)."""
+    kind, sep, _ = text.partition(":")
+    if kind in LAB_KINDS:
+        return parse_lab_term(text)
+    if sep and kind not in NOISE_KINDS:
+        raise ValueError(f"noise {text!r}: unknown kind {kind!r}; known: "
+                         f"{', '.join(NOISE_KINDS + LAB_KINDS)}")
+    return parse_noise(text)
 
 
 def parse_random(text: str, what: str) -> tuple[int, int | None]:
@@ -174,3 +241,28 @@ def build_channel(gate: str, noise, n_qubits: int | None = None) -> np.ndarray:
     for kind, value in noise:
         choi = compose(choi, noise_channel(kind, value, n))
     return choi
+
+
+def spec_channel(spec: ChannelSpec, n_qubits: int = 2) -> np.ndarray:
+    """Choi matrix of a parsed SPEC's process: the gate (its postselected version with
+    ``distinguishability``) or the random channel, then the process noise in order.
+
+    ``n_qubits`` is used only by ``random:RANK[:SEED]``, which names no gate.
+    The other bench kinds do not change the process.
+    """
+    if spec.random is not None:
+        rank, seed = spec.random
+        choi = random_channel(n_qubits, rank, seed)
+    elif spec.lab.distinguishability is not None:
+        choi = distinguishability_gate(spec.gate, spec.lab.distinguishability)
+    else:
+        return build_channel(spec.gate, spec.noise)
+    n = n_qubits_of(int(round(np.sqrt(choi.shape[0]))))
+    for kind, value in spec.noise:
+        choi = compose(choi, noise_channel(kind, value, n))
+    return choi
+
+
+def spec_forms() -> str:
+    """Every TERM form, for help texts: ``depolarizing:P, ..., drift-walk:SIGMA[:SEED]``."""
+    return ", ".join([f"{k}:P" for k in NOISE_KINDS] + list(LAB_FORMS.values()))

@@ -47,7 +47,7 @@ from pathlib import Path
 import numpy as np
 from scipy.optimize import minimize
 
-from ..conventions import RIGHT_CIRCULAR_CHOICES, builtin_states, half_wave, quarter_wave
+from ..conventions import RIGHT_CIRCULAR_CHOICES, builtin_states, wave_plate
 from ..errors import InputError
 from ..fileio import atomic_write_text
 
@@ -60,14 +60,27 @@ MAX_QUBITS = 6
 _H = np.array([1.0, 0.0], dtype=complex)
 
 
-def prepared_state(hwp_deg: float, qwp_deg: float) -> np.ndarray:
-    """The state QWP·HWP|H> that the preparation optics make (not normalised away)."""
-    return quarter_wave(math.radians(qwp_deg)) @ half_wave(math.radians(hwp_deg)) @ _H
+def prepared_state(hwp_deg: float, qwp_deg: float, hwp_retardance_deg: float = 180.0,
+                   qwp_retardance_deg: float = 90.0) -> np.ndarray:
+    """The state QWP·HWP|H> (a unit vector) that the preparation optics make.
+
+    Angles and retardances in degrees; the default retardances are those of
+    ideal half- and quarter-wave plates, other values describe imperfect
+    plates (`gatescope.synth.lab`).
+    """
+    w = (wave_plate(math.radians(qwp_deg), math.radians(qwp_retardance_deg))
+         @ wave_plate(math.radians(hwp_deg), math.radians(hwp_retardance_deg)))
+    return w @ _H
 
 
-def analysed_effect(qwp_deg: float, hwp_deg: float) -> np.ndarray:
-    """The effect W†|H><H|W of the analysis optics, W = HWP·QWP (light meets the QWP first)."""
-    w = half_wave(math.radians(hwp_deg)) @ quarter_wave(math.radians(qwp_deg))
+def analysed_effect(qwp_deg: float, hwp_deg: float, qwp_retardance_deg: float = 90.0,
+                    hwp_retardance_deg: float = 180.0) -> np.ndarray:
+    """The effect W†|H><H|W of the analysis optics, W = HWP·QWP (light meets the QWP first).
+
+    Angles and retardances in degrees, as for :func:`prepared_state`.
+    """
+    w = (wave_plate(math.radians(hwp_deg), math.radians(hwp_retardance_deg))
+         @ wave_plate(math.radians(qwp_deg), math.radians(qwp_retardance_deg)))
     return w.conj().T @ np.outer(_H, _H) @ w
 
 

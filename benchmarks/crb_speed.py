@@ -1,0 +1,99 @@
+"""Time and memory of the Cramér–Rao bound (gatescope.bench.crb.hs_crb) for 1 to 3 qubits.
+
+Each case runs in its own subprocess (so that its peak memory is its own):
+simulate a full six-state experiment of a full-rank channel, build the
+model, then time ``fisher_information`` (assembly, with the profiled
+intensities) and ``inverse_trace`` (Cholesky and triangular inverse)
+separately. Peak memory is the process's resident high-water mark (VmHWM)
+before and after the bound. Four qubits are not run: the dense matrix would
+take 8·65280² bytes (34 GB), which ``fisher_information`` refuses.
+
+    python benchmarks/crb_speed.py [--qubits 1 2 3] [--output benchmarks/results/crb_speed.json]
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import json  # noqa: E402
+import platform  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+CHANNELS = {1: "random:4:1", 2: "random:16:1", 3: "random:64:1"}
+
+
+def _hwm_mb() -> float:
+    with open("/proc/self/status") as fh:
+        for line in fh:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    return float("nan")
+
+
+def one_case(n: int) -> dict:
+    import tempfile
+
+    import numpy as np
+
+    from gatescope.bench import crb
+    from gatescope.model import MeasurementModel
+    from gatescope.reader import read_experiment
+    from gatescope.synth.simulate import channel_from_spec, simulate_counts, write_experiment
+
+    spec = CHANNELS[n]
+    channel = channel_from_spec(spec, n)
+    with tempfile.TemporaryDirectory() as tmp:
+        rows = simulate_counts(channel, shots=1000.0, seed=1)
+        exp = read_experiment(write_experiment(Path(tmp), channel, rows, title="crb speed"))
+    model = MeasurementModel(exp)
+    lam = np.full(model.n_groups, 1000.0)
+    before = _hwm_mb()
+    t0 = time.perf_counter()
+    info = crb.fisher_information(model, channel.choi, lam)
+    t1 = time.perf_counter()
+    bound = crb.inverse_trace(info.matrix)
+    t2 = time.perf_counter()
+    return {"qubits": n, "channel": spec, "rows": model.n_rows, "parameters": info.n_parameters,
+            "fisher_seconds": t1 - t0, "inverse_seconds": t2 - t1, "hs_crb": bound,
+            "peak_mb_before": before, "peak_mb_after": _hwm_mb(),
+            "matrix_mb": info.matrix.nbytes / 2 ** 20}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--qubits", type=int, nargs="+", default=[1, 2, 3])
+    ap.add_argument("--output", default=str(Path(__file__).parent / "results" / "crb_speed.json"))
+    ap.add_argument("--case", type=int, help=argparse.SUPPRESS)
+    args = ap.parse_args(argv)
+    if args.case is not None:
+        print(json.dumps(one_case(args.case)))
+        return 0
+    results = []
+    for n in args.qubits:
+        out = subprocess.run([sys.executable, __file__, "--case", str(n)], check=True,
+                             capture_output=True, text=True)
+        results.append(json.loads(out.stdout.strip().splitlines()[-1]))
+    print("| qubits | rows | parameters | Fisher (s) | Tr F⁻¹ (s) | F (MB) "
+          "| peak MB before → after |")
+    print("|---|---|---|---|---|---|---|")
+    for r in results:
+        print(f"| {r['qubits']} | {r['rows']} | {r['parameters']} | {r['fisher_seconds']:.3f} | "
+              f"{r['inverse_seconds']:.3f} | {r['matrix_mb']:.0f} | "
+              f"{r['peak_mb_before']:.0f} → {r['peak_mb_after']:.0f} |")
+    record = {"run_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+              "platform": platform.platform(), "python": platform.python_version(),
+              "threads": os.environ.get("OPENBLAS_NUM_THREADS"), "cases": results}
+    Path(args.output).parent.mkdir(parents=True, exist_ok=True)
+    Path(args.output).write_text(json.dumps(record, indent=1) + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,473 @@
+"""`gatescope bench`: estimators on known channels, repetition after repetition.
+
+For every channel (a SPEC of `gatescope.synth.noise`), every count level
+(``shots``, as in `simulate`) and every estimator, the bench draws
+``repeats`` independent simulated runs of the same design, fits each one,
+and measures how far the estimate lands from the truth
+(`gatescope.bench.measures`); the table (`gatescope.bench.table`) sets the
+mean squared error beside the Cramér–Rao bound (`gatescope.bench.crb`).
+
+Seeds. Repetition r of channel c at shots N with method m draws its run from
+the seed ``repetition_seed(seed, c, qubits, N, m, r)``: the first 63 bits of
+the SHA-256 of that key. Its numbers therefore depend on nothing but the
+bench seed and the key — not on the number of workers, the order in which
+repetitions finish, an interruption, or which other channels, count levels
+or methods the bench holds. Its bootstrap (``bootstrap`` B > 0, parametric,
+for the coverage of the intervals) is seeded the same way with the key
+extended by ``"bootstrap"``.
+
+Resuming. Finished repetitions are appended to the folder's journal
+(`gatescope.bench.store`); a later run in the same folder with the same
+seed, design, random-channel size and bootstrap size does only the
+repetitions that are missing (more channels, count levels, methods or
+repeats extend the bench). The table, ``bench.h5`` and the plot describe
+the channels × shots × methods × repetitions 0 … R−1 of the run that wrote
+them, also when it was interrupted (Ctrl-C writes them before stopping).
+
+Parallel work goes through `gatescope.parallel.Runner`, a few repetitions
+per task; the workers receive the simulated experiments once.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import tempfile
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..bootstrap import draw_seed
+from ..errors import InputError
+from ..estimators import METHODS
+from ..intervals import DEFAULT_INTERVAL, INTERVALS
+from ..merit import FIGURE_NAMES
+from ..model import MeasurementModel
+from ..options import choice, flag, fraction, positive, whole
+from ..options import seed as check_seed
+from ..options import workers as check_workers
+from ..parallel import Runner
+from ..progress import Progress
+from ..provenance import provenance
+from ..reader import read_experiment
+from ..synth.simulate import acquisition, channel_from_spec, label_set, write_experiment
+from . import crb, store, table
+from .measures import Case, Truth, repetition
+
+DEFAULT_SHOTS = (100.0, 1000.0, 10000.0)
+DEFAULT_REPEATS = 50
+#: Repetitions per task: small, so that an interruption loses little and the progress
+#: bar moves, yet several, so that the fast estimators are not dominated by messaging.
+CHUNK = 4
+#: Settings every repetition depends on; a folder keeps them for good.
+FIXED_SETTINGS = ("seed", "prep", "meas", "qubits", "bootstrap")
+#: Python argument → command-line option, for messages about options.
+OPTION_FLAGS = {"channels": "--channel", "address": "--dask", "outdir": "--output"}
+
+
+def repetition_seed(seed: int, channel: str, qubits: int, shots: float, method: str,
+                    rep: int, *extra: str) -> int:
+    """The seed of one repetition: the first 63 bits of SHA-256 of its key."""
+    text = "|".join([str(int(seed)), channel, str(int(qubits)), repr(float(shots)), method,
+                     str(int(rep)), *extra])
+    return int.from_bytes(hashlib.sha256(text.encode("utf-8")).digest()[:8], "little") >> 1
+
+
+def _number_list(value, key: str) -> tuple[float, ...]:
+    """``"100,1000"`` or a sequence of numbers → positive floats, in the order given."""
+    parts = [p.strip() for p in value.split(",")] if isinstance(value, str) else list(value)
+    out = []
+    for part in parts:
+        try:
+            number = float(part)
+        except (TypeError, ValueError):
+            raise InputError(f"{part!r} is not a number (give a comma list such as "
+                             "100,1000,10000)", key=key) from None
+        out.append(positive(number, key))
+    if not out or len(set(out)) != len(out):
+        raise InputError("give one or more different count levels", key=key)
+    return tuple(out)
+
+
+def _name_list(value, key: str, choices, what: str) -> tuple[str, ...]:
+    parts = [p.strip() for p in value.split(",")] if isinstance(value, str) else list(value)
+    if not parts or len(set(parts)) != len(parts):
+        raise InputError(f"give one or more different {what}s", key=key)
+    return tuple(choice(p, choices, key, what) for p in parts)
+
+
+@dataclass(frozen=True)
+class BenchOptions:
+    """The checked options of a bench (see `run_bench`)."""
+
+    channels: tuple[str, ...]
+    shots: tuple[float, ...]
+    methods: tuple[str, ...]
+    prep: tuple[str, ...]
+    meas: tuple[str, ...]
+    qubits: int
+    repeats: int
+    bootstrap: int
+    interval: str
+    ci_level: float
+    seed: int | None
+    workers: int
+
+
+def check_bench_options(channels, *, shots=DEFAULT_SHOTS, methods=None, prep="pauli6",
+                        meas="pauli6", qubits: int = 2, repeats: int = DEFAULT_REPEATS,
+                        bootstrap: int = 0, interval: str = DEFAULT_INTERVAL,
+                        ci_level: float = 0.95, seed=None, workers=None,
+                        command_line: bool = False) -> BenchOptions:
+    """Check every option before any computation: an InputError naming the option
+    (by its command-line flag with ``command_line``)."""
+    def name(key):
+        return OPTION_FLAGS.get(key, flag(key)) if command_line else key
+
+    if isinstance(channels, str):
+        channels = [channels]
+    channels = tuple(str(c).strip() for c in channels or ())
+    if not channels:
+        raise InputError("give at least one channel SPEC", key=name("channels"))
+    if len(set(channels)) != len(channels):
+        raise InputError("a channel is listed twice", key=name("channels"))
+    qubits = whole(qubits, name("qubits"), 1, 6)
+    for spec in channels:
+        try:
+            channel_from_spec(spec, qubits)
+        except ValueError as exc:
+            raise InputError(str(exc), key=name("channels")) from None
+    sets = {}
+    for key, value in (("prep", prep), ("meas", meas)):
+        try:
+            sets[key] = label_set(value)
+        except ValueError as exc:
+            raise InputError(str(exc), key=name(key)) from None
+    bootstrap = whole(bootstrap, name("bootstrap"), 0)
+    if bootstrap == 1:
+        raise InputError("a bootstrap needs at least 2 resamples (0: none)", key=name("bootstrap"))
+    return BenchOptions(
+        channels=channels, shots=_number_list(shots, name("shots")),
+        methods=_name_list(METHODS if methods is None else methods, name("methods"), METHODS,
+                           "method"),
+        prep=sets["prep"], meas=sets["meas"], qubits=qubits,
+        repeats=whole(repeats, name("repeats"), 1), bootstrap=bootstrap,
+        interval=choice(interval, INTERVALS, name("interval"), "interval"),
+        ci_level=fraction(ci_level, name("ci_level")), seed=check_seed(seed, name("seed")),
+        workers=check_workers(workers, name("workers")))
+
+
+@dataclass
+class BenchOutcome:
+    """What `run_bench` did and wrote."""
+
+    rows: list[dict]
+    columns: list[str]
+    folder: Path
+    csv: Path
+    h5: Path
+    plot: Path | None
+    notes: list[str]
+    new: int
+    reused: int
+    seed: int
+
+
+# --------------------------------------------------------------------------
+# Cases: the simulated experiments, built once in the calling process
+# --------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Item:
+    case: int
+    method: str
+    rep: int
+    seed: int
+
+
+def _build_cases(opts: BenchOptions, workdir: Path):
+    """One `Case` per channel × shots (the design read back through the reader, as a
+    fit would see it), the truth of every channel and its bound at every shots."""
+    cases, bounds, notes, infos = [], [], [], []
+    for c, spec in enumerate(opts.channels):
+        channel = channel_from_spec(spec, opts.qubits)
+        truth = None
+        for s, shots in enumerate(opts.shots):
+            acq = acquisition(channel, shots=shots, prep_set=opts.prep, meas_set=opts.meas)
+            path = write_experiment(workdir / f"{c}-{s}", channel, acq.draw(0).rows,
+                                    title=f"bench {spec}", extra_toml=acq.toml_keys(),
+                                    columns=acq.columns())
+            exp = read_experiment(path)
+            model = MeasurementModel(exp)
+            if truth is None:
+                truth = Truth.of(channel.choi, exp.target)
+                infos.append({"spec": spec, "qubits": channel.n_qubits,
+                              "target": channel.target or "",
+                              "trace": "decreasing" if model.trace_decreasing else "preserving",
+                              "full_rank": crb.full_rank(channel.choi,
+                                                         trace_decreasing=model.trace_decreasing),
+                              "choi": channel.choi, "figure_names": list(truth.figures),
+                              "figure_values": list(truth.figures.values()),
+                              "prep": list(acq.prep), "meas": list(acq.meas)})
+            intensities = (None if model.fixed_intensities is not None
+                           else np.full(model.n_groups, acq.rate))
+            try:
+                bound = crb.hs_crb(model, channel.choi, intensities)
+            except ValueError as exc:          # too large for the dense information
+                bound = None
+                if s == 0:
+                    notes.append(f"{spec}: no Cramér–Rao bound ({exc})")
+            bounds.append({"channel": c, "shots": shots, "hs_crb": bound})
+            cases.append(Case(spec, channel.n_qubits, shots, model, acq, truth))
+    return cases, bounds, notes, infos
+
+
+def _repetition_task(shared, item: _Item) -> dict:
+    """One repetition in a worker: draw the run, fit, measure (`measures.repetition`)."""
+    cases, bootstrap, seed = shared
+    case = cases[item.case]
+    run = case.acquisition.draw(item.seed)
+    boot_seed = (repetition_seed(seed, case.channel, case.qubits, case.shots, item.method,
+                                 item.rep, "bootstrap") if bootstrap else None)
+    record = repetition(case, run.counts, item.method, bootstrap=bootstrap,
+                        bootstrap_seed=boot_seed)
+    return {"channel": case.channel, "qubits": case.qubits, "shots": case.shots,
+            "method": item.method, "repetition": item.rep, "seed": item.seed,
+            "bootstrap": bootstrap, **record}
+
+
+def _key(record) -> tuple:
+    return (record["channel"], int(record["qubits"]), float(record["shots"]), record["method"],
+            int(record["repetition"]))
+
+
+# --------------------------------------------------------------------------
+# The bench
+# --------------------------------------------------------------------------
+
+def _settings(opts: BenchOptions, folder: Path, names) -> dict:
+    """The folder's fixed settings: those stored, checked against these options; or new."""
+    mine = {"format": store.FORMAT, "seed": opts.seed, "prep": list(opts.prep),
+            "meas": list(opts.meas), "qubits": opts.qubits, "bootstrap": opts.bootstrap}
+    stored = store.read_settings(folder)
+    if stored is None:
+        if mine["seed"] is None:
+            mine["seed"] = draw_seed()
+        store.write_settings(folder, mine)
+        return mine
+    if mine["seed"] is None:
+        mine["seed"] = stored["seed"]
+    for key in FIXED_SETTINGS:
+        if stored.get(key) != mine[key]:
+            raise InputError(f"the bench in {folder} was run with {key} {stored.get(key)!r}, "
+                             f"not {mine[key]!r}: use the same value to extend it, or another "
+                             "folder", key=names(key))
+    return stored
+
+
+def run_bench(channels, outdir, *, shots=DEFAULT_SHOTS, methods=None, prep="pauli6",
+              meas="pauli6", qubits: int = 2, repeats: int = DEFAULT_REPEATS,
+              bootstrap: int = 0, interval: str = DEFAULT_INTERVAL, ci_level: float = 0.95,
+              seed: int | None = None, workers: int | None = None, address: str | None = None,
+              progress: bool = False, plot: bool = True, command_line: str | None = None,
+              flags: bool = False) -> BenchOutcome:
+    """Run (or extend) a bench in folder ``outdir`` and write its table, file and plot.
+
+    Parameters
+    ----------
+    channels : SPEC or list of SPECs
+        Known channels (`gatescope.synth.noise`: gates with noise, bench
+        imperfections, ``random:RANK[:SEED]``).
+    outdir : folder
+        Holds settings.json, runs.jsonl, bench.h5, bench.csv and bench.png.
+    shots : sequence of numbers or a comma list
+        Count levels: expected counts per preparation and analyser basis.
+    methods : sequence of names or a comma list, optional
+        Estimators (default: every registered one).
+    prep, meas : str
+        ``pauli6``, ``pauli4`` or a comma list of single-qubit labels.
+    qubits : int
+        Size of ``random:`` channels.
+    repeats : int
+        Repetitions per channel × shots × method.
+    bootstrap : int
+        Parametric-bootstrap resamples per repetition (0: none) for the
+        coverage of the intervals of every bootstrapped figure.
+    interval, ci_level : str, float
+        The interval construction and level whose coverage the table
+        reports (`gatescope.intervals`); the bootstrap values are stored, so
+        these may change between runs of one folder.
+    seed : int, optional
+        The bench seed (drawn and recorded for a new folder; a folder's own
+        seed is used when not given).
+    workers : int, optional
+        Local processes (default: every core); ``address`` a dask scheduler.
+    progress, plot : bool
+        Show progress on stderr; draw bench.png (needs matplotlib, the
+        ``plot`` extra; skipped with a note without it).
+    flags : bool
+        Name options by their command-line flags in errors.
+
+    Returns
+    -------
+    BenchOutcome
+
+    Raises
+    ------
+    InputError
+        For a bad option, or settings that differ from the folder's.
+    """
+    opts = check_bench_options(channels, shots=shots, methods=methods, prep=prep, meas=meas,
+                               qubits=qubits, repeats=repeats, bootstrap=bootstrap,
+                               interval=interval, ci_level=ci_level, seed=seed, workers=workers,
+                               command_line=flags)
+
+    def names(key):
+        return OPTION_FLAGS.get(key, flag(key)) if flags else key
+
+    folder = Path(outdir)
+    if folder.exists() and not folder.is_dir():
+        raise InputError(f"{folder} is not a folder", key=names("outdir"))
+    folder.mkdir(parents=True, exist_ok=True)
+    started = time.time()
+    t0 = time.perf_counter()
+    settings = _settings(opts, folder, names)
+    bench_seed = int(settings["seed"])
+    with tempfile.TemporaryDirectory(prefix="gatescope-bench-") as tmp:
+        cases, bounds, notes, infos = _build_cases(opts, Path(tmp))
+
+    journal = store.Journal(folder)
+    records = {_key(r): r for r in journal.read()}
+    wanted = []
+    for index, case in enumerate(cases):
+        for method in opts.methods:
+            for rep in range(opts.repeats):
+                wanted.append((index, method, rep))
+    todo = [_Item(i, m, r, repetition_seed(bench_seed, cases[i].channel, cases[i].qubits,
+                                           cases[i].shots, m, r))
+            for i, m, r in wanted
+            if (cases[i].channel, cases[i].qubits, cases[i].shots, m, r) not in records]
+    reused = len(wanted) - len(todo)
+    new = 0
+    try:
+        if todo:
+            with journal, Runner(opts.workers, shared=(cases, opts.bootstrap, bench_seed),
+                                 address=address) as runner, \
+                    Progress(len(todo), "bench", "fit", enabled=progress) as bar:
+                for _, record in runner.map(_repetition_task, todo, chunk=CHUNK):
+                    journal.append(record)
+                    records[_key(record)] = record
+                    new += 1
+                    bar.update(1)
+    except KeyboardInterrupt:
+        _write_outputs(opts, folder, cases, bounds, infos, records, settings, notes, plot,
+                       command_line, started, time.perf_counter() - t0, new, reused)
+        raise
+    return _write_outputs(opts, folder, cases, bounds, infos, records, settings, notes, plot,
+                          command_line, started, time.perf_counter() - t0, new, reused)
+
+
+def _write_outputs(opts, folder, cases, bounds, infos, records, settings, notes, plot,
+                   command_line, started, wall, new, reused) -> BenchOutcome:
+    """The table, bench.csv, bench.h5 and bench.png of the requested repetitions."""
+    rows, chosen = [], []
+    for index, case in enumerate(cases):
+        c = opts.channels.index(case.channel)
+        for method in opts.methods:
+            group = [records[k] for k in
+                     ((case.channel, case.qubits, case.shots, method, rep)
+                      for rep in range(opts.repeats)) if k in records]
+            chosen += [(c, r) for r in group]
+            row = {"channel": case.channel, "qubits": case.qubits, "shots": case.shots,
+                   "method": method}
+            row.update(table.summarise(group, hs_crb=bounds[index]["hs_crb"],
+                                       true_fidelity=case.truth.process_fidelity,
+                                       truth_figures=case.truth.figures,
+                                       dim=case.model.dim, interval=opts.interval,
+                                       level=opts.ci_level))
+            rows.append(row)
+    table.add_slopes(rows)
+    columns = table.columns_of(rows)
+    csv_path = table.write_csv(folder / store.CSV, rows, columns)
+    runs, figure_names = _runs_arrays(chosen, opts.bootstrap)
+    prov = provenance(seed=settings["seed"], command_line=command_line, started=started, wall=wall)
+    h5_settings = {**{k: settings[k] for k in FIXED_SETTINGS},
+                   "channels": list(opts.channels), "shots": list(opts.shots),
+                   "methods": list(opts.methods), "repeats": opts.repeats,
+                   "bootstrap_kind": "parametric", "interval": opts.interval,
+                   "ci_level": opts.ci_level, "chunk": CHUNK}
+    h5_path = store.write_bench(folder / store.H5, settings=h5_settings, provenance=prov,
+                                channels=infos, bounds=bounds, runs=runs,
+                                figure_names=figure_names, table=rows, columns=columns)
+    plot_path = None
+    notes = list(notes)
+    if plot:
+        from ..report.plots import PlotUnavailable, error_against_counts
+
+        try:
+            plot_path = error_against_counts(_panels(rows), folder / "bench.png")
+        except PlotUnavailable as exc:
+            notes.append(f"plot skipped: {exc}")
+    return BenchOutcome(rows, columns, folder, csv_path, h5_path, plot_path, notes, new, reused,
+                        int(settings["seed"]))
+
+
+def _runs_arrays(chosen, bootstrap: int):
+    """Per-repetition columns of bench.h5 (NaN where a fit raised)."""
+    recs = [r for _, r in chosen]
+    nan = float("nan")
+
+    def col(name, default=nan):
+        return [default if r.get("error") is not None else r[name] for r in recs]
+
+    runs = {"channel": np.array([c for c, _ in chosen], dtype=np.int64),
+            "shots": np.array([r["shots"] for r in recs], dtype=float),
+            "method": np.array([r["method"] for r in recs], dtype=object),
+            "repetition": np.array([r["repetition"] for r in recs], dtype=np.int64),
+            "seed": np.array([r["seed"] for r in recs], dtype=np.int64),
+            "error": np.array([r.get("error") or "" for r in recs], dtype=object)}
+    for name in ("hs_error", "infidelity", "trace_distance", "fidelity_error", "seconds"):
+        runs[name] = np.array(col(name), dtype=float)
+    runs["iterations"] = np.array(col("iterations", -1), dtype=np.int64)
+    runs["converged"] = np.array(col("converged", False), dtype=bool)
+    names = []
+    if bootstrap:
+        present = {n for r in recs for n in r.get("figure_names", [])}
+        names = [n for n in FIGURE_NAMES if n in present]
+        point = np.full((len(recs), len(names)), nan)
+        values = np.full((len(recs), bootstrap, len(names)), nan)
+        failures = np.full(len(recs), -1, dtype=np.int64)
+        for i, r in enumerate(recs):
+            if r.get("error") is not None:
+                continue
+            cols = [names.index(n) for n in r["figure_names"]]
+            point[i, cols] = r["point_figures"]
+            values[i][:, cols] = np.array(r["bootstrap_values"], dtype=float)
+            failures[i] = r["bootstrap_failures"]
+        runs.update({"point_figures": point, "bootstrap_values": values,
+                     "bootstrap_failures": failures})
+    return runs, names
+
+
+def _panels(rows: list[dict]) -> list[dict]:
+    """The data of the error-against-counts plot: one panel per channel."""
+    panels: dict = {}
+    for r in rows:
+        p = panels.setdefault((r["channel"], r["qubits"]), {
+            "title": r["channel"], "series": {}, "bound": ([], [])})
+        s = p["series"].setdefault(r["method"], {"shots": [], "value": [], "error": [],
+                                                 "slope": r.get("hs_mse_slope")})
+        if r["hs_mse"] is not None:
+            s["shots"].append(r["shots"])
+            s["value"].append(r["hs_mse"])
+            s["error"].append(r["hs_mse_se"] or 0.0)
+        bound = r.get("hs_crb")
+        if bound is not None and np.isfinite(bound) and r["shots"] not in p["bound"][0]:
+            p["bound"][0].append(r["shots"])
+            p["bound"][1].append(bound)
+    return list(panels.values())
+
+
+__all__ = ["run_bench", "check_bench_options", "repetition_seed", "BenchOptions", "BenchOutcome",
+           "DEFAULT_SHOTS", "DEFAULT_REPEATS", "CHUNK"]

@@ -1,0 +1,277 @@
+"""Fisher information of the row model and the Cramér–Rao bound (gatescope.bench.crb).
+
+Why a finite-difference curvature checks the *expected* information: the
+log-likelihood is ℓ = Σ_k [n_k log ν_k − ν_k] + const, with ν_k = λ_g a_k
+p_k(J) + b_k linear in J and in λ separately. Its Hessian is
+
+    −Σ_k n_k ∇ν_k ∇ν_kᵀ / ν_k² + Σ_k (n_k/ν_k − 1) ∇²ν_k,
+
+so at counts equal to the expected counts (n = ν, not integers, which the
+likelihood accepts) the second sum vanishes and the observed information
+equals the expected one, Σ ∇ν ∇νᵀ/ν. The intensities are profiled out; at
+n = ν their maximiser for the true J is the true λ, and the curvature of a
+profile log-likelihood at the maximum is minus the Schur complement
+F_θθ − F_θλ F_λλ⁻¹ F_λθ (standard; e.g. Pawitan, *In All Likelihood*,
+2001, on profile likelihood). So −d²ℓ_profile(J + tΔ)/dt² at t = 0 must
+equal vᵀ F_eff v, v the coordinates of Δ.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import gatescope as gs
+from gatescope.bench import crb
+from gatescope.channels import partial_trace_output
+from gatescope.estimators import estimate
+from gatescope.likelihood import PoissonLikelihood
+from gatescope.model import MeasurementModel
+from gatescope.synth.simulate import Channel, channel_from_spec, simulate_counts
+from support import simulated_experiment
+
+
+def _experiment(folder, spec, *, n_qubits=2, shots=1000.0, columns=False, toml_extra="",
+                prep=("H", "V", "D", "A", "R", "L"), meas=("H", "V", "D", "A", "R", "L"),
+                choi=None, seed=3):
+    """Write an experiment of a known channel; with ``columns`` add unequal seconds,
+    efficiencies and a background, drawn from ``seed``. Returns (model, J)."""
+    channel = (channel_from_spec(spec, n_qubits) if choi is None
+               else Channel(choi, n_qubits, None, spec))
+    rng = np.random.default_rng(seed)
+    rows = simulate_counts(channel, shots=shots, prep_set=prep, meas_set=meas, seed=seed)
+    folder.mkdir(parents=True, exist_ok=True)
+    head = "prep,meas,counts" + (",seconds,efficiency,background" if columns else "")
+    lines = [head]
+    for p, m, _, c in rows:
+        line = f"{p},{m},{c}"
+        if columns:
+            line += (f",{rng.uniform(0.7, 1.3):.17g},{rng.uniform(0.6, 1.0):.17g},"
+                     f"{rng.uniform(0.5, 4.0):.17g}")
+        lines.append(line)
+    (folder / "counts.csv").write_text("\n".join(lines) + "\n")
+    toml = f'qubits = {n_qubits}\ncounts = "counts.csv"\n' + toml_extra
+    (folder / "experiment.toml").write_text(toml)
+    return MeasurementModel(gs.read_experiment(folder / "experiment.toml")), channel.choi
+
+
+def _random_direction(rng, d, trace_preserving=True):
+    """A random Hermitian direction of unit Frobenius norm, with Tr_out = 0 if asked.
+
+    Projection onto Tr_out X = 0: X − (Tr_out X) ⊗ I/d (input factor first)."""
+    x = rng.normal(size=(d * d, d * d)) + 1j * rng.normal(size=(d * d, d * d))
+    x = x + x.conj().T
+    if trace_preserving:
+        x = x - np.kron(partial_trace_output(x), np.eye(d)) / d
+    return x / np.linalg.norm(x)
+
+
+def _profile_curvature(model, choi, intensities, direction, h=1e-3):
+    """−d²ℓ/dt² of the profiled log-likelihood at counts = expected counts, 5-point stencil."""
+    lik = PoissonLikelihood(model, counts=model.expected_counts(choi, intensities))
+    f = [lik.evaluate(choi + t * h * direction).log_likelihood for t in (-2, -1, 0, 1, 2)]
+    return -(-f[0] + 16 * f[1] - 30 * f[2] + 16 * f[3] - f[4]) / (12 * h * h)
+
+
+# --------------------------------------------------------------------------
+# The basis
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("directions, d", [(crb.TRACE_PRESERVING, 2), (crb.ALL_DIRECTIONS, 2),
+                                           (crb.TRACE_PRESERVING, 4)])
+def test_basis_is_orthonormal_hermitian_and_trace_preserving(directions, d):
+    m = crb.n_parameters(d, directions)
+    basis = np.array([crb.from_coordinates(np.eye(m)[k], d, directions) for k in range(m)])
+    flat = basis.reshape(m, -1)
+    np.testing.assert_allclose(flat.conj() @ flat.T, np.eye(m), atol=1e-12)
+    np.testing.assert_allclose(basis, basis.conj().transpose(0, 2, 1), atol=1e-14)
+    if directions == crb.TRACE_PRESERVING:
+        assert m == d ** 4 - d ** 2
+        for b in basis:
+            np.testing.assert_allclose(partial_trace_output(b), 0, atol=1e-14)
+    else:
+        assert m == d ** 4
+    rng = np.random.default_rng(0)
+    x = _random_direction(rng, d, directions == crb.TRACE_PRESERVING)
+    v = crb.coordinates(x, directions)
+    np.testing.assert_allclose(np.linalg.norm(v), 1.0, rtol=1e-12)      # an isometry
+    np.testing.assert_allclose(crb.from_coordinates(v, d, directions), x, atol=1e-12)
+
+
+# --------------------------------------------------------------------------
+# Finite-difference curvature of the profiled likelihood
+# --------------------------------------------------------------------------
+
+SIX = ("H", "V", "D", "A", "R", "L")
+
+CASES = {
+    # (spec, qubits, columns, toml extra, analysers)
+    "1q per-preparation": ("random:4:2", 1, False, "", SIX),
+    "2q one analyser per basis": ("CNOT+amplitude-damping:0.2+depolarizing:0.1", 2, False, "",
+                                  ("H", "D", "R")),
+    "2q per-preparation, background, unequal exposures":
+        ("CZ+depolarizing:0.1+amplitude-damping:0.05", 2, True, "", SIX),
+    "2q global normalisation, background": ("CZ+zz:0.3+depolarizing:0.15", 2, True,
+                                            'normalization = "global"\n', SIX),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_information_matches_profile_likelihood_curvature(tmp_path, case):
+    spec, n, columns, extra, meas = CASES[case]
+    model, choi = _experiment(tmp_path, spec, n_qubits=n, columns=columns, toml_extra=extra,
+                              meas=meas)
+    lam = np.full(model.n_groups, 1000.0)
+    info = crb.fisher_information(model, choi, lam)
+    assert info.profiled and info.directions == crb.TRACE_PRESERVING
+    np.testing.assert_array_equal(info.matrix, info.matrix.T)
+    rng = np.random.default_rng(11)
+    for _ in range(4):
+        x = _random_direction(rng, model.dim)
+        v = crb.coordinates(x)
+        dense = v @ info.matrix @ v
+        # finite differences of ℓ_profile, through the likelihood the estimators use
+        curvature = _profile_curvature(model, choi, lam, x)
+        np.testing.assert_allclose(curvature, dense, rtol=2e-6)
+        # the matrix-free product through the model's forward map
+        np.testing.assert_allclose(crb.information_along(model, choi, lam, x), dense, rtol=1e-10)
+
+
+def test_fixed_intensities_information_on_all_directions(tmp_path):
+    """A trace non-increasing model (known input rate): no profiling, all d⁴ directions."""
+    base = channel_from_spec("CZ+depolarizing:0.2", 2).choi
+    choi = 0.6 * base + 0.2 * np.eye(16) / 4          # Tr_out J = 0.8·I: inside the set
+    model, _ = _experiment(tmp_path, "lossy CZ", choi=choi, columns=True,
+                           toml_extra='trace = "decreasing"\nnormalization = "global"\n'
+                                      'input_rate = 1000.0\n')
+    assert model.fixed_intensities is not None
+    info = crb.fisher_information(model, choi)
+    assert not info.profiled and info.directions == crb.ALL_DIRECTIONS
+    assert info.n_parameters == 256
+    rng = np.random.default_rng(5)
+    for _ in range(3):
+        x = _random_direction(rng, 4, trace_preserving=False)
+        v = crb.coordinates(x, crb.ALL_DIRECTIONS)
+        dense = v @ info.matrix @ v
+        np.testing.assert_allclose(_profile_curvature(model, choi, model.fixed_intensities, x),
+                                   dense, rtol=2e-6)
+    bound = crb.hs_crb(model, choi)
+    assert np.isfinite(bound) and bound > 0
+    # the same channel on the face Tr_out J = I of the set: the bound does not apply
+    assert crb.hs_crb(model, base) is None
+
+
+def test_dense_matrix_equals_explicit_design(tmp_path):
+    """Kronecker assembly against the plain definition: a rows × m design matrix built by
+    mapping every basis element with model.forward, F = Gᵀ diag(w) G − Schur part."""
+    model, choi = _experiment(tmp_path, "CZ+zz:0.2+amplitude-damping:0.1+depolarizing:0.1",
+                              columns=True)
+    lam = np.linspace(800, 1200, model.n_groups)
+    info = crb.fisher_information(model, choi, lam)
+    m = info.n_parameters
+    design = np.array([model.forward(crb.from_coordinates(np.eye(m)[k], 4)) for k in range(m)]).T
+    p = model.forward(choi)
+    lam_row = lam[model.group_index]
+    a = model.exposure
+    nu = lam_row * a * p + model.background
+    dnu = (lam_row * a)[:, None] * design                             # ∂ν/∂θ
+    full = dnu.T @ (dnu / nu[:, None])
+    dlam = np.zeros((model.n_rows, model.n_groups))
+    dlam[np.arange(model.n_rows), model.group_index] = a * p          # ∂ν/∂λ
+    cross = dnu.T @ (dlam / nu[:, None])
+    nuis = dlam.T @ (dlam / nu[:, None])
+    expected = full - cross @ np.linalg.solve(nuis, cross.T)
+    np.testing.assert_allclose(info.matrix, expected, rtol=1e-9, atol=1e-9 * np.abs(expected).max())
+
+
+# --------------------------------------------------------------------------
+# The bound
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("n, spec, bound_times_n", [
+    # Completely depolarising channel, J = I/d (Tr J = d), six states in and out, no
+    # background: p_k = Tr(ρ)Tr(E)/d = 1/d, ν_k = λ/d, ∂ν_k/∂θ_ij = λ r_p[j] e_m[i]/d, so
+    # F = (λ/d)·(Σ_m e_m e_mᵀ restricted to i ≠ I) ⊗ (Σ_p r_p r_pᵀ), with
+    # Σ_p r_p r_pᵀ = ⊗_q diag(6, 2, 2, 2) for the product six-state set (the same for the
+    # effects), and the nuisance cross terms vanish (Σ_m e_m[i] = 0 for i ≠ I). Hence
+    # Tr F⁻¹ = (d/λ)·Σ_{i≠I} Σ_j 1/(s_i s_j), s = Π_q (6 for I, 2 otherwise), i.e.
+    # (d/λ)·((5/3)^n − 6^−n)·(5/3)^n: 5/λ for one qubit, 275/(9λ) for two.
+    # (Derived by hand from the Poisson Fisher information, Cramér 1946.)
+    (1, "I+depolarizing:1", 5.0),
+    (2, "CZ+depolarizing:1", 275.0 / 9.0),
+])
+def test_completely_depolarising_closed_form(tmp_path, n, spec, bound_times_n):
+    exp, choi = simulated_experiment(tmp_path, spec, n_qubits=n)
+    model = MeasurementModel(exp)
+    for shots in (100.0, 1000.0, 10000.0):
+        bound = crb.hs_crb(model, choi, np.full(model.n_groups, shots))
+        np.testing.assert_allclose(bound, bound_times_n / shots, rtol=1e-10)
+
+
+def test_bound_scales_as_one_over_counts_and_exists_only_at_full_rank(tmp_path):
+    exp, choi = simulated_experiment(tmp_path / "a", "CZ+zz:0.2+depolarizing:0.1")
+    model = MeasurementModel(exp)
+    b1 = crb.hs_crb(model, choi, np.full(model.n_groups, 1000.0))
+    b2 = crb.hs_crb(model, choi, np.full(model.n_groups, 4000.0))
+    np.testing.assert_allclose(b1 / b2, 4.0, rtol=1e-10)     # no background: F ∝ λ
+    unitary = channel_from_spec("CZ").choi
+    assert crb.hs_crb(model, unitary, np.full(model.n_groups, 1000.0)) is None
+    assert not crb.full_rank(unitary)
+    # an incomplete design (two preparations per qubit) leaves directions undetermined
+    exp2, _ = simulated_experiment(tmp_path / "b", "CZ+depolarizing:0.1", prep=("H", "V"))
+    model2 = MeasurementModel(exp2)
+    assert crb.hs_crb(model2, choi, np.full(model2.n_groups, 1000.0)) == float("inf")
+
+
+def test_size_limit_refuses_before_allocating(tmp_path):
+    exp, choi = simulated_experiment(tmp_path, "CZ+depolarizing:0.1")
+    model = MeasurementModel(exp)
+    with pytest.raises(ValueError, match="use information_along"):
+        crb.fisher_information(model, choi, np.full(36, 1000.0), max_bytes=1000)
+    assert crb.n_parameters(16, crb.TRACE_PRESERVING) == 65280      # four qubits
+    assert 8 * 65280 ** 2 > crb.MAX_FISHER_BYTES
+
+
+def test_inverse_trace_against_numpy(rng):
+    a = rng.normal(size=(700, 700))
+    f = a @ a.T + 700 * np.eye(700)
+    expected = np.trace(np.linalg.inv(f))
+    np.testing.assert_allclose(crb.inverse_trace(f.copy()), expected, rtol=1e-11)
+    assert crb.inverse_trace(-np.eye(3)) == float("inf")
+
+
+@pytest.mark.slow
+def test_three_qubits_dense_matches_matrix_free(tmp_path):
+    exp, choi = simulated_experiment(tmp_path, "random:64:3", n_qubits=3)
+    model = MeasurementModel(exp)
+    lam = np.full(model.n_groups, 1000.0)
+    info = crb.fisher_information(model, choi, lam)
+    assert info.n_parameters == 4032
+    rng = np.random.default_rng(2)
+    for _ in range(3):
+        x = _random_direction(rng, 8)
+        v = crb.coordinates(x)
+        np.testing.assert_allclose(crb.information_along(model, choi, lam, x),
+                                   v @ info.matrix @ v, rtol=1e-10)
+    bound = crb.inverse_trace(info.matrix)
+    assert np.isfinite(bound) and bound > 0
+
+
+@pytest.mark.slow
+def test_mle_reaches_the_bound_at_ten_thousand_counts(tmp_path):
+    """Asymptotic efficiency of the maximum-likelihood estimator (common practice): for a
+    full-rank channel well inside the set, its mean squared error approaches Tr F⁻¹."""
+    spec = "H+amplitude-damping:0.3+depolarizing:0.2"       # Choi eigenvalues 0.1 … 1.46
+    shots = 1e4
+    exp, choi = simulated_experiment(tmp_path, spec, n_qubits=1, shots=shots)
+    model = MeasurementModel(exp)
+    lam = np.full(model.n_groups, shots)
+    bound = crb.hs_crb(model, choi, lam)
+    nu = model.expected_counts(choi, lam)
+    rng = np.random.default_rng(2027)
+    errors = np.array([np.linalg.norm(estimate(model, "mle", counts=rng.poisson(nu).astype(float))
+                                      .choi - choi) ** 2 for _ in range(2000)])
+    ratio = errors.mean() / bound
+    stderr = errors.std(ddof=1) / np.sqrt(errors.size) / bound      # about 0.01
+    assert stderr < 0.03
+    assert 0.8 <= ratio <= 1.3
