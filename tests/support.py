@@ -113,7 +113,9 @@ def report_and_sleep(shared, item):
     import time
     from pathlib import Path
 
-    Path(shared, f"worker-{os.getpid()}").write_text(str(os.getpid()))
+    tmp = Path(shared, f".worker-{os.getpid()}")
+    tmp.write_text(str(os.getpid()))
+    tmp.replace(Path(shared, f"worker-{os.getpid()}"))      # whole, for the reader
     time.sleep(120)
     return item
 

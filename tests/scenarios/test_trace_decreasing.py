@@ -17,7 +17,7 @@ RATE = POSTSELECTED_RATE
 
 
 def test_postselected_cz_success_one_ninth(tmp_path):
-    # The linear-optics CZ of Ralph, Langford, Bell, White & Milburn (PRA 65, 012314 (2002))
+    # The linear-optics CZ of Ralph, Langford, Bell & White (PRA 65, 062324 (2002))
     # succeeds with probability 1/9; the reconstructed trace Tr J/d is that probability.
     exp, truth = postselected_experiment(tmp_path / "ps", 1 / 9)
     res = gs.fit(exp, "mle")
