@@ -26,15 +26,10 @@ import sys  # noqa: E402
 import time  # noqa: E402
 from pathlib import Path  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from memory import peak_mb  # noqa: E402
+
 CHANNELS = {1: "random:4:1", 2: "random:16:1", 3: "random:64:1"}
-
-
-def _hwm_mb() -> float:
-    with open("/proc/self/status") as fh:
-        for line in fh:
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1]) / 1024
-    return float("nan")
 
 
 def one_case(n: int) -> dict:
@@ -54,7 +49,7 @@ def one_case(n: int) -> dict:
         exp = read_experiment(write_experiment(Path(tmp), channel, rows, title="crb speed"))
     model = MeasurementModel(exp)
     lam = np.full(model.n_groups, 1000.0)
-    before = _hwm_mb()
+    before = peak_mb()
     t0 = time.perf_counter()
     info = crb.fisher_information(model, channel.choi, lam)
     t1 = time.perf_counter()
@@ -62,7 +57,7 @@ def one_case(n: int) -> dict:
     t2 = time.perf_counter()
     return {"qubits": n, "channel": spec, "rows": model.n_rows, "parameters": info.n_parameters,
             "fisher_seconds": t1 - t0, "inverse_seconds": t2 - t1, "hs_crb": bound,
-            "peak_mb_before": before, "peak_mb_after": _hwm_mb(),
+            "peak_mb_before": before, "peak_mb_after": peak_mb(),
             "matrix_mb": info.matrix.nbytes / 2 ** 20}
 
 

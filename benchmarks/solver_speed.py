@@ -73,6 +73,9 @@ for _var in THREAD_VARS:
 
 import numpy as np  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from memory import peak_mb, reset_peak  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent / "engine"))
 
@@ -158,26 +161,6 @@ def make_tni_model(success: float, noise: str, folder: Path):
         'qubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\nnormalization = "global"\n'
         f'trace = "decreasing"\ninput_rate = {TNI_RATE}\n')
     return MeasurementModel(read_experiment(folder / "experiment.toml"))
-
-
-def peak_mb():
-    try:
-        with open("/proc/self/status") as fh:
-            for line in fh:
-                if line.startswith("VmHWM"):
-                    return int(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    return None
-
-
-def reset_peak() -> bool:
-    try:
-        with open("/proc/self/clear_refs", "w") as fh:
-            fh.write("5")
-        return True
-    except OSError:
-        return False
 
 
 def rel(new: float, old: float) -> float:

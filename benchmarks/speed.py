@@ -52,6 +52,7 @@ HERE = Path(__file__).resolve().parent
 RESULTS = HERE / "results"
 README = HERE / "README.md"
 sys.path.insert(0, str(HERE))
+from memory import peak_mb, reset_peak, rss_mb  # noqa: E402
 
 #: The simulated channels, channel SPECs (README, "Commands"): a gate followed by noise.
 #: From three qubits the gate is one of `WIDE_GATES` (not a named gate of the package).
@@ -75,38 +76,8 @@ MARK_END = "<!-- speed:end -->"
 # ==========================================================================
 
 def memory_mb() -> dict:
-    """Peak (VmHWM) and current (VmRSS) resident memory of this process, in MB.
-
-    VmHWM belongs to the process image: it starts afresh at exec. (The
-    getrusage maximum does not: after fork + exec it still holds the parent's
-    peak, so it is kept only as a cross-check.)
-    """
-    out = {}
-    try:
-        with open("/proc/self/status") as fh:
-            for line in fh:
-                key, _, value = line.partition(":")
-                if key in ("VmHWM", "VmRSS"):
-                    out[key] = int(value.split()[0]) / 1024.0
-    except OSError:
-        pass
-    try:
-        import resource
-        out["ru_maxrss"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-    except (ImportError, OSError):
-        pass
-    return {"peak_mb": out.get("VmHWM", out.get("ru_maxrss")), "rss_mb": out.get("VmRSS"),
-            "ru_maxrss_mb": out.get("ru_maxrss")}
-
-
-def reset_peak_memory() -> bool:
-    """Reset VmHWM to the current RSS (Linux ≥ 4.0); False where not possible."""
-    try:
-        with open("/proc/self/clear_refs", "w") as fh:
-            fh.write("5")
-        return True
-    except OSError:
-        return False
+    """Peak (VmHWM) and current (VmRSS) resident memory of this process, in MB."""
+    return {"peak_mb": peak_mb(), "rss_mb": rss_mb()}
 
 
 def cptp_distance(choi):
@@ -162,7 +133,7 @@ def worker_estimator(args) -> dict:
     warmup = args.warmup if method == "mle" else "full"
     estimate(model, method, **({"maxiter": 3} if warmup == "short" else {}))
     mem_warm = memory_mb()
-    reset = reset_peak_memory()          # from here VmHWM is the peak of the timed fits
+    reset = reset_peak()          # from here VmHWM is the peak of the timed fits
     times, fit = [], None
     for _ in range(args.repeats):
         t0 = time.perf_counter()
@@ -186,7 +157,7 @@ def worker_estimator(args) -> dict:
             "load_peak_mb": mem_load["peak_mb"], "rss_after_load_mb": mem_load["rss_mb"],
             "rss_after_warmup_mb": mem_warm["rss_mb"],
             "fit_phase_peak_mb": mem_end["peak_mb"] if reset else None,
-            "ru_maxrss_mb": mem_end["ru_maxrss_mb"], "threads": _thread_info()}
+            "threads": _thread_info()}
 
 
 def worker_pass(args) -> dict:

@@ -47,6 +47,9 @@ for _var in THREAD_VARS:
 
 import numpy as np  # noqa: E402
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from memory import peak_mb  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 SHOTS = 1000
 SEED = 11
@@ -54,15 +57,10 @@ TARGETS = {"2q": "mle < 5 ms warm", "6q": "mle ≤ 60 s, ≤ 500 MB",
            "6q-fit": "read + fit ≤ 60 s, ≤ 500 MB"}
 
 
-def _peak_mb() -> float:
-    """Peak resident memory of this process (VmHWM, Linux) in MB; NaN elsewhere."""
-    try:
-        for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    return float("nan")
+def _peak_or_nan() -> float:
+    """Peak resident memory in MB (NaN where it cannot be read)."""
+    peak = peak_mb()
+    return float("nan") if peak is None else peak
 
 
 def _truth(n_qubits: int) -> tuple[np.ndarray, np.ndarray]:
@@ -133,7 +131,7 @@ def run_fit_case(repeats: int) -> list[dict]:
     with tempfile.TemporaryDirectory() as tmp:
         path = _write_experiment(model, Path(tmp))
         del model
-        memory_before = _peak_mb()
+        memory_before = _peak_or_nan()
         t0, c0 = time.perf_counter(), time.process_time()
         exp = gs.read_experiment(path)
         read_s = time.perf_counter() - t0
@@ -149,7 +147,7 @@ def run_fit_case(repeats: int) -> list[dict]:
                  fidelity_to_truth=state_fidelity(res.rho, rho),
                  fidelity_to_target=res.figures["state_fidelity"].value,
                  setup_seconds=0.0, peak_mb_before_fit=memory_before,
-                 pass_seconds=float("nan"), seconds_in_passes=float("nan"), peak_mb=_peak_mb())]
+                 pass_seconds=float("nan"), seconds_in_passes=float("nan"), peak_mb=_peak_or_nan())]
 
 
 def run_case(name: str, repeats: int) -> list[dict]:
@@ -162,7 +160,7 @@ def run_case(name: str, repeats: int) -> list[dict]:
     t_setup = time.perf_counter()
     model, rho, psi = _model(n)
     setup = time.perf_counter() - t_setup
-    memory_before = _peak_mb()
+    memory_before = _peak_or_nan()
     records = []
     methods = ("lin", "pls", "mle") if name == "2q" else ("mle",)
     for method in methods:
@@ -189,7 +187,7 @@ def run_case(name: str, repeats: int) -> list[dict]:
             fidelity_to_target=state_fidelity(fit.choi, psi),
             setup_seconds=setup, peak_mb_before_fit=memory_before))
     pass_s = _pass_seconds(model, 50 if n == 2 else 10)
-    peak = _peak_mb()
+    peak = _peak_or_nan()
     for r in records:
         r["pass_seconds"] = pass_s
         r["seconds_in_passes"] = r["seconds"] / pass_s

@@ -161,3 +161,56 @@ def experiment_tree(root, names, *, spec: str = "H+depolarizing:0.1", n_qubits: 
                 fh.write(f'\n[conditions]\ndelay_ps = {10 * k}\nrun = "night 1"\n')
         paths.append(exp.path)
     return paths
+
+
+def write_full_1q(folder, spec="H+amplitude-damping:0.1", shots=800, seed=3):
+    """A one-qubit six-state run with seconds, background and efficiency columns, its
+    counts drawn from the row model of docs/file-formats.md with those columns."""
+    folder.mkdir(parents=True, exist_ok=True)
+    channel = channel_from_spec(spec, 1)
+    rows = simulate_counts(channel, shots=shots, seed=seed)
+    rng = np.random.default_rng(seed)
+    lines = ["prep,meas,counts,seconds,background,efficiency"]
+    for k, (p, m, expected, _) in enumerate(rows):
+        seconds, background, efficiency = 1.0 + 0.5 * (k % 2), 0.25 * (k % 3), 0.9 + 0.05 * (k % 2)
+        n = rng.poisson(expected * seconds * efficiency + background)
+        lines.append(f"{p},{m},{n},{seconds},{background},{efficiency}")
+    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (folder / "experiment.toml").write_text(
+        'title = "one qubit with every column"\nqubits = 1\ntarget = "H"\ncounts = "counts.csv"\n',
+        encoding="utf-8")
+    return read_experiment(folder / "experiment.toml")
+
+
+#: The light-leak bench: a CZ with depolarising noise at 2000 counts per basis, where
+#: room light reached the detector behind photon 2's analyser in its V setting while
+#: photon 1 was prepared in D or A (an invented scenario), 60 counts on top of small
+#: accidentals everywhere.
+LEAK_SPEC = "CZ+depolarizing:0.1"
+LEAK_SHOTS = 2000.0
+
+
+def leaky(prep_label: str, meas_label: str) -> bool:
+    """The rows the light leak reaches."""
+    return prep_label[0] in "DA" and meas_label[1] == "V"
+
+
+def light_leak_bench(folder, *, with_background: bool, seed: int = 7):
+    """The light-leak bench written to ``folder``, with or without its background column:
+    (Experiment, mask of the leaking rows)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    channel = channel_from_spec(LEAK_SPEC, 2)
+    rng = np.random.default_rng(seed)
+    rows = simulate_counts(channel, shots=LEAK_SHOTS, seed=seed)
+    lines = ["prep,meas,counts" + (",background" if with_background else "")]
+    flags = []
+    for k, (prep, meas, expected, _) in enumerate(rows):
+        background = 1.5 + 0.5 * (k % 3) + (60.0 if leaky(prep, meas) else 0.0)
+        n = rng.poisson(expected + background)
+        lines.append(f"{prep},{meas},{n}" + (f",{background}" if with_background else ""))
+        flags.append(leaky(prep, meas))
+    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    (folder / "experiment.toml").write_text(
+        'title = "CZ with a light leak"\nqubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\n',
+        encoding="utf-8")
+    return read_experiment(folder / "experiment.toml"), np.array(flags)

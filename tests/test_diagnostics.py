@@ -11,89 +11,14 @@ model fits; not told, it cannot.
 
 from __future__ import annotations
 
-import warnings
 
 import gatescope as gs
 import h5py
 import numpy as np
 import pytest
 from gatescope import GatescopeWarning
-from gatescope.synth.simulate import channel_from_spec, simulate_counts
 from scipy.special import gammaln
 from scipy.stats import chi2
-
-
-def write_full_1q(folder, spec="H+amplitude-damping:0.1", shots=800, seed=3):
-    """A one-qubit six-state run with seconds, background and efficiency columns, its
-    counts drawn from the row model of docs/file-formats.md with those columns."""
-    folder.mkdir(parents=True, exist_ok=True)
-    channel = channel_from_spec(spec, 1)
-    rows = simulate_counts(channel, shots=shots, seed=seed)
-    rng = np.random.default_rng(seed)
-    lines = ["prep,meas,counts,seconds,background,efficiency"]
-    for k, (p, m, expected, _) in enumerate(rows):
-        seconds, background, efficiency = 1.0 + 0.5 * (k % 2), 0.25 * (k % 3), 0.9 + 0.05 * (k % 2)
-        n = rng.poisson(expected * seconds * efficiency + background)
-        lines.append(f"{p},{m},{n},{seconds},{background},{efficiency}")
-    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (folder / "experiment.toml").write_text(
-        'title = "one qubit with every column"\nqubits = 1\ntarget = "H"\ncounts = "counts.csv"\n',
-        encoding="utf-8")
-    return gs.read_experiment(folder / "experiment.toml")
-
-
-@pytest.fixture(scope="module")
-def full_1q(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("full")
-    exp = write_full_1q(folder / "data")
-    res = gs.fit(exp, "mle", bootstrap=12, seed=7, workers=1)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
-
-
-SPEC = "CZ+depolarizing:0.1"
-
-
-SHOTS = 2000.0
-
-
-def leaky(prep_label: str, meas_label: str) -> bool:
-    return prep_label[0] in "DA" and meas_label[1] == "V"
-
-
-def write_bench(folder, *, with_background: bool, seed: int = 7):
-    folder.mkdir(parents=True, exist_ok=True)
-    channel = channel_from_spec(SPEC, 2)
-    rng = np.random.default_rng(seed)
-    rows = simulate_counts(channel, shots=SHOTS, seed=seed)
-    lines = ["prep,meas,counts" + (",background" if with_background else "")]
-    flags = []
-    for k, (prep, meas, expected, _) in enumerate(rows):
-        background = 1.5 + 0.5 * (k % 3) + (60.0 if leaky(prep, meas) else 0.0)
-        n = rng.poisson(expected + background)
-        lines.append(f"{prep},{meas},{n}" + (f",{background}" if with_background else ""))
-        flags.append(leaky(prep, meas))
-    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (folder / "experiment.toml").write_text(
-        'title = "CZ with a light leak"\nqubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\n',
-        encoding="utf-8")
-    return gs.read_experiment(folder / "experiment.toml"), np.array(flags)
-
-
-@pytest.fixture(scope="module")
-def fits(tmp_path_factory):
-    base = tmp_path_factory.mktemp("gof")
-    told, leaks = write_bench(base / "told", with_background=True)
-    untold, _ = write_bench(base / "untold", with_background=False)
-    with warnings.catch_warnings(record=True) as caught_told:
-        warnings.simplefilter("always")
-        res_told = gs.fit(told)
-    with warnings.catch_warnings(record=True) as caught_untold:
-        warnings.simplefilter("always")
-        res_untold = gs.fit(untold)
-    paths = (res_told.save(base / "told.h5"), res_untold.save(base / "untold.h5"))
-    return {"told": (res_told, caught_told), "untold": (res_untold, caught_untold),
-            "leaks": leaks, "paths": paths}
 
 
 def poor_fit_warnings(caught):

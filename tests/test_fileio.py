@@ -10,16 +10,6 @@ from pathlib import Path
 import gatescope as gs
 import pytest
 from gatescope import result_file
-from support import simulated_experiment
-
-
-@pytest.fixture(scope="module")
-def cz_fit(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("cz")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
-    res = gs.fit(exp, "mle", seed=5)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
 
 
 def test_save_leaves_only_the_result_file(cz_fit, tmp_path):

@@ -4,7 +4,6 @@ checked before any computation, physical estimates that recover the true process
 
 from __future__ import annotations
 
-import importlib.util
 
 import gatescope as gs
 import numpy as np
@@ -14,30 +13,8 @@ from gatescope.conventions import GATES
 from support import simulated_experiment
 
 
-@pytest.fixture(scope="module")
-def cz_result(tmp_path_factory):
-    from support import simulated_experiment
-
-    folder = tmp_path_factory.mktemp("figs")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ+zz:0.2+depolarizing:0.05",
-                                          shots=2000, seed=4)
-    diamond = importlib.util.find_spec("cvxpy") is not None
-    res = gs.fit(exp, "mle", diamond=diamond)
-    path = res.save(folder / "result.h5")
-    return res, path, true_choi, diamond
-
-
 def tr_out(J, d):
     return np.einsum("iaja->ij", J.reshape(d, d, d, d))
-
-
-@pytest.fixture(scope="module")
-def cz_fit(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("cz")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
-    res = gs.fit(exp, "mle", seed=5)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
 
 
 def _fidelities(tmp_path, spec, target, *, shots, seeds, n_qubits):

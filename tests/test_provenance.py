@@ -8,17 +8,6 @@ from importlib import metadata
 
 import gatescope as gs
 import h5py
-import pytest
-from support import simulated_experiment
-
-
-@pytest.fixture(scope="module")
-def cz_fit(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("cz")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
-    res = gs.fit(exp, "mle", seed=5)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
 
 
 def text(value) -> str:

@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
-import importlib.util
 import itertools
 from pathlib import Path
 
@@ -15,30 +14,7 @@ import h5py
 import numpy as np
 import pytest
 from gatescope.conventions import GATES
-from gatescope.synth.simulate import channel_from_spec, simulate_counts
 from support import simulated_experiment
-
-
-@pytest.fixture(scope="module")
-def cz_result(tmp_path_factory):
-    from support import simulated_experiment
-
-    folder = tmp_path_factory.mktemp("figs")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ+zz:0.2+depolarizing:0.05",
-                                          shots=2000, seed=4)
-    diamond = importlib.util.find_spec("cvxpy") is not None
-    res = gs.fit(exp, "mle", diamond=diamond)
-    path = res.save(folder / "result.h5")
-    return res, path, true_choi, diamond
-
-
-@pytest.fixture(scope="module")
-def cz_fit(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("cz")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ", shots=1000, seed=11)
-    res = gs.fit(exp, "mle", seed=5)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
 
 
 def text(value) -> str:
@@ -59,34 +35,6 @@ def proj(label: str) -> np.ndarray:
         v = np.asarray(KET[p], dtype=complex)
         out = np.kron(out, np.outer(v, v.conj()))
     return out
-
-
-def write_full_1q(folder, spec="H+amplitude-damping:0.1", shots=800, seed=3):
-    """A one-qubit six-state run with seconds, background and efficiency columns, its
-    counts drawn from the row model of docs/file-formats.md with those columns."""
-    folder.mkdir(parents=True, exist_ok=True)
-    channel = channel_from_spec(spec, 1)
-    rows = simulate_counts(channel, shots=shots, seed=seed)
-    rng = np.random.default_rng(seed)
-    lines = ["prep,meas,counts,seconds,background,efficiency"]
-    for k, (p, m, expected, _) in enumerate(rows):
-        seconds, background, efficiency = 1.0 + 0.5 * (k % 2), 0.25 * (k % 3), 0.9 + 0.05 * (k % 2)
-        n = rng.poisson(expected * seconds * efficiency + background)
-        lines.append(f"{p},{m},{n},{seconds},{background},{efficiency}")
-    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (folder / "experiment.toml").write_text(
-        'title = "one qubit with every column"\nqubits = 1\ntarget = "H"\ncounts = "counts.csv"\n',
-        encoding="utf-8")
-    return gs.read_experiment(folder / "experiment.toml")
-
-
-@pytest.fixture(scope="module")
-def full_1q(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("full")
-    exp = write_full_1q(folder / "data")
-    res = gs.fit(exp, "mle", bootstrap=12, seed=7, workers=1)
-    path = res.save(folder / "out" / "result.h5")
-    return exp, res, path
 
 
 PAULI = {"I": np.eye(2), "X": np.array([[0, 1], [1, 0]]), "Y": np.array([[0, -1j], [1j, 0]]),

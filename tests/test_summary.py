@@ -4,72 +4,12 @@ its warning, the rows that do not fit.
 
 from __future__ import annotations
 
-import importlib.util
 import warnings
 
 import gatescope as gs
 import numpy as np
 import pytest
 from gatescope.summary import summary
-from gatescope.synth.simulate import channel_from_spec, simulate_counts
-
-
-@pytest.fixture(scope="module")
-def cz_result(tmp_path_factory):
-    from support import simulated_experiment
-
-    folder = tmp_path_factory.mktemp("figs")
-    exp, true_choi = simulated_experiment(folder / "data", "CZ+zz:0.2+depolarizing:0.05",
-                                          shots=2000, seed=4)
-    diamond = importlib.util.find_spec("cvxpy") is not None
-    res = gs.fit(exp, "mle", diamond=diamond)
-    path = res.save(folder / "result.h5")
-    return res, path, true_choi, diamond
-
-
-SPEC = "CZ+depolarizing:0.1"
-
-
-SHOTS = 2000.0
-
-
-def leaky(prep_label: str, meas_label: str) -> bool:
-    return prep_label[0] in "DA" and meas_label[1] == "V"
-
-
-def write_bench(folder, *, with_background: bool, seed: int = 7):
-    folder.mkdir(parents=True, exist_ok=True)
-    channel = channel_from_spec(SPEC, 2)
-    rng = np.random.default_rng(seed)
-    rows = simulate_counts(channel, shots=SHOTS, seed=seed)
-    lines = ["prep,meas,counts" + (",background" if with_background else "")]
-    flags = []
-    for k, (prep, meas, expected, _) in enumerate(rows):
-        background = 1.5 + 0.5 * (k % 3) + (60.0 if leaky(prep, meas) else 0.0)
-        n = rng.poisson(expected + background)
-        lines.append(f"{prep},{meas},{n}" + (f",{background}" if with_background else ""))
-        flags.append(leaky(prep, meas))
-    (folder / "counts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    (folder / "experiment.toml").write_text(
-        'title = "CZ with a light leak"\nqubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\n',
-        encoding="utf-8")
-    return gs.read_experiment(folder / "experiment.toml"), np.array(flags)
-
-
-@pytest.fixture(scope="module")
-def fits(tmp_path_factory):
-    base = tmp_path_factory.mktemp("gof")
-    told, leaks = write_bench(base / "told", with_background=True)
-    untold, _ = write_bench(base / "untold", with_background=False)
-    with warnings.catch_warnings(record=True) as caught_told:
-        warnings.simplefilter("always")
-        res_told = gs.fit(told)
-    with warnings.catch_warnings(record=True) as caught_untold:
-        warnings.simplefilter("always")
-        res_untold = gs.fit(untold)
-    paths = (res_told.save(base / "told.h5"), res_untold.save(base / "untold.h5"))
-    return {"told": (res_told, caught_told), "untold": (res_untold, caught_untold),
-            "leaks": leaks, "paths": paths}
 
 
 def test_show_lists_every_new_figure(cz_result):

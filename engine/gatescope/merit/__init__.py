@@ -8,46 +8,13 @@
   the state figures in `STATE_FIGURE_NAMES`; `compute_figures` with
   ``kind="state"`` calls it).
 
-For a Choi matrix J on d dimensions (README, "Conventions") and a unitary
-target U:
-
-* ``process_fidelity`` F_pro = <<U|J|U>>/d² (squared, Choi-state
-  convention; 1 for a perfect gate, equal to Tr(χ χ_U));
-* ``average_gate_fidelity`` F_avg = (d·F_pro + Tr J/d)/(d + 1), which is
-  (d·F_pro + 1)/(d + 1) for a trace-preserving J (Horodecki, Horodecki &
-  Horodecki, Phys. Rev. A 60, 1888 (1999); Nielsen, Phys. Lett. A 303, 249
-  (2002));
-* ``purity`` Tr ρ_J² of the normalised Choi state ρ_J = J/Tr J, which is
-  Tr J²/d² for a trace-preserving J (1 for a unitary);
-* ``trace`` Tr J/d (1 for trace preserving);
-* ``min_eigenvalue`` the smallest eigenvalue of J itself (negative for an
-  unphysical linear-inversion estimate);
-
-* ``unitarity`` u = Tr(R_u† R_u)/(d² − 1), R_u the unital block (rows and
-  columns of the non-identity Paulis) of the Pauli transfer matrix
-  (Wallman, Granade, Harper & Flammia, New J. Phys. 17, 113020 (2015)); 1
-  for a unitary, (1 − p)² for a depolarising channel. For a trace-decreasing
-  estimate the same block formula is applied to the unnormalised map;
-* ``nearest_unitary_fidelity`` max_U F_pro(J, U) over all unitaries, the
-  process fidelity of the estimate to the unitary closest to it; that
-  unitary is returned in the details as ``nearest_unitary``
-  (:func:`nearest_unitary`);
-* ``process_fidelity_local_phases`` the process fidelity to the target after
-  the best single-qubit Z rotations before and after it
-  (:func:`local_phase_fidelity`); the phases are in the details;
-* ``truth_table_fidelity`` for a target that maps computational basis states
-  to basis states (up to phases): the mean over basis inputs of the
-  probability of the target's output basis state
-  (:func:`truth_table_fidelity`); absent for other targets;
-* ``concurrence`` for a two-qubit target: the concurrence (Wootters, Phys.
-  Rev. Lett. 80, 2245 (1998)) of the estimate's output for the product
-  six-state input the target entangles most (:func:`entangling_input`);
-  absent when no such input is entangled by the target;
-* ``diamond_distance`` ‖Φ_J − Φ_U‖◇ (between 0 and 2) by the semidefinite
-  program of Watrous (:func:`diamond_distance`), only on request
-  (``diamond=True``: it needs cvxpy, and loading it alone takes about a
-  second).
-
+`compute_figures` computes every figure of a process in `FIGURE_NAMES` order:
+``process_fidelity``, ``average_gate_fidelity``, ``purity``, ``trace``,
+``min_eigenvalue``, ``unitarity``, ``nearest_unitary_fidelity``,
+``process_fidelity_local_phases`` and ``truth_table_fidelity`` are defined
+in `process`, ``concurrence`` in `entanglement`, ``diamond_distance`` (only
+on request: it needs cvxpy) in `diamond`; each definition, with its source,
+is in the docstring of the function that computes it and in the README.
 Target figures are absent when the experiment names no target.
 """
 
