@@ -225,7 +225,7 @@ def _row_table(r, rows, *, residual: bool) -> str:
         if residual:
             cells.append(f"{float(dg.pearson_residuals[k]):+.2f}")
         body.append(cells)
-    first = len(header) - (4 if residual else 3)
+    first = len(header) - (3 if residual else 2)
     out = html.table(header, body, numeric=[0] + list(range(first, len(header))))
     if len(rows) > MAX_ROWS_LISTED:
         out += f"<p class=small>… and {len(rows) - MAX_ROWS_LISTED} more.</p>"
@@ -286,7 +286,8 @@ def conditions_block(r) -> str:
 
 def provenance_block(r) -> str:
     items = [("created", r.created_utc)]
-    items += [(k, str(v)) for k, v in sorted(r.provenance.items())]
+    items += [(k, f"{v:.3f}" if isinstance(v, float) else str(v))
+              for k, v in sorted(r.provenance.items())]
     return html.pairs(items)
 
 

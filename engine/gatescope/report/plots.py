@@ -256,8 +256,9 @@ def _map_size(data: dict, layout: str) -> tuple[float, float]:
     panels = len(data["panels"])
     if layout == "column":
         return COLUMN_WIDTH_IN, COLUMN_WIDTH_IN * 0.80
-    width = 3.5 * panels + 1.45
-    return width, 3.95 if len(data["labels"]) > 16 else 3.75
+    if len(data["labels"]) > 16:
+        return 5.0 * panels + 1.45, 5.3
+    return 3.5 * panels + 1.45, 3.75
 
 
 def _draw_magnitude_phase(plt, data: dict, layout: str):

@@ -65,31 +65,38 @@ def _num(x: float) -> str:
     return f"{x:.3g}"
 
 
-def map_plot(name: str, symbol: str, estimate, target, target_name: str, labels,
-             axis: str, block: int | None) -> Plot:
-    """A magnitude–phase map of ``estimate`` beside ``target`` and their difference (or the
-    estimate alone without a target)."""
+#: Maps with more rows than this (three qubits and more) are drawn larger: the estimate
+#: beside the target in one figure, their difference in a second one (``<name>_difference``).
+LARGE_MAP = 16
+
+
+def map_plots(name: str, symbol: str, estimate, target, target_name: str, labels,
+              axis: str, block: int | None) -> list[Plot]:
+    """Magnitude–phase maps of ``estimate`` beside ``target`` and their difference (or the
+    estimate alone without a target): one figure, or two for a large map."""
     estimate = np.asarray(estimate, dtype=complex)
-    panels = []
+    data = {"labels": list(labels), "axis": axis, "block": block}
     if target is None:
         scale = _scale(estimate)
-        panels.append({"title": f"{symbol}, estimate\nfull cell: |entry| = {_num(scale)}",
-                       "matrix": estimate, "scale": scale})
-    else:
-        target = np.asarray(target, dtype=complex)
-        scale = _scale(estimate, target)
-        diff = estimate - target
-        dscale = _scale(diff)
-        panels += [
-            {"title": f"{symbol}, estimate\nfull cell: |entry| = {_num(scale)}",
-             "matrix": estimate, "scale": scale},
-            {"title": f"{symbol}, target {target_name}\nfull cell: |entry| = {_num(scale)}",
-             "matrix": target, "scale": scale},
-            {"title": f"estimate − target\nfull cell: |entry| = {_num(dscale)}",
-             "matrix": diff, "scale": dscale},
-        ]
-    return Plot(name, "magnitude_phase",
-                {"panels": panels, "labels": list(labels), "axis": axis, "block": block})
+        panels = [{"title": f"{symbol}, estimate\nfull cell: |entry| = {_num(scale)}",
+                   "matrix": estimate, "scale": scale}]
+        return [Plot(name, "magnitude_phase", {"panels": panels, **data})]
+    target = np.asarray(target, dtype=complex)
+    scale = _scale(estimate, target)
+    diff = estimate - target
+    dscale = _scale(diff)
+    panels = [
+        {"title": f"{symbol}, estimate\nfull cell: |entry| = {_num(scale)}",
+         "matrix": estimate, "scale": scale},
+        {"title": f"{symbol}, target {target_name}\nfull cell: |entry| = {_num(scale)}",
+         "matrix": target, "scale": scale},
+        {"title": f"{symbol}, estimate − target\nfull cell: |entry| = {_num(dscale)}",
+         "matrix": diff, "scale": dscale},
+    ]
+    if len(labels) <= LARGE_MAP:
+        return [Plot(name, "magnitude_phase", {"panels": panels, **data})]
+    return [Plot(name, "magnitude_phase", {"panels": panels[:2], **data}),
+            Plot(f"{name}_difference", "magnitude_phase", {"panels": panels[2:], **data})]
 
 
 def _alt(what: str, targets) -> str:
@@ -105,34 +112,40 @@ def matrix_plots(r) -> list[Plot]:
     name = r.target_name or "target"
     if r.kind == "state":
         n = n_qubits_of(np.asarray(r.rho).shape[0])
-        labels = basis_labels(n)
-        plot = map_plot("rho", "ρ", r.rho, None if targets is None else targets["rho"], name,
-                        labels, "basis states (H = |0>, V = |1>, qubit 1 first)",
-                        2 ** (n - 1) if n > 1 else None)
-        plot.title = "Density matrix"
-        plot.caption = ("The density matrix ρ in the computational basis, H = |0>, V = |1>, "
-                        "qubit 1 the first letter (HV = |0>⊗|1>); rows top to bottom, columns "
-                        "left to right.")
-        plot.alt = _alt("the estimated density matrix", targets)
-        return [plot]
+        shown = map_plots("rho", "ρ", r.rho, None if targets is None else targets["rho"], name,
+                          basis_labels(n), "basis states (H = |0>, V = |1>, qubit 1 first)",
+                          2 ** (n - 1) if n > 1 else None)
+        return _described(shown, "", "The density matrix ρ in the computational basis, "
+                          "H = |0>, V = |1>, qubit 1 the first letter (HV = |0>⊗|1>); rows top to "
+                          "bottom, columns left to right.", "the estimated density matrix",
+                          targets)
     n = n_qubits_of(r.dim)
     labels = pauli_labels(n)
     block = 4 ** (n - 1) if n > 1 else None
     axis = "Pauli strings (I < X < Y < Z, qubit 1 first)"
-    chi = map_plot("chi", "χ", r.chi, None if targets is None else targets["chi"], name,
-                   labels, axis, block)
-    chi.title = "Chi matrix"
-    chi.caption = ("χ of Φ(ρ) = Σ χ_mn P_m ρ P_n over the Pauli strings P in lexicographic "
-                   "order I < X < Y < Z, qubit 1 the first letter; row m, column n.")
-    chi.alt = _alt("the estimated chi matrix", targets)
-    ptm = map_plot("ptm", "R", r.ptm, None if targets is None else targets["ptm"], name,
-                   labels, axis, block)
-    ptm.title = "Pauli transfer matrix"
-    ptm.caption = ("R_ij = Tr(P_i Φ(P_j))/d, real for every physical process: blue is "
-                   "positive, red-brown negative. Row i (output Pauli string), column j "
-                   "(input).")
-    ptm.alt = _alt("the estimated Pauli transfer matrix", targets)
-    return [chi, ptm]
+    chi = map_plots("chi", "χ", r.chi, None if targets is None else targets["chi"], name,
+                    labels, axis, block)
+    ptm = map_plots("ptm", "R", r.ptm, None if targets is None else targets["ptm"], name,
+                    labels, axis, block)
+    return (_described(chi, "Chi matrix", "χ of Φ(ρ) = Σ χ_mn P_m ρ P_n over the Pauli strings "
+                       "P in lexicographic order I < X < Y < Z, qubit 1 the first letter; row m, "
+                       "column n.", "the estimated chi matrix", targets)
+            + _described(ptm, "Pauli transfer matrix", "R_ij = Tr(P_i Φ(P_j))/d, real for every "
+                         "physical process: blue is positive, red-brown negative. Row i (output "
+                         "Pauli string), column j (input).",
+                         "the estimated Pauli transfer matrix", targets))
+
+
+def _described(shown: list[Plot], title: str, caption: str, what: str, targets) -> list[Plot]:
+    """Title, caption and description of a map (and of its separate difference)."""
+    shown[0].title, shown[0].caption, shown[0].alt = title, caption, _alt(what, targets)
+    if len(shown) > 1:
+        shown[0].alt = f"magnitude–phase maps of {what} beside the target"
+        diff = shown[1]
+        diff.title = f"{title or 'Density matrix'}: estimate − target"
+        diff.caption = "The difference of the maps above, on its own scale."
+        diff.alt = f"magnitude–phase map of {what} minus the target"
+    return shown
 
 
 # --------------------------------------------------------------------------
@@ -310,5 +323,5 @@ def result_plots(r) -> list[Plot]:
     return plots + ([boot] if boot is not None else [])
 
 
-__all__ = ["basis_labels", "target_matrices", "map_plot", "matrix_plots", "label_parts",
+__all__ = ["basis_labels", "target_matrices", "map_plots", "matrix_plots", "label_parts",
            "residual_grid", "data_plots", "bootstrap_plot", "result_plots", "PART_ORDER"]
