@@ -227,6 +227,22 @@ def summary(result: Result, *, source: str | None = None) -> str:
     return "\n".join(clean(line) for line in lines)
 
 
+def figure_label(name: str, kind: str = "process") -> str:
+    """The label of figure ``name`` in words, as `show` prints it ("process fidelity")."""
+    return _label(name, kind == "state")
+
+
+def number_text(x: float) -> str:
+    """A number as `show` prints it ("not defined" for NaN and ±inf)."""
+    return _num(x)
+
+
+def status_text(r: Result) -> str:
+    """How the estimate ended, in the words of `show` ("converged to rounding precision
+    (...)", "UNPHYSICAL estimate (...)", ...)."""
+    return _status_text(r)
+
+
 def _label(name: str, state: bool) -> str:
     if not state:
         return LABELS.get(name, name)
