@@ -24,7 +24,7 @@ import numpy as np
 
 from . import kernels, resources
 from .bootstrap import check_options as check_bootstrap_options
-from .bootstrap import run_bootstrap
+from .bootstrap import fit_p_value, run_bootstrap
 from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
 from .errors import collect_warnings, warn
@@ -252,6 +252,9 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
                                    method=method, options=options, progress=progress,
                                    interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
+    if boot is not None:
+        diag.bootstrap_p_value, diag.bootstrap_resamples = fit_p_value(diag.deviance,
+                                                                       boot.deviances)
     no_signal = warn_about_fit(model, point, diag.dof, ident.rank)
     if point.method in MAXIMUM_LIKELIHOOD and verdict.physical and not no_signal:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²

@@ -146,6 +146,9 @@ def goodness_of_fit(r) -> str:
     if dg.dof > 0 and math.isfinite(dg.chi2_p_value):
         items += [("p-value of χ²", f"{dg.chi2_p_value:.3g}"),
                   ("p-value of the deviance", f"{dg.deviance_p_value:.3g}")]
+    if dg.bootstrap_resamples:
+        items.append(("bootstrap p-value", f"{dg.bootstrap_p_value:.3g} "
+                                           f"({dg.bootstrap_resamples} resamples)"))
     out = html.pairs(items)
     if dg.dof <= 0:
         out += "<p>No test: no degrees of freedom are left.</p>"
