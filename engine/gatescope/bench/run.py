@@ -333,8 +333,8 @@ def _settings(opts: BenchOptions, folder: Path, names) -> dict:
         mine["seed"] = stored["seed"]
     stored.setdefault("kind", "process")          # folders written before state benches
     if stored["kind"] != mine["kind"]:
-        raise InputError(f"the bench in {folder} holds {stored['kind']}es, not "
-                         f"{mine['kind']}s: bench them in another folder",
+        raise InputError(f"the bench in {folder} holds {CASE_ARGUMENT[stored['kind']]}, not "
+                         f"{CASE_ARGUMENT[mine['kind']]}: bench them in another folder",
                          key=names(CASE_ARGUMENT[mine["kind"]]))
     for key in FIXED_SETTINGS:
         if stored.get(key) != mine[key]:
