@@ -429,3 +429,17 @@ def test_state_bound_needs_full_rank_and_a_complete_design(tmp_path):
     # H, V and D only: the Y components are not measured, F is singular
     partial = _state_experiment(tmp_path / "b", rho, n_qubits=2, meas=("H", "V", "D"))
     assert crb.hs_crb(partial, rho, np.full(1, 1000.0)) == float("inf")
+
+
+def test_two_qubit_maximally_mixed_state_closed_form(tmp_path):
+    """ρ = I/4, the 36 products of the six projectors, N expected counts per analyser basis,
+    no background: every row has ν = N/4 and ∂ν/∂θ_j = N e_m[j]/2 (θ_j the coordinate on
+    P_j/2), so F = 4N·Σ_m g_m g_mᵀ with g_m = e_m/2 restricted to j ≠ II, and
+    Σ_m e_m e_mᵀ = diag(6, 2, 2, 2) ⊗ diag(6, 2, 2, 2) for the product six-projector set;
+    the intensity's cross terms vanish (Σ_m e_m[j] = 0 for j ≠ II). Hence F_jj = N·s_j with
+    s_j = Π_q (6 for I, 2 otherwise) and Tr F⁻¹ = (1/N)(6/12 + 9/4) = 11/(4N). (Derived by
+    hand from the Poisson Fisher information, Cramér 1946.)"""
+    model = _state_experiment(tmp_path, np.eye(4) / 4, n_qubits=2)
+    for shots in (100.0, 1000.0, 10000.0):
+        np.testing.assert_allclose(crb.hs_crb(model, np.eye(4) / 4, np.full(1, shots)),
+                                   11.0 / (4.0 * shots), rtol=1e-12)
