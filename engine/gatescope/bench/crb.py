@@ -71,7 +71,8 @@ non-increasing model, also λ_min(I − Tr_out J) > ``rank_tol``).
 Size
 ----
 For a state m = d² − 1 (4095 at six qubits: 134 MB, under the limit; the
-assembly costs O(M·m²) for M settings, minutes at six qubits). For a
+assembly costs O(M·m²) for M settings, about 10¹² operations for the 46,656
+settings of six qubits, half a minute on one core; benchmarks/README.md). For a
 process F has m² entries, m = d⁴ − d²: 240 at two qubits, 4032 at three (a
 130 MB matrix, assembled in O(m²·M) operations for M distinct analyser
 effects and inverted by Cholesky in O(m³) ≈ 2·10¹⁰ operations, seconds on
@@ -290,13 +291,13 @@ class _StateTangent:
         return out[:, 1:] * self.scale
 
     def gram(self, weights: np.ndarray) -> np.ndarray:
-        """Σ_c weights_c g_c g_cᵀ, a block of settings at a time."""
+        """Σ_c weights_c g_c g_cᵀ (weights ≥ 0), a block of settings at a time, updated in
+        place (`_gram_update`)."""
         fisher = np.zeros((self.m, self.m))
         used = np.flatnonzero(weights)
         for start in range(0, used.size, self.block):
             cells = used[start:start + self.block]
-            g = self.rows(cells)
-            fisher += g.T @ (weights[cells][:, None] * g)
+            _gram_update(fisher, self.rows(cells) * np.sqrt(weights[cells])[:, None], 1.0)
         return fisher
 
     def combine(self, cells: np.ndarray, weights: np.ndarray) -> np.ndarray:
@@ -369,6 +370,14 @@ def _symmetrize(a: np.ndarray, size: int = 512) -> None:
             lower[...] = avg.T
 
 
+def _gram_update(fisher: np.ndarray, rows: np.ndarray, alpha: float) -> None:
+    """fisher += alpha · rowsᵀ rows, in place: fisher.T is the same symmetric matrix in
+    Fortran order, which BLAS updates without an m × m temporary."""
+    out = blas.dgemm(alpha, rows, rows, beta=1.0, c=fisher.T, trans_a=1, overwrite_c=1)
+    if not np.shares_memory(out, fisher):
+        fisher[...] = out.T
+
+
 def _subtract_nuisance(fisher, model, tangent, p, lam_row, a, nu, chunk: int = 64) -> None:
     """F −= Σ_g f_g f_gᵀ / D_g (in place), groups taken ``chunk`` at a time."""
     g = model.group_index
@@ -388,11 +397,7 @@ def _subtract_nuisance(fisher, model, tangent, p, lam_row, a, nu, chunk: int = 6
         for t, k in enumerate(part):
             s = slice(bounds[k], bounds[k + 1])
             rows[t] = tangent.combine(cell_id[s], weights[s]) / np.sqrt(nuis[k])
-        # fisher −= rowsᵀ rows, in place: fisher.T is the same symmetric matrix in
-        # Fortran order, which BLAS updates without an m × m temporary
-        out = blas.dgemm(-1.0, rows, rows, beta=1.0, c=fisher.T, trans_a=1, overwrite_c=1)
-        if not np.shares_memory(out, fisher):
-            fisher[...] = out.T
+        _gram_update(fisher, rows, -1.0)
 
 
 def full_rank(choi: np.ndarray, *, trace_decreasing: bool = False, rank_tol: float = 1e-9) -> bool:
