@@ -39,35 +39,25 @@ CHANNELS = {1: "random:4:1", 2: "random:16:1", 3: "random:64:1"}
 STATES = {1: "random:2:1", 2: "random:4:1", **{n: "GHZ+depolarizing:0.1" for n in range(3, 7)}}
 
 
-def one_state_case(n: int) -> dict:
+def one_case(n: int, state: bool = False) -> dict:
     import tempfile
 
-    from gatescope.model import StateModel
+    from gatescope.model import build_model
     from gatescope.reader import read_experiment
-    from gatescope.synth.state import state_from_spec, simulate_state_counts, write_state_experiment
+    from gatescope.synth import simulate as channels
+    from gatescope.synth import state as states
 
-    spec = STATES[n]
-    state = state_from_spec(spec, n)
+    if state:
+        spec, make, simulate, write = (STATES[n], states.state_from_spec,
+                                       states.simulate_state_counts, states.write_state_experiment)
+    else:
+        spec, make, simulate, write = (CHANNELS[n], channels.channel_from_spec,
+                                       channels.simulate_counts, channels.write_experiment)
+    truth = make(spec, n)
     with tempfile.TemporaryDirectory() as tmp:
-        rows = simulate_state_counts(state, shots=1000.0, seed=1)
-        exp = read_experiment(write_state_experiment(Path(tmp), state, rows, title="crb speed"))
-    model = StateModel.from_experiment(exp)
-    return _timed(model, state.choi, n, spec)
-
-
-def one_case(n: int) -> dict:
-    import tempfile
-
-    from gatescope.model import MeasurementModel
-    from gatescope.reader import read_experiment
-    from gatescope.synth.simulate import channel_from_spec, simulate_counts, write_experiment
-
-    spec = CHANNELS[n]
-    channel = channel_from_spec(spec, n)
-    with tempfile.TemporaryDirectory() as tmp:
-        rows = simulate_counts(channel, shots=1000.0, seed=1)
-        exp = read_experiment(write_experiment(Path(tmp), channel, rows, title="crb speed"))
-    return _timed(MeasurementModel(exp), channel.choi, n, spec)
+        rows = simulate(truth, shots=1000.0, seed=1)
+        exp = read_experiment(write(Path(tmp), truth, rows, title="crb speed"))
+    return _timed(build_model(exp), truth.choi, n, spec)
 
 
 def _timed(model, truth, n: int, spec: str) -> dict:
@@ -97,7 +87,7 @@ def main(argv=None) -> int:
     ap.add_argument("--case", type=int, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.case is not None:
-        print(json.dumps((one_state_case if args.state else one_case)(args.case)))
+        print(json.dumps(one_case(args.case, args.state)))
         return 0
     if args.output is None:
         name = "crb_speed_state.json" if args.state else "crb_speed.json"

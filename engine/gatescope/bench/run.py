@@ -172,9 +172,10 @@ def check_bench_options(channels, *, states=None, shots=DEFAULT_SHOTS, methods=N
         except ValueError as exc:
             raise InputError(str(exc), key=name(argument)) from None
     sets = {"prep": ()}
-    for key, value in (("prep", "pauli6" if prep is None else prep), ("meas", meas)):
-        if key == "prep" and kind == "state":
-            continue
+    wanted = [("meas", meas)]
+    if kind == "process":
+        wanted.insert(0, ("prep", "pauli6" if prep is None else prep))
+    for key, value in wanted:
         try:
             sets[key] = label_set(value)
         except ValueError as exc:
@@ -222,76 +223,60 @@ class _Item:
     seed: int
 
 
-def _bound(model, truth: np.ndarray, rate: float, spec: str, first: bool, notes: list):
-    """hs_crb of the truth at this design, the true intensities being the rate in every
-    group (the model's fixed ones when it has them); None with a note when too large."""
-    intensities = None if model.fixed_intensities is not None else np.full(model.n_groups, rate)
-    try:
-        return crb.hs_crb(model, truth, intensities)
-    except ValueError as exc:          # too large for the dense information
-        if first:
-            notes.append(f"{spec}: no Cramér–Rao bound ({exc})")
-        return None
+def _design(opts: BenchOptions, source, shots: float, folder: Path, spec: str):
+    """The acquisition of one case, its experiment written into ``folder`` and read back
+    (as a fit would see it) and its model: every (prep, meas) pair of a channel, or every
+    analyser of a state (one global intensity, the experiment `simulate --state` writes)."""
+    if opts.kind == "state":
+        acq = state_acquisition(source, shots=shots, meas_set=opts.meas)
+        run = acq.draw(0)
+        exp = read_experiment(write_state_experiment(
+            folder, source, list(zip(acq.meas, run.expected, run.counts)),
+            title=f"bench {spec}"))
+        return acq, exp, StateModel.from_experiment(exp)
+    acq = acquisition(source, shots=shots, prep_set=opts.prep, meas_set=opts.meas)
+    exp = read_experiment(write_experiment(folder, source, acq.draw(0).rows,
+                                           title=f"bench {spec}", extra_toml=acq.toml_keys(),
+                                           columns=acq.columns()))
+    return acq, exp, MeasurementModel(exp)
+
+
+def _info(opts: BenchOptions, spec: str, source, acq, model, truth: Truth) -> dict:
+    """What bench.h5 keeps of a case's truth and design (`store.write_bench`)."""
+    info = {"spec": spec, "qubits": source.n_qubits, "target": source.target or "",
+            "figure_names": list(truth.figures), "figure_values": list(truth.figures.values()),
+            "meas": list(acq.meas)}
+    if opts.kind == "state":
+        return {**info, "full_rank": crb.full_rank(source.choi), "rho": source.choi}
+    return {**info, "trace": "decreasing" if model.trace_decreasing else "preserving",
+            "full_rank": crb.full_rank(source.choi, trace_decreasing=model.trace_decreasing),
+            "choi": source.choi, "prep": list(acq.prep)}
 
 
 def _build_cases(opts: BenchOptions, workdir: Path):
-    """One `Case` per channel (or state) × shots (the design read back through the reader,
-    as a fit would see it), the truth of every case and its bound at every shots."""
-    if opts.kind == "state":
-        return _build_state_cases(opts, workdir)
+    """One `Case` per channel (or state) × shots (`_design`), the truth of every case and
+    its bound at every shots."""
     cases, bounds, notes, infos = [], [], [], []
+    from_spec = state_from_spec if opts.kind == "state" else channel_from_spec
     for c, spec in enumerate(opts.channels):
-        channel = channel_from_spec(spec, opts.qubits)
+        source = from_spec(spec, opts.qubits)
         truth = None
         for s, shots in enumerate(opts.shots):
-            acq = acquisition(channel, shots=shots, prep_set=opts.prep, meas_set=opts.meas)
-            path = write_experiment(workdir / f"{c}-{s}", channel, acq.draw(0).rows,
-                                    title=f"bench {spec}", extra_toml=acq.toml_keys(),
-                                    columns=acq.columns())
-            exp = read_experiment(path)
-            model = MeasurementModel(exp)
+            acq, exp, model = _design(opts, source, shots, workdir / f"{c}-{s}", spec)
             if truth is None:
-                truth = Truth.of(channel.choi, exp.target)
-                infos.append({"spec": spec, "qubits": channel.n_qubits,
-                              "target": channel.target or "",
-                              "trace": "decreasing" if model.trace_decreasing else "preserving",
-                              "full_rank": crb.full_rank(channel.choi,
-                                                         trace_decreasing=model.trace_decreasing),
-                              "choi": channel.choi, "figure_names": list(truth.figures),
-                              "figure_values": list(truth.figures.values()),
-                              "prep": list(acq.prep), "meas": list(acq.meas)})
-            bound = _bound(model, channel.choi, acq.rate, spec, s == 0, notes)
+                target = exp.target_state if opts.kind == "state" else exp.target
+                truth = Truth.of(source.choi, target, kind=opts.kind)
+                infos.append(_info(opts, spec, source, acq, model, truth))
+            intensities = (None if model.fixed_intensities is not None
+                           else np.full(model.n_groups, acq.rate))
+            try:
+                bound = crb.hs_crb(model, source.choi, intensities)
+            except ValueError as exc:          # too large for the dense information
+                bound = None
+                if s == 0:
+                    notes.append(f"{spec}: no Cramér–Rao bound ({exc})")
             bounds.append({"channel": c, "shots": shots, "hs_crb": bound})
-            cases.append(Case(spec, channel.n_qubits, shots, model, acq, truth))
-    return cases, bounds, notes, infos
-
-
-def _build_state_cases(opts: BenchOptions, workdir: Path):
-    """`_build_cases` for states: the analysers ``opts.meas`` on every qubit, one global
-    intensity (the state experiment `simulate --state` writes)."""
-    cases, bounds, notes, infos = [], [], [], []
-    for c, spec in enumerate(opts.channels):
-        state = state_from_spec(spec, opts.qubits)
-        truth = None
-        for s, shots in enumerate(opts.shots):
-            acq = state_acquisition(state, shots=shots, meas_set=opts.meas)
-            run = acq.draw(0)
-            path = write_state_experiment(workdir / f"{c}-{s}", state,
-                                          list(zip(acq.meas, run.expected, run.counts)),
-                                          title=f"bench {spec}")
-            exp = read_experiment(path)
-            model = StateModel.from_experiment(exp)
-            if truth is None:
-                truth = Truth.of(state.choi, exp.target_state, kind="state")
-                infos.append({"spec": spec, "qubits": state.n_qubits,
-                              "target": state.target or "",
-                              "full_rank": crb.full_rank(state.choi), "rho": state.choi,
-                              "figure_names": list(truth.figures),
-                              "figure_values": list(truth.figures.values()),
-                              "meas": list(acq.meas)})
-            bound = _bound(model, state.choi, acq.rate, spec, s == 0, notes)
-            bounds.append({"channel": c, "shots": shots, "hs_crb": bound})
-            cases.append(Case(spec, state.n_qubits, shots, model, acq, truth, kind="state"))
+            cases.append(Case(spec, source.n_qubits, shots, model, acq, truth, kind=opts.kind))
     return cases, bounds, notes, infos
 
 
@@ -403,8 +388,7 @@ def run_bench(channels, outdir, *, states=None, shots=DEFAULT_SHOTS, methods=Non
         For a bad option, or settings that differ from the folder's.
     """
     opts = check_bench_options(channels, states=states, shots=shots, methods=methods, prep=prep,
-                               meas=meas,
-                               qubits=qubits, repeats=repeats, bootstrap=bootstrap,
+                               meas=meas, qubits=qubits, repeats=repeats, bootstrap=bootstrap,
                                interval=interval, ci_level=ci_level, seed=seed, workers=workers,
                                command_line=flags)
 

@@ -45,8 +45,8 @@ from ..model.state import full_grid
 from ..reader import MAX_QUBITS
 from .noise import (NOISE_KINDS, amplitude_damping_kraus, check_noise_parameter, dephasing_kraus,
                     parse_noise, parse_random, zz_diagonal)
-from .simulate import (Acquisition, Channel, _product_labels, _toml_string, checked_set, checked_shots,
-                       save_truth, simulation_seed)
+from .simulate import (Acquisition, Channel, _product_labels, _toml_string, checked_set,
+                       checked_shots, save_truth, simulation_seed)
 
 #: Noise kinds of a state SPEC: the channel kinds, and the visibility of a state.
 STATE_NOISE_KINDS = NOISE_KINDS + ("visibility",)
