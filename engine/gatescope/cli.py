@@ -186,21 +186,26 @@ def _add_bench_parser(sub) -> None:
     from .intervals import DEFAULT_INTERVAL, INTERVALS
 
     b = sub.add_parser(
-        "bench", help="how good is an estimator: repeated fits of simulated data of known channels",
-        description="Simulate every channel at every count level many times, fit with every "
-                    "method, and tabulate the errors against the truth beside the Cramér-Rao "
+        "bench", help="how good is an estimator: repeated fits of simulated data of known channels "
+                      "or states",
+        description="Simulate every channel (or state) at every count level many times, fit with "
+                    "every method, and tabulate the errors against the truth beside the Cramér-Rao "
                     "bound (DIR/bench.csv, DIR/bench.h5, DIR/bench.png). A rerun in the same "
                     "folder continues where it stopped.")
-    b.add_argument("--channel", action="append", required=True, metavar="SPEC",
+    b.add_argument("--channel", action="append", default=None, metavar="SPEC",
                    help="a channel SPEC as for simulate (repeatable)")
+    b.add_argument("--state", action="append", default=None, metavar="SPEC",
+                   help="a state SPEC as for simulate --state (repeatable; instead of --channel)")
     b.add_argument("--shots", default="100,1000,10000", metavar="N,N,...",
                    help="count levels: expected counts per preparation and analyser basis "
                         "(default 100,1000,10000)")
     b.add_argument("--methods", default=None, metavar="M,M,...",
                    help="estimators (default: all)")
-    b.add_argument("--prep", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
+    b.add_argument("--prep", default=None, metavar="SET",
+                   help="pauli6 (default), pauli4 or a comma list; not with --state")
     b.add_argument("--meas", default="pauli6", metavar="SET", help="pauli6 (default), pauli4 or a comma list")
-    b.add_argument("--qubits", type=int, default=2, help="qubits of random channels (default 2)")
+    b.add_argument("--qubits", type=int, default=2,
+                   help="qubits of random channels, or of GHZ, W and random states (default 2)")
     b.add_argument("--repeats", type=int, default=DEFAULT_REPEATS, metavar="R",
                    help=f"repetitions per channel, count level and method (default {DEFAULT_REPEATS})")
     b.add_argument("--bootstrap", type=int, default=0, metavar="B",
@@ -541,12 +546,13 @@ def cmd_bench(args, command_line) -> int:
     from .bench import run_bench
     from .bench.table import text_table
 
-    out = run_bench(args.channel, args.output, shots=args.shots, methods=args.methods,
-                    prep=args.prep, meas=args.meas, qubits=args.qubits, repeats=args.repeats,
+    out = run_bench(args.channel, args.output, states=args.state, shots=args.shots,
+                    methods=args.methods, prep=args.prep, meas=args.meas, qubits=args.qubits,
+                    repeats=args.repeats,
                     bootstrap=args.bootstrap, interval=args.interval, ci_level=args.ci_level,
                     seed=args.seed, workers=args.workers, address=args.dask,
                     progress=not args.quiet, command_line=command_line, flags=True)
-    print(text_table(out.rows))
+    print(text_table(out.rows, out.kind))
     print(f"\n{out.new} repetitions run now, {out.reused} taken from {out.folder} (seed {out.seed})")
     for note in out.notes:
         print(note)

@@ -275,3 +275,171 @@ def test_mle_reaches_the_bound_at_ten_thousand_counts(tmp_path):
     stderr = errors.std(ddof=1) / np.sqrt(errors.size) / bound      # about 0.01
     assert stderr < 0.03
     assert 0.8 <= ratio <= 1.3
+
+
+# --------------------------------------------------------------------------
+# States: the same information on the trace-zero directions of a density matrix
+# --------------------------------------------------------------------------
+
+def _state_experiment(folder, rho, *, n_qubits, shots=1000.0, meas=SIX, per_group=False,
+                      columns=False, seed=4):
+    """Write a state experiment (every product analyser of ``meas``) of the density matrix
+    ``rho``; with ``per_group`` one normalisation group per analyser basis (the part of the
+    label in H/V, D/A or R/L of every qubit), with ``columns`` unequal seconds,
+    efficiencies and a background. Returns the StateModel."""
+    from gatescope.model import StateModel
+    from gatescope.synth.state import simulate_state_counts
+
+    state = Channel(rho, n_qubits, None, "test state")
+    rows = simulate_state_counts(state, shots=shots, meas_set=meas, seed=seed)
+    rng = np.random.default_rng(seed)
+    basis = {"H": "z", "V": "z", "D": "x", "A": "x", "R": "y", "L": "y"}
+    head = "meas,counts" + (",seconds,efficiency,background" if columns else "") + \
+        (",group" if per_group else "")
+    lines = [head]
+    for m, _, c in rows:
+        line = f"{m},{c}"
+        if columns:
+            line += (f",{rng.uniform(0.7, 1.3):.17g},{rng.uniform(0.6, 1.0):.17g},"
+                     f"{rng.uniform(0.5, 4.0):.17g}")
+        if per_group:
+            line += "," + "".join(basis[s] for s in m)
+        lines.append(line)
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "counts.csv").write_text("\n".join(lines) + "\n")
+    toml = f'kind = "state"\nqubits = {n_qubits}\ncounts = "counts.csv"\n'
+    if per_group:
+        toml += 'normalization = "per-group"\n'
+    (folder / "experiment.toml").write_text(toml)
+    return StateModel.from_experiment(gs.read_experiment(folder / "experiment.toml"))
+
+
+def _random_trace_zero(rng, d):
+    x = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+    x = x + x.conj().T
+    x = x - np.trace(x).real * np.eye(d) / d
+    return x / np.linalg.norm(x)
+
+
+@pytest.mark.parametrize("d", [2, 4, 8])
+def test_state_basis_is_orthonormal_hermitian_and_trace_zero(d):
+    m = crb.n_parameters(d, crb.TRACE_ZERO)
+    assert m == d * d - 1
+    basis = np.array([crb.from_coordinates(np.eye(m)[k], d, crb.TRACE_ZERO) for k in range(m)])
+    flat = basis.reshape(m, -1)
+    np.testing.assert_allclose(flat.conj() @ flat.T, np.eye(m), atol=1e-12)
+    np.testing.assert_allclose(basis, basis.conj().transpose(0, 2, 1), atol=1e-14)
+    np.testing.assert_allclose(np.trace(basis, axis1=1, axis2=2), 0, atol=1e-14)
+    x = _random_trace_zero(np.random.default_rng(1), d)
+    v = crb.coordinates(x, crb.TRACE_ZERO)
+    np.testing.assert_allclose(np.linalg.norm(v), 1.0, rtol=1e-12)      # an isometry
+    np.testing.assert_allclose(crb.from_coordinates(v, d, crb.TRACE_ZERO), x, atol=1e-12)
+
+
+@pytest.mark.parametrize("r", [(0.0, 0.0, 0.8), (0.3, -0.5, 0.4), (0.0, 0.0, 0.0)])
+def test_single_qubit_state_closed_form(tmp_path, r):
+    """One qubit, the six Pauli projectors, N expected counts per basis, one unknown
+    intensity. Derived by hand from the Fisher information of Poisson counts,
+    I = Σ_k (∂ν_k)²/ν_k (common practice): with Bloch vector r, ν_± = N(1 ± r_a)/2 for
+    axis a, and the coordinate θ_a = Tr(σ_a Δρ)/√2 moves r_a by √2 θ_a, so
+    ∂ν_±/∂θ_a = ±N/√2 and F_aa = (N²/2)·Σ_± 1/ν_± = 2N/(1 − r_a²), diagonal. The
+    intensity's cross terms Σ_± (∂ν_±/∂θ_a)(∂ν_±/∂λ)/ν_± = Σ_± ±1/√2 vanish, so profiling
+    costs nothing and Tr F⁻¹ = Σ_a (1 − r_a²)/(2N) = (3 − |r|²)/(2N) — the variance of
+    the frequency estimate of r, (1 − r_a²)/N per axis, times ‖Δρ‖²_F = |Δr|²/2
+    (common practice)."""
+    r = np.array(r)
+    paulis = pauli_basis_1()
+    rho = 0.5 * (np.eye(2) + np.einsum("a,aij->ij", r, paulis))
+    shots = 1000.0
+    model = _state_experiment(tmp_path, rho, n_qubits=1, shots=shots)
+    info = crb.fisher_information(model, rho, np.full(model.n_groups, shots))
+    assert info.profiled and info.directions == crb.TRACE_ZERO
+    # Pauli order I, X, Y, Z (README): the coordinates are those of X, Y, Z
+    np.testing.assert_allclose(info.matrix, np.diag(2 * shots / (1 - r ** 2)), rtol=1e-12,
+                               atol=1e-9)
+    np.testing.assert_allclose(crb.hs_crb(model, rho, np.full(1, shots)),
+                               (3 - r @ r) / (2 * shots), rtol=1e-12)
+
+
+def pauli_basis_1():
+    """σ_x, σ_y, σ_z written out (common practice)."""
+    return np.array([[[0, 1], [1, 0]], [[0, -1j], [1j, 0]], [[1, 0], [0, -1]]], dtype=complex)
+
+
+STATE_CASES = {
+    # (qubits, per-group normalisation, extra columns, analysers)
+    "1q global": (1, False, False, SIX),
+    "2q global, background, unequal exposures": (2, False, True, SIX),
+    "2q per-group (one intensity per basis)": (2, True, False, SIX),
+    "2q per-group, background": (2, True, True, SIX),
+    "3q global, four analysers": (3, False, False, ("H", "V", "D", "R")),
+}
+
+
+@pytest.mark.parametrize("case", sorted(STATE_CASES))
+def test_state_information_matches_profile_likelihood_curvature(tmp_path, case):
+    """Finite differences of the profiled log-likelihood (module docstring), through the
+    likelihood the estimators use, against vᵀ F v; and the plain definition
+    F = Gᵀ diag(w) G − Schur part with the design G built column by column from
+    model.forward of the basis elements."""
+    from support import random_density
+
+    n, per_group, columns, meas = STATE_CASES[case]
+    d = 2 ** n
+    rho = random_density(d, d, seed=n + 10 * per_group + 100 * columns)
+    model = _state_experiment(tmp_path, rho, n_qubits=n, per_group=per_group, columns=columns,
+                              meas=meas)
+    assert model.n_groups == (3 ** n if per_group else 1)
+    lam = np.linspace(900.0, 1100.0, model.n_groups)
+    info = crb.fisher_information(model, rho, lam)
+    assert info.profiled and info.n_parameters == d * d - 1
+    rng = np.random.default_rng(3)
+    for _ in range(3):
+        x = _random_trace_zero(rng, d)
+        v = crb.coordinates(x, crb.TRACE_ZERO)
+        dense = v @ info.matrix @ v
+        np.testing.assert_allclose(_profile_curvature(model, rho, lam, x), dense, rtol=2e-6)
+        np.testing.assert_allclose(crb.information_along(model, rho, lam, x), dense, rtol=1e-10)
+    m = info.n_parameters
+    design = np.array([model.forward(crb.from_coordinates(np.eye(m)[k], d, crb.TRACE_ZERO))
+                       for k in range(m)]).T
+    p = model.forward(rho)
+    lam_row = lam[model.group_index]
+    a = model.exposure
+    nu = lam_row * a * p + model.background
+    dnu = (lam_row * a)[:, None] * design
+    dlam = np.zeros((model.n_rows, model.n_groups))
+    dlam[np.arange(model.n_rows), model.group_index] = a * p
+    cross = dnu.T @ (dlam / nu[:, None])
+    expected = dnu.T @ (dnu / nu[:, None]) - cross @ np.linalg.solve(
+        dlam.T @ (dlam / nu[:, None]), cross.T)
+    np.testing.assert_allclose(info.matrix, expected, rtol=1e-9,
+                               atol=1e-9 * np.abs(expected).max())
+
+
+def test_state_bound_needs_full_rank_and_a_complete_design(tmp_path):
+    from support import random_density
+
+    rho = random_density(4, 4, seed=8)
+    model = _state_experiment(tmp_path / "a", rho, n_qubits=2)
+    b1 = crb.hs_crb(model, rho, np.full(1, 1000.0))
+    b2 = crb.hs_crb(model, rho, np.full(1, 4000.0))
+    np.testing.assert_allclose(b1 / b2, 4.0, rtol=1e-10)          # no background: F ∝ λ
+    assert crb.hs_crb(model, random_density(4, 2, seed=8), np.full(1, 1000.0)) is None
+    # H, V and D only: the Y components are not measured, F is singular
+    partial = _state_experiment(tmp_path / "b", rho, n_qubits=2, meas=("H", "V", "D"))
+    assert crb.hs_crb(partial, rho, np.full(1, 1000.0)) == float("inf")
+
+
+def test_two_qubit_maximally_mixed_state_closed_form(tmp_path):
+    """ρ = I/4, the 36 products of the six projectors, N expected counts per analyser basis,
+    no background: every row has ν = N/4 and ∂ν/∂θ_j = N e_m[j]/2 (θ_j the coordinate on
+    P_j/2), so F = 4N·Σ_m g_m g_mᵀ with g_m = e_m/2 restricted to j ≠ II, and
+    Σ_m e_m e_mᵀ = diag(6, 2, 2, 2) ⊗ diag(6, 2, 2, 2) for the product six-projector set;
+    the intensity's cross terms vanish (Σ_m e_m[j] = 0 for j ≠ II). Hence F_jj = N·s_j with
+    s_j = Π_q (6 for I, 2 otherwise) and Tr F⁻¹ = (1/N)(6/12 + 9/4) = 11/(4N). (Derived by
+    hand from the Poisson Fisher information, Cramér 1946.)"""
+    model = _state_experiment(tmp_path, np.eye(4) / 4, n_qubits=2)
+    for shots in (100.0, 1000.0, 10000.0):
+        np.testing.assert_allclose(crb.hs_crb(model, np.eye(4) / 4, np.full(1, shots)),
+                                   11.0 / (4.0 * shots), rtol=1e-12)

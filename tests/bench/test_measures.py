@@ -114,6 +114,70 @@ def test_a_repetition_with_a_bootstrap(tmp_path):
     again = repetition(case, counts, "mle", bootstrap=4, bootstrap_seed=9)
     assert again["bootstrap_values"] == rec["bootstrap_values"]
     assert again["hs_error"] == rec["hs_error"]
-    with pytest.raises(ValueError, match="kind 'state'"):
+    with pytest.raises(ValueError, match="truth of kind .process."):
         repetition(Case(case.channel, 1, 1.0, case.model, case.acquisition, case.truth, "state"),
                    counts, "mle")
+
+
+# --------------------------------------------------------------------------
+# States
+# --------------------------------------------------------------------------
+
+def test_state_errors_against_qutip_and_closed_forms():
+    """A depolarised Bell state against the pure one and against an estimate."""
+    from gatescope.conventions import density, named_state
+    from gatescope.synth.state import state_from_spec
+
+    p = 0.2
+    psi = named_state("phi+", 2)
+    truth = Truth.of(state_from_spec(f"phi++depolarizing:{p}").choi, psi, kind="state")
+    # fidelity of a depolarised pure state to itself: 1 − p(1 − 1/d) (common practice)
+    assert truth.target_fidelity == pytest.approx(1 - p * 3 / 4, abs=1e-14)
+    assert truth.input_dim == 1 and truth.figures["state_fidelity"] == truth.target_fidelity
+    est = density(psi)
+    out = errors(est, truth)
+    # ρ̂ − ρ = p(|ψ><ψ| − I/4): eigenvalues 3p/4 once and −p/4 three times
+    assert out["hs_error"] == pytest.approx(p ** 2 * (9 / 16 + 3 / 16), rel=1e-12)
+    assert out["trace_distance"] == pytest.approx(0.5 * p * (3 / 4 + 3 / 4), rel=1e-12)
+    # QuTiP's tracedist is Tr|ρ − σ|/2 and its fidelity Tr √(√ρ σ √ρ), not squared
+    # (common practice)
+    assert out["trace_distance"] == pytest.approx(
+        qutip.tracedist(qutip.Qobj(est), qutip.Qobj(truth.choi)), abs=1e-12)
+    # a pure estimate: F(|ψ><ψ|, ρ) = <ψ|ρ|ψ> = 1 − 3p/4 (Nielsen & Chuang 2000, eq. 9.60,
+    # squared)
+    assert out["infidelity"] == pytest.approx(3 * p / 4, abs=1e-12)
+    # QuTiP takes square roots of the rounding-level eigenvalues of the rank-one product
+    # (√ε ≈ 1e−8 each), hence the looser tolerance
+    assert out["infidelity"] == pytest.approx(
+        1 - qutip.fidelity(qutip.Qobj(est), qutip.Qobj(truth.choi)) ** 2, abs=1e-7)
+    assert out["fidelity_error"] == pytest.approx(1 - truth.target_fidelity, abs=1e-12)
+
+
+def test_a_state_repetition_with_a_bootstrap(tmp_path):
+    from gatescope.model import StateModel
+    from gatescope.reader import read_experiment
+    from gatescope.synth.state import (state_acquisition, state_from_spec,
+                                       write_state_experiment)
+
+    state = state_from_spec("psi-+visibility:0.9+depolarizing:0.05")
+    acq = state_acquisition(state, shots=2000.0)
+    run = acq.draw(0)
+    exp = read_experiment(write_state_experiment(
+        tmp_path, state, list(zip(acq.meas, run.expected, run.counts)), title="t"))
+    model = StateModel.from_experiment(exp)
+    truth = Truth.of(state.choi, exp.target_state, kind="state")
+    case = Case(state.spec, 2, 2000.0, model, acq, truth, kind="state")
+    counts = acq.draw(3).counts
+    rec = repetition(case, counts, "mle", bootstrap=4, bootstrap_seed=9)
+    assert rec["error"] is None and rec["converged"]
+    assert 0 < rec["hs_error"] < 0.01 and 0 < rec["infidelity"] < 0.05
+    assert rec["figure_names"][0] == "state_fidelity" and "chsh_max" in rec["figure_names"]
+    assert np.array(rec["bootstrap_values"]).shape == (4, len(rec["figure_names"]))
+    # the record's error is the estimate's own: refit and measure by hand
+    from gatescope.estimators import estimate
+    from gatescope.merit.state import state_fidelity
+
+    rho = estimate(model, "mle", counts=counts.astype(float)).choi
+    assert rec["hs_error"] == pytest.approx(np.linalg.norm(rho - state.choi) ** 2, rel=1e-9)
+    assert rec["fidelity_error"] == pytest.approx(
+        state_fidelity(rho, exp.target_state) - truth.target_fidelity, abs=1e-9)

@@ -213,3 +213,118 @@ def test_a_dask_cluster_gives_the_same_table_as_local_workers(tmp_path):
     local = run_bench([ONE_QUBIT], tmp_path / "local", qubits=1, workers=2, **SMALL)
     assert remote.new == local.new == 16
     assert _table(remote.csv) == _table(local.csv)
+
+
+# --------------------------------------------------------------------------
+# State benches
+# --------------------------------------------------------------------------
+
+ONE_QUBIT_STATE = "H+depolarizing:0.3"           # Bloch vector (0, 0, 0.7): full rank
+BELL = "phi++depolarizing:0.1"                   # eigenvalues 0.925, 0.025 (three times)
+
+
+def test_a_state_bench_on_one_and_two_qubits(tmp_path):
+    out = run_bench(None, tmp_path / "s", states=[ONE_QUBIT_STATE, BELL, "psi-"], workers=1,
+                    **SMALL)
+    assert out.kind == "state" and out.new == 3 * 2 * 2 * 4
+    rows = _table(out.csv)
+    assert out.columns[0] == "state" and "state_fidelity_true" in out.columns
+    assert "channel" not in out.columns and "process_fidelity_true" not in out.columns
+    assert [(r["state"], r["qubits"], r["shots"], r["method"]) for r in rows] == [
+        (c, q, s, m) for c, q in ((ONE_QUBIT_STATE, "1"), (BELL, "2"), ("psi-", "2"))
+        for s in ("300.0", "3000.0") for m in ("lin", "mle")]
+    by = {(r["state"], r["shots"], r["method"]): r for r in rows}
+    # the bound of one qubit in the six Pauli projectors: (3 − |r|²)/(2N) (derived in
+    # tests/bench/test_crb.py from the Poisson Fisher information, common practice)
+    assert float(by[ONE_QUBIT_STATE, "300.0", "lin"]["hs_crb"]) == pytest.approx(
+        (3 - 0.7 ** 2) / 600, rel=1e-10)
+    # fidelity of a depolarised pure state to it: 1 − p(1 − 1/d) (common practice)
+    assert float(by[BELL, "300.0", "mle"]["state_fidelity_true"]) == pytest.approx(
+        1 - 0.1 * 3 / 4, abs=1e-12)
+    assert float(by[ONE_QUBIT_STATE, "300.0", "mle"]["state_fidelity_true"]) == pytest.approx(
+        1 - 0.3 / 2, abs=1e-12)
+    # a pure state is on the boundary: no bound
+    assert by["psi-", "300.0", "mle"]["hs_crb"] == ""
+    for r in rows:
+        assert float(r["hs_mse"]) > 0 and float(r["trace_distance_mean"]) > 0
+        assert r["fidelity_bias"] != "" and float(r["fidelity_bias_se"]) > 0
+    data = read_bench(out.h5)
+    assert data["kind"] == "state" and "channels" not in data
+    assert [s["spec"] for s in data["states"]] == [ONE_QUBIT_STATE, BELL, "psi-"]
+    assert data["states"][1]["rho"].shape == (4, 4) and len(data["states"][1]["meas"]) == 36
+    assert data["states"][0]["full_rank"] and not data["states"][2]["full_rank"]
+    assert data["settings"]["kind"] == "state" and list(data["settings"]["prep"]) == []
+    runs = data["runs"]
+    assert runs["state"].shape == (48,) and "state" in data["bounds"]
+    # the table is the mean of the file's repetitions, and the seed that of the key
+    sel = (runs["state"] == 1) & (runs["shots"] == 3000.0) & (runs["method"] == "mle")
+    assert float(by[BELL, "3000.0", "mle"]["hs_mse"]) == pytest.approx(
+        runs["hs_error"][sel].mean(), rel=1e-15)
+    k = np.flatnonzero(sel)[2]
+    assert runs["seed"][k] == repetition_seed(7, BELL, 2, 3000.0, "mle", runs["repetition"][k])
+
+
+def test_a_state_bench_resumes_with_the_same_numbers_for_any_workers(tmp_path):
+    folder = tmp_path / "b"
+    first = run_bench(None, folder, states=[BELL], workers=1, **SMALL)
+    again = run_bench(None, folder, states=[BELL], workers=2, **SMALL)
+    assert again.new == 0 and again.reused == first.new
+    more = run_bench(None, folder, states=[BELL], workers=2, **{**SMALL, "repeats": 6})
+    assert more.new == 2 * 2 * 2
+    fresh = run_bench(None, tmp_path / "fresh", states=[BELL], workers=2,
+                      **{**SMALL, "repeats": 6})
+    assert _table(more.csv) == _table(fresh.csv)
+    assert _table(again.csv) == _table(first.csv)
+    # a folder of states takes no channels
+    with pytest.raises(InputError, match="holds states") as err:
+        run_bench([ONE_QUBIT], folder, qubits=1, workers=1, **SMALL, flags=True)
+    assert err.value.key == "--channel"
+
+
+@pytest.mark.parametrize("args, option, words", [
+    (["--state", BELL, "--channel", ONE_QUBIT], "--state", "not both"),
+    (["--state", BELL, "--prep", "pauli4"], "--prep", "no preparations"),
+    (["--state", "phi++fog:0.1"], "--state", "expected STATE"),
+    (["--state", BELL, "--state", BELL], "--state", "listed twice"),
+    ([], "--channel", "at least one"),
+])
+def test_state_bench_input_errors_exit_2_naming_the_option(tmp_path, capsys, args, option,
+                                                           words):
+    from gatescope.cli import main
+
+    folder = tmp_path / "x"
+    assert main(["bench", *args, "--repeats", "1", "-o", str(folder)]) == 2
+    err = capsys.readouterr().err
+    assert option in err and words in err and "Traceback" not in err
+    assert not folder.exists()
+
+
+def test_state_coverage_of_the_bootstrap_intervals(tmp_path):
+    out = run_bench(None, tmp_path, states=[ONE_QUBIT_STATE], shots=[2000], methods=["mle"],
+                    repeats=6, bootstrap=8, seed=2, workers=2, plot=False)
+    row = out.rows[0]
+    assert row["bootstrap"] == 8 and 0 <= row["coverage_state_fidelity"] <= 1
+    data = read_bench(out.h5)
+    names = list(data["figure_names"])
+    assert names[0] == "state_fidelity" and "process_fidelity" not in names
+    k = names.index("purity")
+    truth = dict(zip(data["states"][0]["figure_names"], data["states"][0]["figure_values"]))
+    # recomputed with the library's intervals and the range of a state's purity, [1/d, 1]
+    hits = [lo <= truth["purity"] <= hi for lo, hi in
+            (interval(v[:, k], p[k], 0.95, "normal", parameter_range("purity", 2, "state"))
+             for v, p in zip(data["runs"]["bootstrap_values"], data["runs"]["point_figures"]))]
+    assert row["coverage_purity"] == pytest.approx(np.mean(hits))
+
+
+def test_mle_reaches_the_state_bound(tmp_path):
+    """Asymptotic efficiency of maximum likelihood (common practice): for a full-rank
+    one-qubit state its mean squared error falls as 1/N and approaches Tr F⁻¹ (a state
+    well inside the set: eigenvalues 0.15 and 0.85)."""
+    out = run_bench(None, tmp_path, states=[ONE_QUBIT_STATE], shots=[1000, 10000],
+                    methods=["mle"], repeats=400, seed=13, workers=2, plot=False)
+    low, high = out.rows
+    assert high["hs_crb"] is not None and np.isfinite(high["hs_crb"])
+    # 400 repetitions: the ratio's standard error is about 0.04; the bounds are 4 of them
+    assert high["hs_mse_over_crb_se"] < 0.06
+    assert 0.84 <= high["hs_mse_over_crb"] <= 1.16
+    assert -1.15 <= high["hs_mse_slope"] <= -0.85

@@ -62,3 +62,22 @@ def test_bench_file_round_trip(tmp_path):
     assert np.isnan(back["runs"]["hs_error"][1]) and np.isnan(back["bounds"]["hs_crb"][0])
     assert back["columns"] == ["channel", "shots", "hs_crb"]
     assert list(back["table"]["channel"]) == ["CZ"] and np.isnan(back["table"]["hs_crb"][0])
+
+
+def test_state_bench_file_round_trip(tmp_path):
+    states = [{"spec": "phi+", "qubits": 2, "target": "phi+", "full_rank": False,
+               "rho": np.eye(4) / 4, "figure_names": ["state_fidelity"],
+               "figure_values": [0.25], "meas": ["HH", "HV"]}]
+    runs = {"state": np.array([0]), "hs_error": np.array([0.1])}
+    path = store.write_bench(tmp_path / "bench.h5", settings={"kind": "state"},
+                             provenance={}, channels=states,
+                             bounds=[{"state": 0, "shots": 10.0, "hs_crb": 0.5}], runs=runs,
+                             figure_names=[], table=[{"state": "phi+"}], columns=["state"],
+                             kind="state")
+    back = store.read_bench(path)
+    assert back["kind"] == "state" and "channels" not in back
+    s = back["states"][0]
+    assert s["spec"] == "phi+" and "trace" not in s and "prep" not in s and "choi" not in s
+    np.testing.assert_array_equal(s["rho"], np.eye(4) / 4)
+    assert list(s["meas"]) == ["HH", "HV"] and list(back["bounds"]["state"]) == [0]
+    assert list(back["table"]["state"]) == ["phi+"]

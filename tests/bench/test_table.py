@@ -96,3 +96,38 @@ def test_text_table_lists_every_row():
     table.add_slopes(rows)
     text = table.text_table(rows)
     assert "CZ" in text and "mle" in text and "2 ± 1" in text and "1.000" in text
+
+
+def test_state_columns_are_named_for_the_state():
+    rows = [{"channel": "phi+", "qubits": 2, "shots": 100.0, "method": "mle",
+             "process_fidelity_true": 0.9, "hs_mse": 0.1, "hs_mse_se": 0.01, "repeats": 3}]
+    named = table.named_for(rows, "state")
+    assert named[0]["state"] == "phi+" and named[0]["state_fidelity_true"] == 0.9
+    assert "channel" not in named[0] and table.named_for(rows, "process") == rows
+    cols = table.columns_of(named, "state")
+    assert cols[:4] == ["state", "qubits", "shots", "method"]
+    assert "state_fidelity_true" in cols and "process_fidelity_true" not in cols
+    assert len(cols) == len(table.COLUMNS)
+    assert table.text_table(named, "state").splitlines()[0].startswith("state ")
+    text = table.csv_text(named, cols)
+    assert next(csv.DictReader(io.StringIO(text)))["state_fidelity_true"] == "0.9"
+
+
+def test_coverage_uses_the_range_of_a_state_figure():
+    """The interval is clipped to the range of the figure: a state's purity lies in
+    [1/d, 1], a process's (Tr J²/d²) in [1/d², 1] (common practice). A bootstrap that
+    spreads below 1/2 around a point at 0.52 gives a normal interval reaching under 0.5;
+    clipped for a one-qubit state it starts at 0.5, so a truth of 0.5 is covered."""
+    values = [[0.40], [0.64], [0.45], [0.59], [0.52]]
+    records = [_record(0.1, bootstrap=5, figure_names=["purity"], point_figures=[0.52],
+                       bootstrap_values=values)]
+    state = table.coverage(records, {"purity": 0.5}, interval="normal", level=0.95, dim=2,
+                           kind="state")
+    assert state["purity"][0] == 1.0
+    from gatescope.intervals import interval, parameter_range
+
+    lo, _ = interval(np.array(values)[:, 0], 0.52, 0.95, "normal", parameter_range("purity", 2))
+    assert lo < 0.5                        # the process range does not clip there
+    lo_state, _ = interval(np.array(values)[:, 0], 0.52, 0.95, "normal",
+                           parameter_range("purity", 2, "state"))
+    assert lo_state == 0.5

@@ -32,6 +32,18 @@ def test_error_against_counts_writes_a_png(tmp_path):
     assert not list(tmp_path.glob(".*.tmp"))                 # written atomically
 
 
+def test_error_against_counts_takes_the_axis_labels_of_a_state_bench(tmp_path, monkeypatch):
+    pytest.importorskip("matplotlib")
+    import matplotlib.axes
+
+    seen = []
+    monkeypatch.setattr(matplotlib.axes.Axes, "set_ylabel",
+                        lambda self, text, *a, **k: seen.append(text))
+    plots.error_against_counts(PANELS, tmp_path / "bench.png", xlabel="counts per analyser basis",
+                               ylabel="mean ‖ρ̂ − ρ‖²")
+    assert seen and set(seen) == {"mean ‖ρ̂ − ρ‖²"}
+
+
 def test_without_matplotlib_the_plot_is_unavailable(tmp_path, monkeypatch):
     monkeypatch.setitem(sys.modules, "matplotlib", None)     # import matplotlib fails
     with pytest.raises(plots.PlotUnavailable, match="plot extra"):

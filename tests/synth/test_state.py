@@ -125,3 +125,19 @@ def test_errors_blame_the_option_that_was_typed(tmp_path, capsys, args, option, 
     err = capsys.readouterr().err
     assert f"option {option}:" in err and words in err
     assert not (tmp_path / "x").exists()
+
+
+def test_state_acquisition_draws_the_counts_of_a_simulation():
+    from gatescope.synth.state import simulate_state_counts, state_acquisition, state_from_spec
+
+    state = state_from_spec("psi-+visibility:0.9", 2)
+    acq = state_acquisition(state, shots=500.0, meas_set=("H", "V", "D", "A"))
+    assert acq.prep == () and len(acq.meas) == 16 and acq.meas[1] == "HV"
+    run = acq.draw(4)
+    rows = simulate_state_counts(state, shots=500.0, meas_set=("H", "V", "D", "A"), seed=4)
+    assert [(m, c) for m, _, c in rows] == list(zip(acq.meas, run.counts.tolist()))
+    # expected counts shots · <ab|ρ|ab> for the H/V products (common practice)
+    ket = {"H": np.array([1, 0]), "V": np.array([0, 1])}
+    for k, label in enumerate(acq.meas[:2]):
+        v = np.kron(ket[label[0]], ket[label[1]])
+        assert run.expected[k] == pytest.approx(500.0 * (v @ state.choi @ v).real, rel=1e-12)

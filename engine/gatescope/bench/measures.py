@@ -24,6 +24,15 @@ one keeps its own trace, Tr J = d × mean success probability):
   process fidelity to the target (`gatescope.merit.process_fidelity`);
   its mean is ``fidelity_bias``.
 
+For a state (``kind = "state"``: an estimate ρ̂ and the true density
+matrix ρ, both of trace 1) the same measures read ``hs_error`` = ‖ρ̂ − ρ‖²_F,
+``infidelity`` = 1 − F(ρ̂, ρ) (the same Uhlmann fidelity, squared
+convention), ``trace_distance`` = ‖ρ̂ − ρ‖₁/2, and ``fidelity_error`` =
+F(ρ̂, σ) − F(ρ, σ), the error of the estimated ``state_fidelity`` to the
+target state σ (`gatescope.merit.state.state_fidelity`). One formula serves
+both: the trace norm is divided by 2·d_in, d_in = d for a process and 1 for
+a state (a state is a process from a one-dimensional input).
+
 `repetition` is the whole work of one repetition on one simulated
 experiment: estimate, errors, and with a bootstrap the figures' intervals.
 """
@@ -39,6 +48,7 @@ from ..bootstrap import run_bootstrap
 from ..errors import GatescopeWarning, NumericalError
 from ..estimators import estimate
 from ..merit import compute_figures, process_fidelity
+from ..merit.state import state_fidelity
 from ..model import MeasurementModel
 from ..synth.simulate import Acquisition
 
@@ -63,14 +73,22 @@ def uhlmann_fidelity(estimate_state: np.ndarray, sqrt_truth: np.ndarray) -> floa
     return float(np.sum(s) ** 2)
 
 
+def target_fidelity(choi: np.ndarray, target, kind: str = "process") -> float:
+    """F_pro(J) to a target unitary, or, with ``kind="state"``, the state fidelity of ρ
+    to a target state (a ket or a density matrix)."""
+    return state_fidelity(choi, target) if kind == "state" else process_fidelity(choi, target)
+
+
 @dataclass(frozen=True)
 class Truth:
-    """The true process of a bench case and what its errors are measured against.
+    """The true process (or state) of a bench case and what its errors are measured against.
 
     ``sqrt_state`` is √(J/Tr J); ``process_fidelity`` F_pro(J) to the target
-    (None without a target); ``figures`` the true channel's figures of merit
-    (`gatescope.merit.compute_figures`), against which the bootstrap intervals
-    are checked.
+    (None without a target) — for a state (``kind = "state"``, ``choi`` the
+    density matrix ρ, ``target`` the target state) it holds the state fidelity
+    F(ρ, σ) instead, also available as `target_fidelity`; ``figures`` the true
+    channel's (or state's) figures of merit (`gatescope.merit.compute_figures`),
+    against which the bootstrap intervals are checked.
     """
 
     choi: np.ndarray
@@ -78,20 +96,32 @@ class Truth:
     sqrt_state: np.ndarray
     process_fidelity: float | None
     figures: dict
+    kind: str = "process"
+
+    @property
+    def target_fidelity(self) -> float | None:
+        """The true figure whose estimate's error is ``fidelity_error``."""
+        return self.process_fidelity
+
+    @property
+    def input_dim(self) -> int:
+        """d_in: d for a process on d dimensions, 1 for a state."""
+        return 1 if self.kind == "state" else int(round(np.sqrt(self.choi.shape[0])))
 
     @classmethod
-    def of(cls, choi: np.ndarray, target: np.ndarray | None) -> "Truth":
+    def of(cls, choi: np.ndarray, target: np.ndarray | None, kind: str = "process") -> "Truth":
         choi = np.asarray(choi, dtype=complex)
         state = choi / np.trace(choi).real
         return cls(choi, target, positive_sqrt(state),
-                   None if target is None else process_fidelity(choi, target),
-                   compute_figures(choi, target))
+                   None if target is None else target_fidelity(choi, target, kind),
+                   compute_figures(choi, target, kind=kind), kind)
 
 
 def errors(choi: np.ndarray, truth: Truth) -> dict:
     """``hs_error``, ``infidelity``, ``trace_distance`` and ``fidelity_error`` (NaN
-    without a target) of the estimate ``choi`` (module docstring)."""
-    d = int(round(np.sqrt(choi.shape[0])))
+    without a target) of the estimate ``choi`` (a density matrix for a state truth;
+    module docstring)."""
+    d = truth.input_dim
     diff = choi - truth.choi
     herm = 0.5 * (diff + diff.conj().T)
     state = choi / np.trace(choi).real
@@ -100,7 +130,8 @@ def errors(choi: np.ndarray, truth: Truth) -> dict:
         "infidelity": 1.0 - uhlmann_fidelity(state, truth.sqrt_state),
         "trace_distance": float(np.sum(np.abs(np.linalg.eigvalsh(herm))) / (2 * d)),
         "fidelity_error": (float("nan") if truth.target is None
-                           else process_fidelity(choi, truth.target) - truth.process_fidelity),
+                           else target_fidelity(choi, truth.target, truth.kind)
+                           - truth.process_fidelity),
     }
 
 
@@ -110,8 +141,9 @@ class Case:
     it (``model``, as a fit sees the experiment file) and how its counts arise
     (``acquisition``, `gatescope.synth.simulate.Acquisition`).
 
-    ``kind`` is the kind of experiment (``"process"``); `repetition` is where
-    another kind would be measured differently.
+    ``kind`` is the kind of experiment: ``"process"``, or ``"state"`` (``channel``
+    the state SPEC, ``model`` a `gatescope.model.StateModel`, ``truth`` of kind
+    ``"state"``); `repetition` measures both.
     """
 
     channel: str
@@ -136,8 +168,9 @@ def repetition(case: Case, counts: np.ndarray, method: str, *, bootstrap: int = 
     record with ``error`` set and no numbers (it counts in ``errors`` of the
     table); anything else is a bug and propagates.
     """
-    if case.kind != "process":
-        raise ValueError(f"no bench measures for experiments of kind {case.kind!r}")
+    if case.kind not in ("process", "state") or case.truth.kind != case.kind:
+        raise ValueError(f"no bench measures for experiments of kind {case.kind!r} "
+                         f"(truth of kind {case.truth.kind!r})")
     try:
         fit = estimate(case.model, method, counts=np.asarray(counts, dtype=float))
     except (NumericalError, np.linalg.LinAlgError) as exc:
@@ -145,7 +178,7 @@ def repetition(case: Case, counts: np.ndarray, method: str, *, bootstrap: int = 
     record = {"error": None, **errors(fit.choi, case.truth), "seconds": float(fit.seconds),
               "iterations": int(fit.iterations), "converged": bool(fit.converged)}
     if bootstrap:
-        point = compute_figures(fit.choi, case.truth.target)
+        point = compute_figures(fit.choi, case.truth.target, kind=case.kind)
         with warnings.catch_warnings():
             # the failures are recorded; warnings about them would repeat for every repetition
             warnings.simplefilter("ignore", GatescopeWarning)
@@ -158,4 +191,5 @@ def repetition(case: Case, counts: np.ndarray, method: str, *, bootstrap: int = 
     return record
 
 
-__all__ = ["Truth", "Case", "errors", "repetition", "uhlmann_fidelity", "positive_sqrt"]
+__all__ = ["Truth", "Case", "errors", "repetition", "uhlmann_fidelity", "positive_sqrt",
+           "target_fidelity"]

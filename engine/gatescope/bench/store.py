@@ -118,39 +118,58 @@ def _attr(value):
     return value
 
 
+#: What a bench of each kind stores per case: the group, its attributes and datasets.
+CASE_LAYOUT = {
+    "process": ("channels", ("spec", "qubits", "target", "trace", "full_rank"),
+                ("choi", "figure_names", "figure_values", "prep", "meas")),
+    "state": ("states", ("spec", "qubits", "target", "full_rank"),
+              ("rho", "figure_names", "figure_values", "meas")),
+}
+
+
 def write_bench(path, *, settings: dict, provenance: dict, channels: list[dict],
                 bounds: list[dict], runs: dict, figure_names: list[str], table: list[dict],
-                columns: list[str]) -> Path:
+                columns: list[str], kind: str = "process") -> Path:
     """Write ``bench.h5`` atomically (layout in docs/file-formats.md).
 
     ``channels``: one dict per channel (``spec``, ``qubits``, ``target``,
     ``trace``, ``full_rank``, ``choi``, ``figure_names``, ``figure_values``,
-    ``prep``, ``meas``); ``bounds``: dicts ``channel``, ``shots``, ``hs_crb``;
-    ``runs``: column name → per-repetition values (equal lengths);
-    ``table``: the rows of bench.csv with ``columns``.
+    ``prep``, ``meas``); for ``kind="state"`` one dict per state (``spec``,
+    ``qubits``, ``target``, ``full_rank``, ``rho``, ``figure_names``,
+    ``figure_values``, ``meas``), written to ``/states``. ``bounds``: dicts
+    ``channel`` (``state``), ``shots``, ``hs_crb``; ``runs``: column name →
+    per-repetition values (equal lengths); ``table``: the rows of bench.csv
+    with ``columns``.
     """
     path = Path(path)
+    group_name, attr_keys, data_keys = CASE_LAYOUT[kind]
+    index = group_name[:-1]
     with atomic_path(path) as tmp, h5py.File(tmp, "w") as f:
         f.attrs["format"] = FORMAT
         f.attrs["format_version"] = FORMAT_VERSION
+        f.attrs["kind"] = kind
         s = f.create_group("settings")
         for key, value in settings.items():
             s.attrs[key] = _attr(value)
         p = f.create_group("provenance")
         for key, value in provenance.items():
             p.attrs[key] = _attr(value)
-        ch = f.create_group("channels")
+        ch = f.create_group(group_name)
         for k, info in enumerate(channels):
             g = ch.create_group(str(k))
-            for key in ("spec", "qubits", "target", "trace", "full_rank"):
+            for key in attr_keys:
                 g.attrs[key] = _attr(info[key])
-            _put(g, "choi", np.asarray(info["choi"], dtype=np.complex128))
-            _put(g, "figure_names", np.array(info["figure_names"], dtype=object))
-            _put(g, "figure_values", np.asarray(info["figure_values"], dtype=float))
-            _put(g, "prep", np.array(info["prep"], dtype=object))
-            _put(g, "meas", np.array(info["meas"], dtype=object))
+            for key in data_keys:
+                value = info[key]
+                if key in ("choi", "rho"):
+                    value = np.asarray(value, dtype=np.complex128)
+                elif key == "figure_values":
+                    value = np.asarray(value, dtype=float)
+                else:
+                    value = np.array(value, dtype=object)
+                _put(g, key, value)
         b = f.create_group("bounds")
-        _put(b, "channel", np.array([x["channel"] for x in bounds], dtype=np.int64))
+        _put(b, index, np.array([x[index] for x in bounds], dtype=np.int64))
         _put(b, "shots", np.array([x["shots"] for x in bounds], dtype=float))
         _put(b, "hs_crb", np.array([np.nan if x["hs_crb"] is None else x["hs_crb"]
                                     for x in bounds], dtype=float))
@@ -170,9 +189,10 @@ def write_bench(path, *, settings: dict, provenance: dict, channels: list[dict],
 
 
 def read_bench(path) -> dict:
-    """The contents of a ``bench.h5``: ``settings``, ``provenance`` (dicts of
-    attributes), ``channels`` (list of dicts), ``bounds`` and ``runs`` (name →
-    array), ``table`` (column → array, in ``columns`` order)."""
+    """The contents of a ``bench.h5``: ``kind`` (``process`` or ``state``), ``settings``,
+    ``provenance`` (dicts of attributes), ``channels`` (list of dicts; ``states`` for a
+    state bench), ``bounds`` and ``runs`` (name → array), ``table`` (column → array, in
+    ``columns`` order)."""
     def attrs(obj):
         out = {}
         for key, value in obj.attrs.items():
@@ -192,14 +212,17 @@ def read_bench(path) -> dict:
     with h5py.File(path, "r") as f:
         if f.attrs.get("format") != FORMAT:
             raise ValueError(f"{path} is not a gatescope bench file")
+        kind = f.attrs.get("kind", "process")
+        kind = kind.decode() if isinstance(kind, bytes) else str(kind)
+        group_name = CASE_LAYOUT[kind][0]
         channels = []
-        for k in range(len(f["channels"])):
-            g = f["channels"][str(k)]
+        for k in range(len(f[group_name])):
+            g = f[group_name][str(k)]
             info = attrs(g)
             info.update({name: data(g[name]) for name in g})
             channels.append(info)
-        return {"settings": attrs(f["settings"]), "provenance": attrs(f["provenance"]),
-                "channels": channels,
+        return {"kind": kind, "settings": attrs(f["settings"]),
+                "provenance": attrs(f["provenance"]), group_name: channels,
                 "bounds": {name: data(ds) for name, ds in f["bounds"].items()},
                 "runs": {name: data(ds) for name, ds in f["runs"].items()},
                 "figure_names": attrs(f["runs"]).get("figure_names", []),

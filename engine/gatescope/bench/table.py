@@ -29,6 +29,13 @@ Columns (README, "How good is an estimator"):
   constraints (in every repetition a bootstrap spread and an error at
   rounding level, such as the trace of a trace-preserving estimate) are
   left out.
+
+A state bench (README, "How good is an estimator") has the same columns
+with the state's meaning — ρ̂ and ρ for Ĵ and J, ‖ρ̂ − ρ‖₁/2 for the trace
+distance, the bias of the estimated ``state_fidelity`` to the target state —
+and two columns named for it: ``state`` (the state SPEC) in place of
+``channel`` and ``state_fidelity_true`` in place of ``process_fidelity_true``
+(`STATE_COLUMN_NAMES`, `named_for`).
 """
 
 from __future__ import annotations
@@ -58,6 +65,25 @@ TIMING_COLUMNS = ("seconds_per_fit",)
 FIXED_FIGURE_TOL = 1e-9
 #: Coverage columns shown on the terminal (bench.csv has every figure's).
 SHOWN_COVERAGE = ("process_fidelity", "purity")
+#: The same for a state bench.
+SHOWN_STATE_COVERAGE = ("state_fidelity", "purity")
+#: Columns named after the kind of case in a state bench.
+STATE_COLUMN_NAMES = {"channel": "state", "process_fidelity_true": "state_fidelity_true"}
+
+
+def column_name(name: str, kind: str = "process") -> str:
+    """The name of column ``name`` (a name of `COLUMNS`) in a bench of this kind."""
+    return STATE_COLUMN_NAMES.get(name, name) if kind == "state" else name
+
+
+def case_column(kind: str = "process") -> str:
+    """``channel``, or ``state`` for a state bench: the column naming the case."""
+    return column_name("channel", kind)
+
+
+def named_for(rows: list[dict], kind: str = "process") -> list[dict]:
+    """The rows with their keys named as the columns of a bench of this kind."""
+    return [{column_name(k, kind): v for k, v in r.items()} for r in rows]
 
 
 def _mean_se(values: np.ndarray) -> tuple[float | None, float | None]:
@@ -69,12 +95,13 @@ def _mean_se(values: np.ndarray) -> tuple[float | None, float | None]:
 
 
 def coverage(records: list[dict], truth_figures: dict, *, interval: str, level: float,
-             dim: int) -> dict:
+             dim: int, kind: str = "process") -> dict:
     """name → (coverage, standard error, repetitions) for every bootstrapped figure.
 
     The interval of repetition r is `gatescope.intervals.interval` of its
     bootstrap values around its point figure, intersected with the figure's
-    range (as `fit` reports it); a figure whose bootstrap spread and whose
+    range (as `fit` reports it; ``kind`` and ``dim`` choose the range of a process or a
+    state figure, `gatescope.intervals.parameter_range`); a figure whose bootstrap spread and whose
     error |point − truth| stay below `FIXED_FIGURE_TOL` in every repetition
     is fixed by the constraints and left out.
     """
@@ -94,7 +121,7 @@ def coverage(records: list[dict], truth_figures: dict, *, interval: str, level: 
             spread = float(np.std(finite, ddof=1)) if finite.size > 1 else 0.0
             wobble = max(wobble, spread, abs(r["point_figures"][k] - truth))
             lo, hi = make_interval(values, r["point_figures"][k], level, interval,
-                                   parameter_range(name, dim))
+                                   parameter_range(name, dim, kind))
             hits.append(lo <= truth <= hi)
         if wobble <= FIXED_FIGURE_TOL:
             continue
@@ -104,8 +131,10 @@ def coverage(records: list[dict], truth_figures: dict, *, interval: str, level: 
 
 
 def summarise(records: list[dict], *, hs_crb: float | None, true_fidelity: float | None,
-              truth_figures: dict, dim: int, interval: str, level: float) -> dict:
-    """The table's numbers for the records of one channel × shots × method."""
+              truth_figures: dict, dim: int, interval: str, level: float,
+              kind: str = "process") -> dict:
+    """The table's numbers for the records of one channel × shots × method (keys named as
+    for a process bench; ``true_fidelity`` is the state fidelity for a state bench)."""
     ok = [r for r in records if r.get("error") is None]
     row: dict = {"repeats": len(ok), "errors": len(records) - len(ok),
                  "not_converged": sum(1 for r in ok if not r["converged"])}
@@ -132,7 +161,7 @@ def summarise(records: list[dict], *, hs_crb: float | None, true_fidelity: float
     if any(boots):
         row.update({"bootstrap": max(boots), "interval": interval, "ci_level": level})
         for name, (c, se, _) in coverage(ok, truth_figures, interval=interval, level=level,
-                                          dim=dim).items():
+                                          dim=dim, kind=kind).items():
             row[f"coverage_{name}"] = c
             row[f"coverage_{name}_se"] = se
     return row
@@ -160,9 +189,10 @@ def add_slopes(rows: list[dict]) -> None:
             r["hs_mse_slope"] = slope
 
 
-def columns_of(rows: list[dict]) -> list[str]:
-    """`COLUMNS`, then the bootstrap columns and every coverage column present."""
-    cols = list(COLUMNS)
+def columns_of(rows: list[dict], kind: str = "process") -> list[str]:
+    """`COLUMNS` (named for the kind, `column_name`), then the bootstrap columns and every
+    coverage column present."""
+    cols = [column_name(c, kind) for c in COLUMNS]
     if any("bootstrap" in r for r in rows):
         cols += BOOTSTRAP_COLUMNS
         extra = []
@@ -203,17 +233,19 @@ def _fmt(value, spec: str = ".3g") -> str:
         else format(value, spec)
 
 
-def text_table(rows: list[dict]) -> str:
+def text_table(rows: list[dict], kind: str = "process") -> str:
     """The table for a terminal: the main columns, rounded."""
-    head = ["channel", "shots", "method", "reps", "hs_mse ± se", "hs_crb", "mse/crb",
+    word = case_column(kind)
+    head = [word, "shots", "method", "reps", "hs_mse ± se", "hs_crb", "mse/crb",
             "slope", "infid. median", "F bias ± se", "s/fit"]
-    cov = [f"coverage_{n}" for n in SHOWN_COVERAGE if f"coverage_{n}" in columns_of(rows)]
+    shown = SHOWN_STATE_COVERAGE if kind == "state" else SHOWN_COVERAGE
+    cov = [f"coverage_{n}" for n in shown if f"coverage_{n}" in columns_of(rows, kind)]
     head += [c.replace("_", " ") for c in cov]
     lines = [head]
     for r in rows:
         bias = "–" if r.get("fidelity_bias") is None else \
             f"{r['fidelity_bias']:+.2e} ± {_fmt(r.get('fidelity_bias_se'), '.1e')}"
-        cells = [r["channel"], f"{r['shots']:g}", r["method"], str(r["repeats"]),
+        cells = [r[word], f"{r['shots']:g}", r["method"], str(r["repeats"]),
                  f"{_fmt(r['hs_mse'])} ± {_fmt(r['hs_mse_se'], '.2g')}", _fmt(r.get("hs_crb")),
                  _fmt(r.get("hs_mse_over_crb"), ".3f"), _fmt(r.get("hs_mse_slope"), ".2f"),
                  _fmt(r.get("infidelity_median")), bias, _fmt(r.get("seconds_per_fit"), ".2g")]
@@ -224,6 +256,6 @@ def text_table(rows: list[dict]) -> str:
                      for line in lines)
 
 
-__all__ = ["COLUMNS", "KEY_COLUMNS", "BOOTSTRAP_COLUMNS", "TIMING_COLUMNS", "summarise",
-           "coverage", "loglog_slope", "add_slopes", "columns_of", "csv_text", "write_csv",
-           "text_table"]
+__all__ = ["COLUMNS", "KEY_COLUMNS", "BOOTSTRAP_COLUMNS", "TIMING_COLUMNS", "STATE_COLUMN_NAMES",
+           "summarise", "coverage", "loglog_slope", "add_slopes", "columns_of", "column_name",
+           "case_column", "named_for", "csv_text", "write_csv", "text_table"]

@@ -608,8 +608,11 @@ def _save(fig, path) -> Path:
     return path
 
 
-def error_against_counts(panels: list[dict], path) -> Path:
-    """Draw the mean squared Hilbert–Schmidt error against the counts, one panel per channel.
+def error_against_counts(panels: list[dict], path, *,
+                         xlabel: str = "counts per preparation and basis",
+                         ylabel: str = "mean ‖Ĵ − J‖²") -> Path:
+    """Draw the mean squared Hilbert–Schmidt error against the counts, one panel per channel
+    (or per state: a state bench passes its own ``xlabel`` and ``ylabel``).
 
     Parameters
     ----------
@@ -647,8 +650,8 @@ def error_against_counts(panels: list[dict], path) -> Path:
                 ax.set_xscale("log")
                 ax.set_yscale("log")
                 ax.set_title(panel["title"], fontsize=9)
-                ax.set_xlabel("counts per preparation and basis")
-                ax.set_ylabel("mean ‖Ĵ − J‖²")
+                ax.set_xlabel(xlabel)
+                ax.set_ylabel(ylabel)
                 ax.grid(True, which="both", color=GRID, lw=0.5)
                 if ax.get_legend_handles_labels()[0]:
                     ax.legend(frameon=False)

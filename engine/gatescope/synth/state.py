@@ -45,8 +45,8 @@ from ..model.state import full_grid
 from ..reader import MAX_QUBITS
 from .noise import (NOISE_KINDS, amplitude_damping_kraus, check_noise_parameter, dephasing_kraus,
                     parse_noise, parse_random, zz_diagonal)
-from .simulate import (Channel, _product_labels, _toml_string, checked_set, checked_shots,
-                       save_truth, simulation_seed)
+from .simulate import (Acquisition, Channel, _product_labels, _toml_string, checked_set,
+                       checked_shots, save_truth, simulation_seed)
 
 #: Noise kinds of a state SPEC: the channel kinds, and the visibility of a state.
 STATE_NOISE_KINDS = NOISE_KINDS + ("visibility",)
@@ -176,20 +176,37 @@ def state_from_spec(spec: str, n_qubits: int = 2) -> Channel:
     return Channel(0.5 * (rho + rho.conj().T), n, name, spec)
 
 
-def simulate_state_counts(state: Channel, *, shots: float, meas_set=LABEL_SETS["pauli6"],
-                          seed: int | None = None, right_circular: str = "H-iV"):
-    """Rows (meas label, expected, counts) of a simulated state experiment: every product
-    of ``meas_set`` (qubit 1 first), probabilities from `gatescope.model.StateModel`."""
+def state_acquisition(state: Channel, *, shots: float, meas_set=LABEL_SETS["pauli6"],
+                      right_circular: str = "H-iV") -> Acquisition:
+    """The deterministic part of a simulated state run, as an `Acquisition`.
+
+    Rows are every product of ``meas_set`` (qubit 1 first; labels in
+    ``meas``), probabilities Tr(E ρ) from `gatescope.model.StateModel`
+    (clipped at 0), the rate ``shots`` and 1 s rows without background or
+    drift, so that ``draw(seed)`` has expected counts ``shots · Tr(E ρ)`` and
+    Poisson counts from ``numpy.random.default_rng(seed)``. A state experiment
+    has no preparations: ``prep`` is empty (use ``meas`` with the drawn
+    ``expected`` and ``counts``, as `simulate_state_counts` does).
+    """
     n = state.n_qubits
     vectors = builtin_states(right_circular)
     single = np.array([density(vectors[s]) for s in meas_set])
     parts = full_grid(n, len(meas_set))
     rows = np.arange(len(parts))
     p = StateModel(single, parts, rows, np.zeros(rows.size)).forward(state.choi)
-    expected = shots * np.maximum(p, 0.0)
-    counts = np.random.default_rng(seed).poisson(expected)
-    labels = _product_labels(meas_set, n)
-    return [(m, e, int(c)) for m, e, c in zip(labels, expected, counts)]
+    return Acquisition(prep=(), meas=tuple(_product_labels(meas_set, n)),
+                       probabilities=np.maximum(p, 0.0), rate=float(shots),
+                       seconds=np.ones(rows.size), background=None, detectors=n, lab=state.lab)
+
+
+def simulate_state_counts(state: Channel, *, shots: float, meas_set=LABEL_SETS["pauli6"],
+                          seed: int | None = None, right_circular: str = "H-iV"):
+    """Rows (meas label, expected, counts) of a simulated state experiment: every product
+    of ``meas_set`` (qubit 1 first), probabilities from `gatescope.model.StateModel`
+    (`state_acquisition`, then one draw with ``seed``)."""
+    acq = state_acquisition(state, shots=shots, meas_set=meas_set, right_circular=right_circular)
+    run = acq.draw(seed)
+    return [(m, e, int(c)) for m, e, c in zip(acq.meas, run.expected, run.counts)]
 
 
 def write_state_experiment(outdir: Path, state: Channel, rows, *, title: str) -> Path:
@@ -237,4 +254,5 @@ def run_state_simulation(spec: str, outdir: Path, *, shots: float = 1000.0,
 
 __all__ = ["STATE_NOISE_KINDS", "STATE_DEMO_RECIPE", "parse_state_spec", "parse_state_noise",
            "state_qubits", "random_state", "apply_state_noise", "state_from_spec",
-           "simulate_state_counts", "write_state_experiment", "run_state_simulation"]
+           "state_acquisition", "simulate_state_counts", "write_state_experiment",
+           "run_state_simulation"]
