@@ -337,3 +337,29 @@ def test_named_figure_rejects_unknown_names():
         named_figure("unitarity", named_gate("H"), 2)
     with pytest.raises(ValueError):
         named_figure("process_fidelity", None, 2)
+
+
+@pytest.mark.slow
+def test_coverage_far_from_the_boundary(tmp_path):
+    # Wilks, Ann. Math. Stat. 9, 60 (1938): for a truth in the interior the deviance at the
+    # truth tends to χ²₁, so the 95% two-sided interval covers 95% of the time and the 95%
+    # lower bound holds 95% of the time. 200 one-qubit experiments at F = 0.95 with 1000
+    # counts per basis; the binomial standard error of a coverage of 0.95 over 200 is 0.015,
+    # and the check allows three of them.
+    from gatescope.estimators import estimate
+    from support import simulated_experiment
+
+    n, hits, held = 200, 0, 0
+    for seed in range(n):
+        exp, truth = simulated_experiment(tmp_path / f"e{seed}", "H+depolarizing:0.0667",
+                                          shots=1000, seed=seed, n_qubits=1)
+        model = build_model(exp)
+        f0 = process_fidelity_figure(exp.target).value(truth)
+        point = estimate(model, "mle")
+        prof = profile_figures(model, exp.target, interval=True, lower_bound=True,
+                               names=("process_fidelity",), start=point.choi)["process_fidelity"]
+        hits += prof.interval.low <= f0 <= prof.interval.high
+        held += prof.lower.low <= f0
+    se = np.sqrt(0.95 * 0.05 / n)
+    assert abs(hits / n - 0.95) <= 3 * se, hits / n
+    assert abs(held / n - 0.95) <= 3 * se, held / n

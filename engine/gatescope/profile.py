@@ -266,9 +266,11 @@ class ProfileInterval:
     ``cutoff`` is the deviance at the ends; ``touches_boundary`` is True when
     an end is the edge of the figure's range (the data are compatible with,
     e.g., a perfect gate at this level); ``exact`` is False when an end was
-    found by a non-concave search (purity above its estimate); ``fits`` and
-    ``seconds`` count the tilted fits this interval needed beyond those
-    already made for the same profile.
+    found by a non-concave search (purity above its estimate); ``converged``
+    is False when a fit of a concave search stopped before it converged (a
+    non-concave search is local anyway, its fits may stop where the line
+    search cannot climb); ``fits`` and ``seconds`` count the tilted fits this
+    interval needed beyond those already made for the same profile.
     """
 
     name: str
@@ -507,7 +509,7 @@ class Profile:
             value, edge, ok = self.end(side, cutoff)
             ends[side] = value
             touches |= edge
-            converged &= ok
+            converged &= ok or not self.figure.concave_side(side)   # a local search anyway
             exact &= self.figure.concave_side(side)
         lo = min(max(ends[-1], self.figure.low), self.estimate)
         hi = max(min(ends[+1], self.figure.high), self.estimate)
