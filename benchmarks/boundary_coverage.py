@@ -20,7 +20,10 @@ a rotation about X by θ, F = cos²(θ/2)), ``damping`` (amplitude damping on
 every qubit). Repetition r of a cell draws its counts with seed
 ``seed + r`` and its bootstrap with seed ``seed + r + 1_000_000``. Each
 repetition is one CSV line (``--out``); a rerun skips the repetitions already
-there; ``--table-only`` prints the table of what the file holds.
+there; ``--table-only`` prints the table of what the file holds. For another
+gate or count level set the infidelity of ratio 1 with ``--sigma-ref`` (and
+write to its own ``--out``); ``--max-minutes`` starts no repetition after that
+much wall time.
 
     nice -n 10 python benchmarks/boundary_coverage.py --repetitions 200 --workers 2
 """
@@ -95,9 +98,11 @@ def noisy_channel(gate: str, kind: str, infidelity: float) -> Channel:
     return Channel(choi, n, gate, f"{gate}+{kind}:{infidelity:g}")
 
 
-def one_repetition(opts: dict, job) -> dict:
+def one_repetition(opts: dict, job) -> dict | None:
     gate, kind, ratio, shots, rep = job
-    channel = noisy_channel(gate, kind, ratio * SIGMA_REF)
+    if opts["stop_at"] is not None and time.time() > opts["stop_at"]:
+        return None
+    channel = noisy_channel(gate, kind, ratio * opts["sigma_ref"])
     level = opts["level"]
     z1 = float(ndtri(level))
     with tempfile.TemporaryDirectory() as tmp:
@@ -196,6 +201,11 @@ def main(argv=None) -> int:
     p.add_argument("--gate", default="H")
     p.add_argument("--kinds", nargs="+", default=list(KINDS), choices=KINDS)
     p.add_argument("--ratios", type=float, nargs="+", default=[0.3, 1.0, 3.0, 10.0])
+    p.add_argument("--sigma-ref", type=float, default=SIGMA_REF,
+                   help=f"infidelity of ratio 1 (default {SIGMA_REF:g}, one qubit at 1000 counts "
+                        "per basis); use one --out per value")
+    p.add_argument("--max-minutes", type=float, default=None,
+                   help="start no new repetition after this much wall time")
     p.add_argument("--level", type=float, default=0.95)
     p.add_argument("--workers", type=int, default=1, help="repetitions run in parallel")
     p.add_argument("--seed", type=int, default=2026)
@@ -210,7 +220,10 @@ def main(argv=None) -> int:
                 for kind in args.kinds for ratio in args.ratios
                 if ((args.gate, kind, ratio, args.shots, args.samples, args.level), rep)
                 not in done]
-        opts = {"seed": args.seed, "samples": args.samples, "level": args.level}
+        opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
+                "sigma_ref": args.sigma_ref}
+        opts["stop_at"] = (None if args.max_minutes is None
+                           else time.time() + 60.0 * args.max_minutes)
         new_file = not args.out.exists() or args.out.stat().st_size == 0
         args.out.parent.mkdir(parents=True, exist_ok=True)
         with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
@@ -218,6 +231,8 @@ def main(argv=None) -> int:
             if new_file:
                 writer.writeheader()
             for _, row in runner.map(one_repetition, todo, chunk=1):
+                if row is None:
+                    continue
                 writer.writerow(row)
                 fh.flush()
                 print(f"{row['gate']} {row['kind']} {row['ratio']:g} rep {row['rep']}: F̂ "
