@@ -306,3 +306,30 @@ def test_profile_options_are_checked_before_the_fit(make_experiment, monkeypatch
     with pytest.raises(gs.InputError, match="interval"):
         gs.fit(exp, "mle", interval="likelihood")
     assert not called
+
+
+def test_the_default_interval():
+    from types import SimpleNamespace
+
+    from gatescope.pipeline import PROFILE_DEFAULT_MAX_QUBITS, default_interval
+
+    # profile likelihood by default for a maximum-likelihood bootstrap up to two qubits
+    # (benchmarks/README.md, "Coverage near the boundary"), the bootstrap's normal
+    # interval otherwise
+    assert PROFILE_DEFAULT_MAX_QUBITS == 2
+    for n in (1, 2):
+        exp = SimpleNamespace(n_qubits=n)
+        assert default_interval(exp, "mle", 100) == "profile"
+        assert default_interval(exp, "mle-pg", 100) == "profile"
+        assert default_interval(exp, "pls", 100) == "normal"
+        assert default_interval(exp, "mle", 0) == "normal"
+    assert default_interval(SimpleNamespace(n_qubits=3), "mle", 100) == "normal"
+
+
+def test_an_explicit_bootstrap_interval_keeps_every_figure_on_it(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.02", n_qubits=1, shots=1000, seed=4)
+    res = gs.fit(exp, bootstrap=10, seed=3, workers=1, interval="normal")
+    assert {res.figures[n].interval_method for n in res.bootstrap.names} == {"normal"}
+    assert all(f.touches_boundary is None for f in res.figures.values())
+    default = gs.fit(exp, bootstrap=10, seed=3, workers=1)
+    assert default.figures["purity"].interval_method == "profile"

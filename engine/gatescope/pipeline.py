@@ -156,8 +156,10 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
 
 
 #: Up to this many qubits a bootstrap of a maximum-likelihood fit gives the figures
-#: `gatescope.profile` covers the profile-likelihood interval by default.
-PROFILE_DEFAULT_MAX_QUBITS = 0
+#: `gatescope.profile` covers the profile-likelihood interval by default: its coverage
+#: near a perfect gate was closer to the level than the bootstrap's (benchmarks/README.md,
+#: "Coverage near the boundary"), where it was measured: one and two qubits.
+PROFILE_DEFAULT_MAX_QUBITS = 2
 
 
 def default_interval(experiment: Experiment, method: str, bootstrap: int) -> str:
