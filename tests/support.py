@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import itertools
+
 import numpy as np
 
 from gatescope.reader import read_experiment
@@ -214,3 +216,86 @@ def light_leak_bench(folder, *, with_background: bool, seed: int = 7):
         'title = "CZ with a light leak"\nqubits = 2\ntarget = "CZ"\ncounts = "counts.csv"\n',
         encoding="utf-8")
     return read_experiment(folder / "experiment.toml"), np.array(flags)
+
+
+#: The analyser projector whose counts the report tests' miscalibrated experiment scales up,
+#: and by how much (a 30% excess: tens of standard deviations at its counts).
+MISCALIBRATED_MEAS = "DA"
+MISCALIBRATION = 1.3
+
+
+def cnot_chi_textbook() -> np.ndarray:
+    """χ of CNOT (qubit 1 controls) from CNOT = (II + IX + ZI − ZX)/2 (common practice:
+    |0><0| = (I + Z)/2, |1><1| = (I − Z)/2): Φ(ρ) = UρU† = Σ c_m c_n* P_m ρ P_n, so
+    χ = c c† with c_II = c_IX = c_ZI = 1/2, c_ZX = −1/2."""
+    labels = ["".join(p) for p in itertools.product("IXYZ", repeat=2)]
+    c = np.zeros(16)
+    for label, value in (("II", 0.5), ("IX", 0.5), ("ZI", 0.5), ("ZX", -0.5)):
+        c[labels.index(label)] = value
+    return np.outer(c, c)
+
+
+def check_self_contained_page(text: str) -> dict:
+    """Parse an HTML report with the standard library's html.parser and check what every
+    report promises: well nested, no script, nothing loaded from the network, every image
+    an inline PNG that decodes (PIL, which matplotlib depends on). Returns the page's
+    ``text`` (its visible words, joined by spaces), ``images`` (each (width, height) in
+    pixels), ``ids`` and ``links`` (every href)."""
+    import base64
+    import io
+    from html.parser import HTMLParser
+
+    from PIL import Image
+
+    void = {"meta", "img", "br", "hr", "link", "input", "source", "wbr", "col", "area", "base"}
+
+    class Page(HTMLParser):
+        def __init__(self):
+            super().__init__(convert_charrefs=True)
+            self.stack, self.words, self.images, self.ids, self.links = [], [], [], [], []
+            self.tags = set()
+            self.style = ""
+
+        def handle_starttag(self, tag, attrs):
+            self.tags.add(tag)
+            attrs = dict(attrs)
+            for name, value in attrs.items():
+                value = (value or "").strip().lower()
+                assert not value.startswith(("http:", "https:", "//", "ftp:")), (tag, name, value)
+                assert not name.startswith("on"), f"an event handler: {tag} {name}"
+            if "id" in attrs:
+                self.ids.append(attrs["id"])
+            if "href" in attrs:
+                self.links.append(attrs["href"])
+            if tag == "img":
+                src = attrs["src"]
+                assert src.startswith("data:image/png;base64,"), src[:40]
+                data = base64.b64decode(src.split(",", 1)[1], validate=True)
+                with Image.open(io.BytesIO(data)) as im:
+                    im.load()                                   # decodes every pixel
+                    self.images.append(im.size)
+                assert attrs.get("alt"), "an image without alt text"
+            if tag not in void:
+                self.stack.append(tag)
+
+        def handle_endtag(self, tag):
+            if tag in void:
+                return
+            assert self.stack and self.stack[-1] == tag, f"</{tag}> closes {self.stack[-1:]}"
+            self.stack.pop()
+
+        def handle_data(self, data):
+            if self.stack and self.stack[-1] == "style":
+                self.style += data
+            elif data.strip():
+                self.words.append(data.strip())
+
+    page = Page()
+    page.feed(text)
+    page.close()
+    assert text.startswith("<!DOCTYPE html>")
+    assert page.stack == [], f"unclosed: {page.stack}"
+    assert not page.tags & {"script", "link", "iframe", "object", "embed", "base"}, page.tags
+    assert "url(" not in page.style and "@import" not in page.style
+    return {"text": " ".join(page.words), "images": page.images, "ids": page.ids,
+            "links": page.links}

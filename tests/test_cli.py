@@ -105,6 +105,10 @@ def test_demo_runs_and_matches_truth(tmp_path):
     assert "chsh_max: the second and third singular values" in r.stderr
     with h5py.File(tmp_path / "gatescope-demo" / "pair-source-result.h5") as f:
         assert f.attrs["kind"] == "state" and f["estimate/rho"].shape == (4, 4)
+    # and the report of each, its path printed
+    for name in ("result.html", "pair-source-result.html"):
+        assert f"report written to gatescope-demo/{name}" in r.stdout
+        assert (tmp_path / "gatescope-demo" / name).read_text().startswith("<!DOCTYPE html>")
 
 
 def test_batch_exit_status_and_table_path(tmp_path, capsys):
@@ -314,6 +318,49 @@ def test_demo_says_what_it_replaces(tmp_path, monkeypatch, capsys):
         assert "replacing" not in capsys.readouterr().err
         assert main(["demo"]) == 0
     assert "demo: replacing gatescope-demo/result.h5" in capsys.readouterr().err
+
+
+def test_fit_report_is_checked_before_the_fit_and_written_beside_the_result(make_experiment,
+                                                                           tmp_path, capsys):
+    pytest.importorskip("matplotlib")
+    exp, _ = make_experiment(FULL_RANK, shots=500, seed=16)
+    out = tmp_path / "night" / "r.h5"
+    (tmp_path / "night").mkdir()
+    (tmp_path / "night" / "r.html").write_text("an older report")
+    assert main(["fit", str(exp.path), "-o", str(out), "--report", "--quiet"]) == 2
+    assert "r.html" in capsys.readouterr().err and not out.exists()    # refused before the fit
+    assert main(["fit", str(exp.path), "-o", str(out), "--report", "--quiet", "--force"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines == [str(out), f"report written to {tmp_path / 'night' / 'r.html'}"]
+    assert "process_fidelity" in (tmp_path / "night" / "r.html").read_text()
+    page = tmp_path / "elsewhere.html"
+    assert main(["fit", str(exp.path), "-o", str(out), "--force", "--report", str(page),
+                 "--json"]) == 0
+    assert page.exists() and "report written to" in capsys.readouterr().err
+
+
+def test_cli_report_of_a_result_and_of_a_batch(make_experiment, tmp_path, capsys):
+    pytest.importorskip("matplotlib")
+    exp, _ = make_experiment(FULL_RANK, shots=500, seed=17)
+    out = tmp_path / "r.h5"
+    assert main(["fit", str(exp.path), "-o", str(out), "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["report", str(out)]) == 0
+    assert capsys.readouterr().out.strip() == str(tmp_path / "r.html")
+    assert main(["report", str(out)]) == 2                              # exists: --force
+    assert "--force" in capsys.readouterr().err
+    assert main(["report", str(out), "--against", "delay_ps"]) == 2
+    assert "option --against" in capsys.readouterr().err
+    assert main(["report", str(tmp_path / "none.h5")]) == 2
+    assert main(["report", str(tmp_path)]) == 2                         # no summary.csv
+    assert "summary.csv" in capsys.readouterr().err
+
+
+def test_cli_report_without_matplotlib_exits_2(tmp_path):
+    code = ("import sys; sys.modules['matplotlib'] = None; from gatescope.cli import main; "
+            f"sys.exit(main(['report', {str(tmp_path)!r}]))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert r.returncode == 2 and "plot extra" in r.stderr and "Traceback" not in r.stderr
 
 
 def test_cli_bench_prints_the_table_and_writes_the_folder(tmp_path, capsys):

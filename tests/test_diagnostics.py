@@ -101,3 +101,67 @@ def test_diagnostics_group_holds_p_values_and_outliers(fits):
         assert back.deviance_p_value == res.diagnostics.deviance_p_value
         np.testing.assert_array_equal(back.outlier_rows, res.diagnostics.outlier_rows)
         assert back.outlier_rows.dtype == np.int64
+
+
+# --------------------------------------------------------------------------
+# The parametric-bootstrap test of the fit
+# --------------------------------------------------------------------------
+
+def test_bootstrap_p_value_is_the_monte_carlo_p_value():
+    from gatescope.bootstrap import fit_p_value
+
+    # p = (1 + #{D* ≥ D}) / (B + 1) over the finite resample deviances (Davison & Hinkley,
+    # Bootstrap Methods and their Application, 1997, §4.2): 2 of 4 finite values reach 5
+    assert fit_p_value(5.0, np.array([1.0, 5.0, 7.0, np.nan, 2.0])) == (3 / 5, 4)
+    assert fit_p_value(9.0, np.array([1.0, 2.0])) == (1 / 3, 2)
+    p, n = fit_p_value(9.0, None)
+    assert np.isnan(p) and n == 0
+
+
+def _bootstrapped_fit(exp):
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        res = gs.fit(exp, bootstrap=200, seed=4, workers=1)
+    return res, caught
+
+
+def test_bootstrap_test_accepts_a_right_model_the_chi2_reference_rejects(make_experiment):
+    # A CZ followed by amplitude damping (Kraus rank 4 of 16): the estimate lies on the
+    # boundary of the physical set, fewer parameters are free than the χ² reference
+    # counts, and its p-values are far too small for data drawn from the model itself
+    # (common practice: Wilks' theorem needs an interior maximum; Scholten &
+    # Blume-Kohout, New J. Phys. 20, 023050 (2018) for the boundary of quantum models).
+    exp, _ = make_experiment("CZ+amplitude-damping:0.05", shots=1000, seed=1)
+    with pytest.warns(GatescopeWarning, match="--bootstrap 200 or more gives a calibrated"):
+        plain = gs.fit(exp)
+    assert plain.diagnostics.p_value < 1e-3 and plain.diagnostics.poor_fit
+    res, caught = _bootstrapped_fit(exp)
+    dg = res.diagnostics
+    assert dg.bootstrap_resamples == 200 and dg.bootstrap_decides
+    assert dg.bootstrap_p_value > 0.01 and not dg.poor_fit
+    assert poor_fit_warnings(caught) == []
+    # every resample deviance is finite, their mean over two χ²_dof standard deviations
+    # above the nominal dof (a χ²_dof variable has mean dof and variance 2 dof)
+    d = res.bootstrap.deviances
+    assert np.all(np.isfinite(d)) and np.mean(d) > dg.dof + 2 * np.sqrt(2 * dg.dof)
+    assert dg.bootstrap_p_value == (1 + np.count_nonzero(d >= dg.deviance)) / 201
+
+
+def test_bootstrap_test_still_flags_the_light_leak(tmp_path):
+    from support import light_leak_bench
+
+    exp, _ = light_leak_bench(tmp_path / "untold", with_background=False)
+    res, caught = _bootstrapped_fit(exp)
+    dg = res.diagnostics
+    assert dg.bootstrap_decides and dg.bootstrap_p_value == 1 / 201 and dg.poor_fit
+    (found,) = poor_fit_warnings(caught)
+    assert "bootstrap p = 0.005 from 200 resamples" in str(found.message)
+    back = gs.load_result(res.save(tmp_path / "r.h5"))
+    assert back.diagnostics.bootstrap_p_value == dg.bootstrap_p_value
+    assert back.diagnostics.bootstrap_resamples == 200 and back.diagnostics.poor_fit
+    np.testing.assert_array_equal(back.bootstrap.deviances, res.bootstrap.deviances)
+    from gatescope.summary import summary
+
+    assert "bootstrap test of the deviance: p = 0.00498 (200 resamples" in summary(back)

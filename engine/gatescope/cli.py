@@ -86,6 +86,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="print the figures, the fit's status and the warnings as JSON")
     f.add_argument("--diamond", action="store_true",
                    help="also compute the diamond distance to the target (needs the sdp extra, cvxpy)")
+    f.add_argument("--report", nargs="?", const=True, default=None, metavar="PAGE.html",
+                   help="also write the HTML report (default: the result's name with .html; "
+                        "needs the plot extra)")
 
     s = sub.add_parser("show", help="print a summary of a result file")
     s.add_argument("result", help="result.h5")
@@ -161,7 +164,27 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--dask", default=None, metavar="ADDRESS",
                    help="run on this dask.distributed scheduler (needs the dask extra)")
     _add_bench_parser(sub)
+    _add_report_parser(sub)
     return p
+
+
+def _add_report_parser(sub) -> None:
+    r = sub.add_parser(
+        "report", help="an HTML report of a result file, or the overview of a batch folder",
+        description="RESULT.h5: one self-contained HTML page (figures with intervals, warnings, "
+                    "the chi and Pauli transfer matrices or the density matrix, the data, the "
+                    "bootstrap, input, conditions, provenance), by default RESULT.html. OUTDIR "
+                    "of gatescope batch: the overview of every experiment, by default "
+                    "OUTDIR/overview.html. Needs the plot extra (matplotlib).")
+    r.add_argument("path", metavar="RESULT.h5|OUTDIR", help="a result file or a batch output folder")
+    r.add_argument("-o", "--output", default=None, metavar="PAGE.html", help="the page to write")
+    r.add_argument("--figures", default=None, metavar="DIR",
+                   help="also write every figure as SVG, PDF and PNG (300 dpi), one column wide")
+    r.add_argument("--against", default=None, metavar="CONDITION",
+                   help="a batch: plot the figures against this condition (default: the name)")
+    r.add_argument("--each", action="store_true",
+                   help="a batch: also write the report of every experiment that has none")
+    r.add_argument("--force", action="store_true", help="replace existing pages and figures")
 
 
 def _add_bench_parser(sub) -> None:
@@ -219,7 +242,8 @@ def main(argv=None) -> int:
         previous = None
     try:
         return {"fit": cmd_fit, "show": cmd_show, "simulate": cmd_simulate, "plan": cmd_plan,
-                "demo": cmd_demo, "batch": cmd_batch, "bench": cmd_bench}[args.command](
+                "demo": cmd_demo, "batch": cmd_batch, "bench": cmd_bench,
+                "report": cmd_report}[args.command](
                     args, command_line)
     except InputError as exc:
         print(f"gatescope: error: {clean(exc)}", file=sys.stderr)
@@ -261,6 +285,7 @@ def cmd_fit(args, command_line) -> int:
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
     check_output(out, force=args.force, inputs=tuple(input_files(exp.path).values()),
                  option=_typed(args.argv, "-o", "--output"))
+    page = _report_path(args, out, tuple(input_files(exp.path).values()))
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = fit(exp, args.method, bootstrap=args.bootstrap,
@@ -272,6 +297,10 @@ def cmd_fit(args, command_line) -> int:
         if not issubclass(w.category, GatescopeWarning):
             _show_warning(w.message, w.category, w.filename, w.lineno)
     result.save(out)
+    if page is not None:
+        from .report import result_report
+
+        result_report(result, page, source=str(out), force=True)
     if args.json:
         from .export import json_text
 
@@ -284,6 +313,38 @@ def cmd_fit(args, command_line) -> int:
         from .summary import fit_summary
 
         print(fit_summary(result, out))
+    if page is not None:
+        print(f"report written to {page}", file=sys.stderr if args.json else sys.stdout)
+    return 0
+
+
+def _report_path(args, out: Path, inputs) -> Path | None:
+    """The page of ``fit --report``, checked before the fit (None without --report)."""
+    if args.report is None:
+        return None
+    from .fileio import check_output
+    from .report import check_available, default_report_path
+
+    check_available("--report")
+    page = default_report_path(out) if args.report is True else Path(args.report)
+    check_output(page, force=args.force, inputs=inputs + (out,), option="--report",
+                 what="report")
+    return page
+
+
+def cmd_report(args, command_line) -> int:
+    from .report import make_report
+
+    outcome = make_report(args.path, args.output, figures=args.figures, against=args.against,
+                          each=args.each, force=args.force)
+    for path in outcome.reports:
+        print(path)
+    if outcome.kept:
+        print(f"{len(outcome.kept)} experiment report(s) kept (--force replaces them)",
+              file=sys.stderr)
+    for path in outcome.figures:
+        print(path)
+    print(outcome.page)
     return 0
 
 
@@ -457,7 +518,21 @@ def _demo_fit(source: Path, recipe: dict, out: Path, command_line) -> None:
                     inside = "  inside the interval" if fig.ci[0] <= t <= fig.ci[1] else "  OUTSIDE the interval"
                 print(f"  {name:25s} estimate {fig.value:.5f}   truth {t:.5f}{inside}")
     print(f"\nresult written to {out}")
-    return 0
+    _demo_report(result, out)
+
+
+def _demo_report(result, out: Path) -> None:
+    """The demo's report beside its result (replacing an earlier demo's), or a note saying
+    why there is none."""
+    from .report import default_report_path, result_report
+
+    page = default_report_path(out)
+    try:
+        result_report(result, page, source=str(out), force=True)
+    except InputError as exc:
+        print(f"report skipped: {clean(exc)}")
+        return
+    print(f"report written to {page}")
 
 
 def cmd_batch(args, command_line) -> int:

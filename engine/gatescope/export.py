@@ -81,6 +81,8 @@ def as_json(result: Result, path=None) -> dict:
         gof = {"chi2": _number(dg.chi2), "deviance": _number(dg.deviance), "dof": int(dg.dof),
                "chi2_p_value": _number(dg.chi2_p_value),
                "deviance_p_value": _number(dg.deviance_p_value),
+               "bootstrap_p_value": _number(dg.bootstrap_p_value),
+               "bootstrap_resamples": int(dg.bootstrap_resamples),
                "outliers": _rows(r, outliers, residual=True),
                "nonpositive_expected": _rows(r, np.flatnonzero(expected <= 0), residual=False)}
     boot = None

@@ -81,6 +81,16 @@ class PoissonLikelihood:
         return self.model.adjoint(evaluation.weights)
 
 
+def deviance(counts: np.ndarray, expected: np.ndarray) -> float:
+    """The Poisson deviance 2 Σ_k [n_k log(n_k/ν_k) − (n_k − ν_k)] of counts n against
+    positive expected counts ν (a row with n_k = 0 contributes 2ν_k)."""
+    n = np.asarray(counts, dtype=float)
+    nu = np.asarray(expected, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = np.where(n > 0, n * np.log(np.where(n > 0, n, 1.0) / nu), 0.0) - (n - nu)
+    return float(2.0 * np.sum(terms))
+
+
 class Tilt:
     """A smooth term added to the log-likelihood: Re Tr(W J) + c·Tr(J²).
 

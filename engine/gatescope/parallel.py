@@ -83,6 +83,38 @@ def chunk_sizes(n_items: int, workers: int) -> list[int]:
 # Threads: one per worker
 # --------------------------------------------------------------------------
 
+_SETTERS = ("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
+            "scipy_openblas_set_num_threads", "openblas_set_num_threads64_")
+_GETTERS = ("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
+            "scipy_openblas_get_num_threads", "openblas_get_num_threads64_")
+#: The OpenBLAS libraries found by the last scan, and how many modules were imported then.
+_SCAN = {"modules": -1, "libraries": []}
+
+
+def _openblas_libraries() -> list:
+    """Every OpenBLAS loaded in this process, found through /proc/self/maps.
+
+    Reading the map costs a few milliseconds in a process with numba loaded,
+    so the answer is kept until a module is imported (libraries arrive with
+    the extension modules that need them).
+    """
+    if _SCAN["modules"] == len(sys.modules):
+        return _SCAN["libraries"]
+    try:
+        with open("/proc/self/maps") as fh:
+            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
+    except OSError:
+        paths = set()
+    libraries = []
+    for path in sorted(paths):
+        try:
+            libraries.append(ctypes.CDLL(path))
+        except OSError:
+            continue
+    _SCAN["modules"], _SCAN["libraries"] = len(sys.modules), libraries
+    return libraries
+
+
 def _openblas_functions(names):
     """For every OpenBLAS loaded in this process, its first function among ``names``.
 
@@ -90,17 +122,8 @@ def _openblas_functions(names):
     symbol names; libraries are found through /proc/self/maps (Linux only;
     elsewhere the environment variables set before the workers start act alone).
     """
-    try:
-        with open("/proc/self/maps") as fh:
-            paths = {line.split()[-1] for line in fh if "openblas" in line.lower() and "/" in line}
-    except OSError:
-        return []
     found = []
-    for path in sorted(paths):
-        try:
-            lib = ctypes.CDLL(path)
-        except OSError:
-            continue
+    for lib in _openblas_libraries():
         for symbol in names:
             function = getattr(lib, symbol, None)
             if function is not None:
@@ -134,10 +157,7 @@ def limit_threads() -> None:
         numba.set_num_threads(1)
     except (ImportError, ValueError, RuntimeError):    # numba's threading layer unavailable
         pass
-    for setter in _openblas_functions(("openblas_set_num_threads",
-                                       "scipy_openblas_set_num_threads64_",
-                                       "scipy_openblas_set_num_threads",
-                                       "openblas_set_num_threads64_")):
+    for setter in _openblas_functions(_SETTERS):
         setter.argtypes = [ctypes.c_int]
         setter.restype = None
         setter(1)
@@ -146,19 +166,10 @@ def limit_threads() -> None:
 def blas_thread_counts() -> list[int]:
     """Threads of every OpenBLAS loaded in this process (empty when none is found)."""
     counts = []
-    for getter in _openblas_functions(("openblas_get_num_threads",
-                                       "scipy_openblas_get_num_threads64_",
-                                       "scipy_openblas_get_num_threads",
-                                       "openblas_get_num_threads64_")):
+    for getter in _openblas_functions(_GETTERS):
         getter.restype = ctypes.c_int
         counts.append(int(getter()))
     return counts
-
-
-_SETTERS = ("openblas_set_num_threads", "scipy_openblas_set_num_threads64_",
-            "scipy_openblas_set_num_threads", "openblas_set_num_threads64_")
-_GETTERS = ("openblas_get_num_threads", "scipy_openblas_get_num_threads64_",
-            "scipy_openblas_get_num_threads", "openblas_get_num_threads64_")
 
 
 @contextlib.contextmanager

@@ -24,7 +24,7 @@ import numpy as np
 
 from . import kernels, resources
 from .bootstrap import check_options as check_bootstrap_options
-from .bootstrap import run_bootstrap
+from .bootstrap import fit_p_value, run_bootstrap
 from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
 from .errors import InputError, NumericalError, collect_warnings, warn
@@ -333,6 +333,9 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
                                    interval=DEFAULT_INTERVAL if interval == "profile"
                                    else interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
+    if boot is not None:
+        diag.bootstrap_p_value, diag.bootstrap_resamples = fit_p_value(diag.deviance,
+                                                                       boot.deviances)
     no_signal = warn_about_fit(model, point, diag.dof, ident.rank)
     if point.method in MAXIMUM_LIKELIHOOD and verdict.physical and not no_signal:
         # lin and pls do not maximise the likelihood, so their statistics exceed the χ²

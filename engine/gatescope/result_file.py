@@ -195,7 +195,8 @@ def _write(f: h5py.File, r) -> None:
         if r.bootstrap.converged is not None:
             b.create_dataset("converged", data=np.asarray(r.bootstrap.converged, dtype=bool))
         for name, dtype in (("choi_std", np.complex128), ("chi_std", np.complex128),
-                            ("ptm_std", np.float64), ("rho_std", np.complex128)):
+                            ("ptm_std", np.float64), ("rho_std", np.complex128),
+                            ("deviances", np.float64)):
             value = getattr(r.bootstrap, name)
             if value is not None:
                 b.create_dataset(name, data=np.asarray(value, dtype=dtype))
@@ -223,6 +224,9 @@ def _write(f: h5py.File, r) -> None:
     dg.attrs["dof"] = int(d.dof)
     dg.attrs["chi2_p_value"] = float(d.chi2_p_value)
     dg.attrs["deviance_p_value"] = float(d.deviance_p_value)
+    if d.bootstrap_resamples:
+        dg.attrs["bootstrap_p_value"] = float(d.bootstrap_p_value)
+        dg.attrs["bootstrap_resamples"] = int(d.bootstrap_resamples)
     dg.create_dataset("outlier_rows", data=np.asarray(d.outlier_rows, dtype=np.int64))
     if d.outlier_lines is not None:
         dg.create_dataset("outlier_lines", data=np.asarray(d.outlier_lines, dtype=np.int64))
@@ -608,7 +612,7 @@ def _read(c: _Checked, verify: bool) -> dict:
             raise _Damaged(f"{b}/figures", f"has {values.shape[1]} columns for {len(bnames)} names")
         optional = {}
         for name, kinds in (("converged", "b"), ("choi_std", "fc"), ("chi_std", "fc"),
-                            ("ptm_std", "f"), ("rho_std", "fc")):
+                            ("ptm_std", "f"), ("rho_std", "fc"), ("deviances", "f")):
             optional[name] = (c.array(f"{b}/{name}", kinds, finite=False)
                               if c.has(f"{b}/{name}") else None)
         boot = Bootstrap(values, bnames, c.attr(b, "kind", str), c.attr(b, "seed", int),
@@ -637,7 +641,9 @@ def _read(c: _Checked, verify: bool) -> dict:
                                   c.attr(g, "dof", int), c.attr(g, "chi2_p_value", float, np.nan),
                                   c.attr(g, "deviance_p_value", float, np.nan),
                                   rows.astype(np.int64),
-                                  None if lines is None else lines.astype(np.int64))
+                                  None if lines is None else lines.astype(np.int64),
+                                  c.attr(g, "bootstrap_p_value", float, np.nan),
+                                  c.attr(g, "bootstrap_resamples", int, 0))
 
     # -- the rest
     # files written before the origin was recorded: a truth is marked by its method

@@ -17,7 +17,7 @@ import numpy as np
 
 from .checks import PHYSICAL_TOLERANCE
 from .conventions import n_qubits_of
-from .diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
+from .diagnostics import MIN_BOOTSTRAP_TEST, OUTLIER_RESIDUAL, POOR_FIT_P
 from .errors import printable as clean
 from .estimators import MAXIMUM_LIKELIHOOD
 from .intervals import parameter_range
@@ -253,6 +253,22 @@ def summary(result: Result, *, source: str | None = None) -> str:
     return "\n".join(clean(line) for line in lines)
 
 
+def figure_label(name: str, kind: str = "process") -> str:
+    """The label of figure ``name`` in words, as `show` prints it ("process fidelity")."""
+    return _label(name, kind == "state")
+
+
+def number_text(x: float) -> str:
+    """A number as `show` prints it ("not defined" for NaN and ±inf)."""
+    return _num(x)
+
+
+def status_text(r: Result) -> str:
+    """How the estimate ended, in the words of `show` ("converged to rounding precision
+    (...)", "UNPHYSICAL estimate (...)", ...)."""
+    return _status_text(r)
+
+
 def _label(name: str, state: bool) -> str:
     if not state:
         return LABELS.get(name, name)
@@ -368,12 +384,18 @@ def _goodness_of_fit(r: Result) -> list[str]:
     else:
         out = [f"  Pearson chi2 {dg.chi2:.2f} (p = {dg.chi2_p_value:.3g}), deviance "
                f"{dg.deviance:.2f} (p = {dg.deviance_p_value:.3g}), on {dg.dof} degrees of freedom"]
+        if dg.bootstrap_resamples:
+            out.append(f"  bootstrap test of the deviance: p = {dg.bootstrap_p_value:.3g} "
+                       f"({dg.bootstrap_resamples} resamples refitted; "
+                       + ("it decides whether the model fits)" if dg.bootstrap_decides else
+                          f"at least {MIN_BOOTSTRAP_TEST} needed to decide)"))
         if r.method not in MAXIMUM_LIKELIHOOD:
             out.append(f"  (a {r.method} estimate does not maximise the likelihood, so these "
                        "p-values are lower than for the model itself; refit with mle to test the "
                        "model)")
         elif dg.poor_fit:
-            out.append(f"  WARNING: p < {POOR_FIT_P:g}, the model does not describe the data: "
+            test = "bootstrap test" if dg.bootstrap_decides else f"p < {POOR_FIT_P:g}"
+            out.append(f"  WARNING: {test}, the model does not describe the data: "
                        "check for miscalibrated optics, drift of the source, or a wrong "
                        "background")
     if nonpositive.size:
@@ -402,7 +424,10 @@ def fit_summary(result: Result, path) -> str:
     lines.extend(boundary_lines(r))
     fit = f"  fit: {r.method}, {_status_text(r).split(' (')[0]}"
     dg = r.diagnostics
-    if dg is not None and np.isfinite(dg.p_value) and dg.dof > 0:
+    if dg is not None and dg.bootstrap_decides:
+        fit += (f"; goodness of fit p = {dg.bootstrap_p_value:.3g} (bootstrap, "
+                f"{dg.bootstrap_resamples} resamples)")
+    elif dg is not None and np.isfinite(dg.p_value) and dg.dof > 0:
         fit += f"; goodness of fit p = {dg.p_value:.3g} ({dg.dof} degrees of freedom)"
     elif dg is not None:
         fit += "; no goodness-of-fit test"

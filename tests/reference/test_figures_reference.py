@@ -144,7 +144,8 @@ def test_diamond_of_a_trace_decreasing_map_matches_the_general_program(seed):
 @needs_cvxpy
 def test_diamond_against_qutip_for_random_channels():
     # QuTiP 5 `dnorm` (its own cvxpy program; SCS, so compare to ~1e-4). Its Choi
-    # convention equals ours (REFERENCE-NOTES), so the superoperator comes from Kraus.
+    # convention equals ours (tests/reference/test_qutip_conversions.py checks it), so the
+    # superoperator comes from Kraus.
     qutip = pytest.importorskip("qutip")
     for seed in (1, 2):
         a = synth_noise.random_channel(1, 2, seed)
