@@ -32,12 +32,13 @@ def test_json_carries_figures_status_fit_and_warnings(boot_result):
     assert data["figures"]["process_fidelity"] == {"value": fid.value, "ci": list(fid.ci),
                                                    "level": 0.95, "determined": True,
                                                    "in_range": True,
-                                                   "interval_method": "profile",
+                                                   "interval_method": "normal",
                                                    "lower_bound": None,
-                                                   "touches_boundary": False}
-    # the default of a two-qubit bootstrap: profile likelihood for the fidelities and
-    # the purity (pipeline.default_interval), the bootstrap's normal interval elsewhere
-    assert data["figures"]["unitarity"]["interval_method"] == "normal"
+                                                   "touches_boundary": None}
+    # the default of a two-qubit bootstrap: profile likelihood for the purity
+    # (pipeline.default_profiled), the bootstrap's normal interval elsewhere
+    assert data["figures"]["purity"]["interval_method"] == "profile"
+    assert data["figures"]["purity"]["touches_boundary"] is False
     assert data["status"] == "converged" and data["method"] == "mle" and data["file"] == "r.h5"
     assert data["goodness_of_fit"]["dof"] == boot_result.diagnostics.dof
     assert data["bootstrap"]["samples"] == 6 and data["seed"] == 2

@@ -311,19 +311,20 @@ def test_profile_options_are_checked_before_the_fit(make_experiment, monkeypatch
 def test_the_default_interval():
     from types import SimpleNamespace
 
-    from gatescope.pipeline import PROFILE_DEFAULT_MAX_QUBITS, default_interval
+    from gatescope.pipeline import default_profiled
 
-    # profile likelihood by default for a maximum-likelihood bootstrap up to two qubits
-    # (benchmarks/README.md, "Coverage near the boundary"), the bootstrap's normal
-    # interval otherwise
-    assert PROFILE_DEFAULT_MAX_QUBITS == 2
-    for n in (1, 2):
-        exp = SimpleNamespace(n_qubits=n)
-        assert default_interval(exp, "mle", 100) == "profile"
-        assert default_interval(exp, "mle-pg", 100) == "profile"
-        assert default_interval(exp, "pls", 100) == "normal"
-        assert default_interval(exp, "mle", 0) == "normal"
-    assert default_interval(SimpleNamespace(n_qubits=3), "mle", 100) == "normal"
+    # profile likelihood by default where it covered better near F = 1
+    # (benchmarks/README.md, "Coverage near the boundary"): one qubit, the fidelities and
+    # the purity; two qubits, the purity; the bootstrap's normal interval otherwise
+    one, two = (SimpleNamespace(n_qubits=n, kind="process") for n in (1, 2))
+    assert default_profiled(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity",
+                                                 "purity")
+    assert default_profiled(one, "mle-pg", 100) == default_profiled(one, "mle", 100)
+    assert default_profiled(two, "mle", 100) == ("purity",)
+    for exp, method, boot in ((one, "pls", 100), (one, "mle", 0),
+                              (SimpleNamespace(n_qubits=3, kind="process"), "mle", 100),
+                              (SimpleNamespace(n_qubits=2, kind="state"), "mle", 100)):
+        assert default_profiled(exp, method, boot) == ()
 
 
 def test_an_explicit_bootstrap_interval_keeps_every_figure_on_it(make_experiment):

@@ -72,8 +72,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--interval", choices=FIT_INTERVALS, default=None,
                    help="interval construction: a bootstrap one, or profile (profile likelihood "
                         "for the fidelities and the purity, the bootstrap's "
-                        f"{DEFAULT_INTERVAL} for the rest); default profile for an mle bootstrap "
-                        f"of one or two qubits, else {DEFAULT_INTERVAL}")
+                        f"{DEFAULT_INTERVAL} for the rest); default: with an mle bootstrap, "
+                        "profile for the fidelities and the purity of a one-qubit process and "
+                        f"the purity of a two-qubit one, {DEFAULT_INTERVAL} for the rest")
     f.add_argument("--lower-bound", action="store_true",
                    help="also the one-sided profile-likelihood lower bound of the fidelities "
                         "and the purity, at --ci-level")

@@ -38,7 +38,7 @@ from .options import choice, flag, fraction, whole
 from .options import seed as check_seed
 from .options import workers as check_workers
 from .parallel import single_threaded_blas
-from .profile import profile_figures
+from .profile import PROFILED_FIGURES, profile_figures
 from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
 from .reader import Experiment, read_experiment
@@ -113,7 +113,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         ``average_gate_fidelity``, ``purity``, and a state's
         ``state_fidelity`` (pure target) and ``purity`` — and the bootstrap
         interval `gatescope.intervals.DEFAULT_INTERVAL` for the others. Default
-        (None): see `default_interval`. Each figure records its construction
+        (None): the profile-likelihood interval for the figures `default_profiled`
+        names, the bootstrap's default for the rest. Each figure records its construction
         (``Figure.interval_method``).
     lower_bound : bool
         Also compute the one-sided profile-likelihood lower confidence bound
@@ -144,50 +145,55 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     check_fit_options(method=method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options, lower_bound=lower_bound)
+    profiled = PROFILED_FIGURES if interval == "profile" else ()
     if interval is None:
-        interval = default_interval(experiment, method, bootstrap)
+        profiled = default_profiled(experiment, method, bootstrap)
+    if interval in (None, "profile"):
+        interval = DEFAULT_INTERVAL           # the bootstrap's, for every other figure
     with collect_warnings() as texts:
         result = _fit(experiment, method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, seed=seed, workers=workers, progress=progress,
                       command_line=command_line, diamond=diamond, interval=interval,
-                      options=options, lower_bound=lower_bound)
+                      options=options, lower_bound=lower_bound, profiled=profiled)
     result.warnings = tuple(texts)
     return result
 
 
-#: Up to this many qubits a bootstrap of a maximum-likelihood fit gives the figures
-#: `gatescope.profile` covers the profile-likelihood interval by default: its coverage
-#: near a perfect gate was closer to the level than the bootstrap's (benchmarks/README.md,
-#: "Coverage near the boundary"), where it was measured: one and two qubits.
-PROFILE_DEFAULT_MAX_QUBITS = 2
+#: The figures of a process that a bootstrap of a maximum-likelihood fit gives the
+#: profile-likelihood interval by default, by number of qubits: where its coverage near a
+#: perfect gate was measured closer to the level than the bootstrap's normal interval
+#: (benchmarks/README.md, "Coverage near the boundary"). One qubit: the fidelities and the
+#: purity; two qubits: the purity (there the normal interval of the fidelities covered
+#: better). States, and larger processes, keep the normal interval (not measured).
+PROFILE_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity", "purity"),
+                   2: ("purity",)}
 
 
-def default_interval(experiment: Experiment, method: str, bootstrap: int) -> str:
-    """The interval construction `fit` uses when none is given.
-
-    ``"profile"`` when a bootstrap is asked for, the method maximises the
-    likelihood and the experiment has at most `PROFILE_DEFAULT_MAX_QUBITS`
-    qubits; else `gatescope.intervals.DEFAULT_INTERVAL`.
-    """
-    if (bootstrap and method in MAXIMUM_LIKELIHOOD
-            and experiment.n_qubits <= PROFILE_DEFAULT_MAX_QUBITS):
-        return "profile"
-    return DEFAULT_INTERVAL
+def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tuple:
+    """The figures whose interval is the profile-likelihood one when `fit` is given no
+    ``interval``: `PROFILE_DEFAULT` for a bootstrapped maximum-likelihood fit of a
+    process, none otherwise (every figure then has the bootstrap's
+    `gatescope.intervals.DEFAULT_INTERVAL`)."""
+    if bootstrap and method in MAXIMUM_LIKELIHOOD and experiment.kind != "state":
+        return PROFILE_DEFAULT.get(experiment.n_qubits, ())
+    return ()
 
 
-def attach_profiles(result: Result, model, point, target, level: float, *, interval: bool,
+def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
                     lower_bound: bool) -> None:
-    """Set the profile-likelihood intervals (``interval``), lower bounds (``lower_bound``)
-    and ``touches_boundary`` of the figures of ``result`` that `gatescope.profile` covers.
+    """Set the profile-likelihood intervals of the figures named in ``interval``, the
+    lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
+    that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
 
     Each interval and bound is widened, if need be, to reach the figure's value: the
     profile's own maximum-likelihood fit (tighter than the point fit) may differ from
     it by the fit's tolerance. A figure the data do not determine keeps no profile. A
     search that fails or does not converge is a warning (code ``profile``).
     """
+    names = None if lower_bound else tuple(interval)
     try:
-        found = profile_figures(model, target, level=level, interval=interval,
-                                lower_bound=lower_bound, start=point.choi)
+        found = profile_figures(model, target, level=level, interval=bool(interval),
+                                lower_bound=lower_bound, names=names, start=point.choi)
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
         return
@@ -200,7 +206,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
             warn("profile", f"the profile-likelihood search for {name} stopped before it "
                             f"converged: its interval may be inaccurate", stacklevel=2)
         low, high = parameter_range(name, model.dim, model.kind)
-        if prof.interval is not None:
+        if prof.interval is not None and name in interval:
             fig.ci = (max(min(prof.interval.low, fig.value), low),
                       min(max(prof.interval.high, fig.value), high))
             fig.interval_method = "profile"
@@ -302,7 +308,7 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
 
 
 def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
-         command_line, diamond, interval, options, lower_bound=False) -> Result:
+         command_line, diamond, interval, options, lower_bound=False, profiled=()) -> Result:
     started = time.time()
     t0 = time.perf_counter()
     if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
@@ -330,8 +336,7 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
         boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
                                    method=method, options=options, progress=progress,
-                                   interval=DEFAULT_INTERVAL if interval == "profile"
-                                   else interval, point_figures=values)
+                                   interval=interval, point_figures=values)
     diag = diagnostics(model, point, ident.rank)
     if boot is not None:
         diag.bootstrap_p_value, diag.bootstrap_resamples = fit_p_value(diag.deviance,
@@ -361,7 +366,7 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
             text = chsh_gap_warning(details, float(np.nanstd(values, ddof=1)))
             if text:
                 warn("chsh", text, stacklevel=2)
-    if interval == "profile" or lower_bound:
-        attach_profiles(result, model, point, target, ci_level, interval=interval == "profile",
+    if profiled or lower_bound:
+        attach_profiles(result, model, point, target, ci_level, interval=profiled,
                         lower_bound=lower_bound)
     return result
