@@ -375,3 +375,32 @@ def test_cli_bench_prints_the_table_and_writes_the_folder(tmp_path, capsys):
         assert (out / name).exists()
     assert main(["bench", "--channel", "H", "--shots", "10,x", "-o", str(tmp_path / "x")]) == 2
     assert "option --shots:" in capsys.readouterr().err
+
+
+def test_cli_profile_interval_and_lower_bound(make_experiment, tmp_path, capsys):
+    import json
+
+    exp, _ = make_experiment("H", n_qubits=1, shots=1000, exact=True)
+    out = tmp_path / "result.h5"
+    assert main(["fit", str(exp.path), "--interval", "profile", "--lower-bound", "-o", str(out),
+                 "--quiet"]) == 0
+    res = gs.load_result(out)
+    pf = res.figures["process_fidelity"]
+    assert pf.interval_method == "profile" and pf.touches_boundary and pf.lower_bound < 1.0
+    with h5py.File(out, "r") as f:
+        assert float(f["figures/process_fidelity"].attrs["lower_bound"]) == pf.lower_bound
+    capsys.readouterr()
+    assert main(["show", str(out)]) == 0
+    assert "consistent with a perfect gate at 95% confidence" in capsys.readouterr().out
+    assert main(["show", str(out), "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)["figures"]["process_fidelity"]
+    assert data["interval_method"] == "profile" and data["touches_boundary"] is True
+    assert data["lower_bound"] == pf.lower_bound
+
+
+def test_cli_profile_options_are_checked(make_experiment, tmp_path, capsys):
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    assert main(["fit", str(exp.path), "--method", "pls", "--lower-bound",
+                 "-o", str(tmp_path / "r.h5")]) == 2
+    assert "--lower-bound" in capsys.readouterr().err
+    assert not (tmp_path / "r.h5").exists()

@@ -31,7 +31,14 @@ def test_json_carries_figures_status_fit_and_warnings(boot_result):
     fid = boot_result.figures["process_fidelity"]
     assert data["figures"]["process_fidelity"] == {"value": fid.value, "ci": list(fid.ci),
                                                    "level": 0.95, "determined": True,
-                                                   "in_range": True}
+                                                   "in_range": True,
+                                                   "interval_method": "normal",
+                                                   "lower_bound": None,
+                                                   "touches_boundary": None}
+    # the default of a two-qubit bootstrap: profile likelihood for the purity
+    # (pipeline.default_profiled), the bootstrap's normal interval elsewhere
+    assert data["figures"]["purity"]["interval_method"] == "profile"
+    assert data["figures"]["purity"]["touches_boundary"] is False
     assert data["status"] == "converged" and data["method"] == "mle" and data["file"] == "r.h5"
     assert data["goodness_of_fit"]["dof"] == boot_result.diagnostics.dof
     assert data["bootstrap"]["samples"] == 6 and data["seed"] == 2

@@ -311,6 +311,9 @@ WRONG_ATTRIBUTES = {
     ("/estimate", "iterations"): ["1", 3.5, -1, np.array([1, 2])],
     ("/estimate", "log_likelihood"): ["1", "", np.array([1.0, 2.0])],
     ("/input/counts", "sha256"): [3.5, "", "nonsense", np.array([1, 2])],
+    ("/figures/process_fidelity", "ci_method"): [3.5, "", "nonsense", np.array([1, 2])],
+    ("/figures/process_fidelity", "lower_bound"): ["1", "", np.array([1.0, 2.0])],
+    ("/figures/process_fidelity", "touches_boundary"): ["yes", 3.5, np.array([1, 2])],
 }
 
 

@@ -20,7 +20,7 @@ TESTS = Path(__file__).resolve().parent
 #: The top level, in data-flow order (a module may import those before it).
 CORE = ["errors", "options", "fileio", "checksum", "resources", "provenance", "progress", "parallel", "conventions",
         "channels", "kernels", "reader", "model", "likelihood", "projection", "estimators",
-        "merit", "intervals", "bootstrap", "diagnostics", "checks", "result_file", "result", "pipeline",
+        "merit", "intervals", "bootstrap", "profile", "diagnostics", "checks", "result_file", "result", "pipeline",
         "summary", "export", "__init__"]
 #: Capabilities, in the order they may build on each other.
 CAPABILITIES = ["synth", "batch", "report", "bench"]

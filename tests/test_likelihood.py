@@ -62,3 +62,30 @@ def test_gradient_by_finite_differences(make_experiment, rng):
         # central differences: truncation O(t²) and rounding of ℓ (terms of ~1e5) over t,
         # both near 1e-6 here (measured)
         assert numeric == pytest.approx(np.vdot(grad, h).real, rel=1e-5)
+
+
+def test_tilted_likelihood_adds_the_tilt_and_its_gradient(make_experiment):
+    from gatescope.likelihood import Tilt, TiltedLikelihood
+
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=400, seed=2)
+    model = MeasurementModel(exp)
+    base = PoissonLikelihood(model)
+    rng = np.random.default_rng(5)
+    w = rng.normal(size=(4, 4)) + 1j * rng.normal(size=(4, 4))
+    w = w + w.conj().T
+    tilt = Tilt(linear=w, quadratic=-0.7)
+    lik = TiltedLikelihood(base, tilt)
+    J = model.centre()
+    ev = lik.evaluate(J)
+    expected = float(np.vdot(w, J).real) - 0.7 * float(np.vdot(J, J).real)
+    assert ev.tilt == pytest.approx(expected, rel=1e-13)
+    assert ev.log_likelihood == pytest.approx(base.evaluate(J).log_likelihood + expected,
+                                              rel=1e-13)
+    # the gradient against central differences along a Hermitian direction
+    # (ℓ(J + hΔ) − ℓ(J − hΔ))/2h = Re Tr(G Δ) + O(h²)
+    delta = rng.normal(size=(4, 4)) + 1j * rng.normal(size=(4, 4))
+    delta = 1e-3 * (delta + delta.conj().T)
+    h = 1e-4
+    numeric = (lik.evaluate(J + h * delta).log_likelihood
+               - lik.evaluate(J - h * delta).log_likelihood) / (2 * h)
+    assert float(np.vdot(lik.gradient(ev), delta).real) == pytest.approx(numeric, rel=1e-6)

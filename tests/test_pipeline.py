@@ -245,3 +245,92 @@ def test_six_qubit_state_through_the_whole_job(make_state_experiment):
     for other in (rho, gs.fit(exp, "pls").rho):
         floor = lik.evaluate(other).log_likelihood
         assert res.log_likelihood >= floor - 1e-10 * abs(floor)
+
+
+# -- profile-likelihood intervals and lower bounds through the whole job ------------------
+
+PROFILED = ("process_fidelity", "average_gate_fidelity", "purity")
+
+
+def test_profile_intervals_and_lower_bounds_without_a_bootstrap(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.02", n_qubits=1, shots=1000, seed=4)
+    res = gs.fit(exp, interval="profile", lower_bound=True)
+    for name, f in res.figures.items():
+        if name in PROFILED:
+            assert f.interval_method == "profile" and f.level == 0.95
+            assert f.ci[0] <= f.lower_bound <= f.value <= f.ci[1] <= 1.0
+            # F = 0.985 with 1.8e4 counts: many standard errors below 1
+            assert f.touches_boundary is False
+        else:
+            assert f.ci is None and f.lower_bound is None and f.touches_boundary is None
+
+
+def test_profile_interval_beside_the_bootstrap(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.02", n_qubits=1, shots=1000, seed=4)
+    res = gs.fit(exp, bootstrap=10, seed=3, workers=1, interval="profile")
+    assert res.bootstrap.interval == "normal"
+    for name in res.bootstrap.names:
+        method = res.figures[name].interval_method
+        assert method == ("profile" if name in PROFILED else "normal"), name
+        assert res.figures[name].lower_bound is None
+
+
+def test_a_perfect_gate_touches_the_boundary(make_experiment):
+    # counts equal to the ideal gate's expected counts: the estimate is the target itself
+    exp, _ = make_experiment("H", n_qubits=1, shots=1000, exact=True)
+    res = gs.fit(exp, interval="profile", lower_bound=True)
+    pf = res.figures["process_fidelity"]
+    assert pf.touches_boundary and pf.ci[1] == 1.0 and pf.lower_bound < 1.0
+    assert res.figures["average_gate_fidelity"].touches_boundary
+
+
+def test_profile_of_a_state(make_state_experiment):
+    exp, _ = make_state_experiment("psi-+depolarizing:0.02", shots=500, seed=7)
+    res = gs.fit(exp, lower_bound=True)
+    for name in ("state_fidelity", "purity"):
+        f = res.figures[name]
+        assert f.ci is None and f.lower_bound <= f.value and f.touches_boundary is not None
+    assert res.figures["concurrence"].lower_bound is None
+
+
+def test_profile_options_are_checked_before_the_fit(make_experiment, monkeypatch):
+    import gatescope.pipeline as pipeline
+    exp, _ = make_experiment("H+depolarizing:0.1", n_qubits=1, shots=200)
+    called = []
+    monkeypatch.setattr(pipeline, "estimate", lambda *a, **k: called.append(1))
+    # a profile interval is centred on the maximum-likelihood estimate
+    with pytest.raises(gs.InputError, match="maximum-likelihood"):
+        gs.fit(exp, "pls", interval="profile")
+    with pytest.raises(gs.InputError, match="maximum-likelihood"):
+        gs.fit(exp, "lin", lower_bound=True)
+    with pytest.raises(gs.InputError, match="interval"):
+        gs.fit(exp, "mle", interval="likelihood")
+    assert not called
+
+
+def test_the_default_interval():
+    from types import SimpleNamespace
+
+    from gatescope.pipeline import default_profiled
+
+    # profile likelihood by default where it covered better near F = 1
+    # (benchmarks/README.md, "Coverage near the boundary"): one qubit, the fidelities and
+    # the purity; two qubits, the purity; the bootstrap's normal interval otherwise
+    one, two = (SimpleNamespace(n_qubits=n, kind="process") for n in (1, 2))
+    assert default_profiled(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity",
+                                                 "purity")
+    assert default_profiled(one, "mle-pg", 100) == default_profiled(one, "mle", 100)
+    assert default_profiled(two, "mle", 100) == ("purity",)
+    for exp, method, boot in ((one, "pls", 100), (one, "mle", 0),
+                              (SimpleNamespace(n_qubits=3, kind="process"), "mle", 100),
+                              (SimpleNamespace(n_qubits=2, kind="state"), "mle", 100)):
+        assert default_profiled(exp, method, boot) == ()
+
+
+def test_an_explicit_bootstrap_interval_keeps_every_figure_on_it(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.02", n_qubits=1, shots=1000, seed=4)
+    res = gs.fit(exp, bootstrap=10, seed=3, workers=1, interval="normal")
+    assert {res.figures[n].interval_method for n in res.bootstrap.names} == {"normal"}
+    assert all(f.touches_boundary is None for f in res.figures.values())
+    default = gs.fit(exp, bootstrap=10, seed=3, workers=1)
+    assert default.figures["purity"].interval_method == "profile"

@@ -497,3 +497,21 @@ def test_a_file_without_kind_is_a_process(cz_fit, tmp_path):
     back = gs.Result(**result_file.read(path, verify=False))   # its layout is read as before
     assert back.kind == "process" and back.rho is None
     np.testing.assert_array_equal(back.choi, res.choi)
+
+
+def test_profile_intervals_bounds_and_the_boundary_flag_round_trip(tmp_path, make_experiment):
+    exp, _ = make_experiment("H", n_qubits=1, shots=1000, exact=True)
+    res = gs.fit(exp, interval="profile", lower_bound=True)
+    path = res.save(tmp_path / "r.h5")
+    with h5py.File(path, "r") as f:
+        ds = f["figures/process_fidelity"]
+        assert text(ds.attrs["ci_method"]) == "profile"
+        assert bool(ds.attrs["touches_boundary"]) is True
+        assert float(ds.attrs["lower_bound_level"]) == 0.95
+        assert "lower_bound" not in f["figures/trace"].attrs
+        assert "ci_method" not in f["figures/trace"].attrs
+    back = gs.load_result(path)
+    for name, fig in res.figures.items():
+        got = back.figures[name]
+        assert (got.ci, got.lower_bound, got.touches_boundary, got.interval_method) == \
+            (fig.ci, fig.lower_bound, fig.touches_boundary, fig.interval_method), name

@@ -159,3 +159,15 @@ def test_show_of_a_three_qubit_state_names_each_cut(make_state_experiment):
     for k in (1, 2, 3):
         assert f"negativity, qubit {k} | rest" in text
     assert "density matrix" not in text                   # printed up to two qubits only
+
+
+def test_show_states_a_perfect_gate_in_words(make_experiment):
+    exp, _ = make_experiment("H", n_qubits=1, shots=1000, exact=True)
+    res = gs.fit(exp, interval="profile", lower_bound=True)
+    text = summary(res)
+    assert ("process fidelity: the data are consistent with a perfect gate at 95% confidence; "
+            "the interval reaches 1 and is one-sided") in text
+    line = next(ln for ln in text.splitlines() if ln.strip().startswith("process fidelity"))
+    lb = res.figures["process_fidelity"].lower_bound
+    assert "profile likelihood" in line and f"lower bound {lb:.5f} (one-sided 95%)" in line
+    assert "profile-likelihood intervals: process fidelity, average gate fidelity" in text

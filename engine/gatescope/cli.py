@@ -53,7 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .bootstrap import KINDS
     from .conventions import GATE_NAMES
     from .estimators import METHODS
-    from .intervals import DEFAULT_INTERVAL, INTERVALS
+    from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS, INTERVALS
     from .synth.noise import spec_forms
     from .synth.state import STATE_NOISE_KINDS
 
@@ -69,8 +69,15 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--bootstrap", type=int, default=0, metavar="B", help="number of resamples for error bars")
     f.add_argument("--bootstrap-kind", choices=KINDS, default=KINDS[0])
     f.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL", help="confidence level (fraction)")
-    f.add_argument("--interval", choices=INTERVALS, default=DEFAULT_INTERVAL,
-                   help=f"bootstrap interval construction (default {DEFAULT_INTERVAL})")
+    f.add_argument("--interval", choices=FIT_INTERVALS, default=None,
+                   help="interval construction: a bootstrap one, or profile (profile likelihood "
+                        "for the fidelities and the purity, the bootstrap's "
+                        f"{DEFAULT_INTERVAL} for the rest); default: with an mle bootstrap, "
+                        "profile for the fidelities and the purity of a one-qubit process and "
+                        f"the purity of a two-qubit one, {DEFAULT_INTERVAL} for the rest")
+    f.add_argument("--lower-bound", action="store_true",
+                   help="also the one-sided profile-likelihood lower bound of the fidelities "
+                        "and the purity, at --ci-level")
     f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
     f.add_argument("--quiet", action="store_true",
@@ -279,7 +286,7 @@ def cmd_fit(args, command_line) -> int:
     check_fit_options(method=args.method, bootstrap=args.bootstrap,
                       bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
                       interval=args.interval, seed=args.seed, workers=args.workers,
-                      command_line=True)
+                      command_line=True, lower_bound=args.lower_bound)
     exp = read_experiment(args.experiment)
     out = Path(args.output) if args.output else exp.path.parent / "result.h5"
     check_output(out, force=args.force, inputs=tuple(input_files(exp.path).values()),
@@ -291,7 +298,7 @@ def cmd_fit(args, command_line) -> int:
                      bootstrap_kind=args.bootstrap_kind, ci_level=args.ci_level,
                      interval=args.interval, seed=args.seed, workers=args.workers,
                      progress=not (args.quiet or args.json), command_line=command_line,
-                     diamond=args.diamond)
+                     diamond=args.diamond, lower_bound=args.lower_bound)
     for w in caught:                               # the fit's own warnings are in the result
         if not issubclass(w.category, GatescopeWarning):
             _show_warning(w.message, w.category, w.filename, w.lineno)

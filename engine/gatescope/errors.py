@@ -105,6 +105,7 @@ WARNING_CODES = {
     "bias": "the bootstrap shows a bias larger than the spread",
     "diamond": "the diamond distance was skipped or is inaccurate",
     "chsh": "the largest CHSH value sits where it is not smooth: biased, its interval short",
+    "profile": "a profile-likelihood interval or bound could not be computed, or not exactly",
 }
 
 

@@ -68,6 +68,9 @@ def as_json(result: Result, path=None) -> dict:
             "level": _number(fig.level),
             "determined": bool(fig.determined),
             "in_range": _in_range(name, fig.value, dim),
+            "interval_method": fig.interval_method,
+            "lower_bound": _number(fig.lower_bound),
+            "touches_boundary": fig.touches_boundary,
         }
     gof = None
     dg = r.diagnostics

@@ -54,6 +54,9 @@ from .options import choice, fraction
 
 INTERVALS = ("percentile", "basic", "bc", "normal")
 DEFAULT_INTERVAL = "normal"
+#: The interval constructions `gatescope.fit` takes: the bootstrap ones and the
+#: profile likelihood (`gatescope.profile`, for the figures it covers).
+FIT_INTERVALS = INTERVALS + ("profile",)
 
 
 @dataclass
@@ -64,12 +67,24 @@ class Figure:
     ``determined`` is False for a figure the data do not determine (its value
     is the estimator's choice among processes that fit the data equally well,
     `gatescope.checks.undetermined_figures`).
+
+    ``interval_method`` names the construction of ``ci``: a bootstrap one of
+    `INTERVALS` or ``"profile"`` (`gatescope.profile`); None when unknown.
+    ``lower_bound`` is the one-sided lower confidence bound at ``level``
+    (profile likelihood), None when not computed. ``touches_boundary`` is True
+    when the top of the figure's range (F = 1: a perfect gate, or the target
+    state) lies inside the profile-likelihood interval at ``level`` — the data
+    are then consistent with it, and the interval is one-sided; None when no
+    profile was computed.
     """
 
     value: float
     ci: tuple[float, float] | None = None
     level: float | None = None
     determined: bool = True
+    interval_method: str | None = None
+    lower_bound: float | None = None
+    touches_boundary: bool | None = None
 
     def __float__(self) -> float:
         return float(self.value)

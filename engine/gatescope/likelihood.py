@@ -90,3 +90,69 @@ def deviance(counts: np.ndarray, expected: np.ndarray) -> float:
         terms = np.where(n > 0, n * np.log(np.where(n > 0, n, 1.0) / nu), 0.0) - (n - nu)
     return float(2.0 * np.sum(terms))
 
+
+class Tilt:
+    """A smooth term added to the log-likelihood: Re Tr(W J) + c·Tr(J²).
+
+    ``linear`` is a Hermitian matrix W of the shape of J (None for no linear
+    term) and ``quadratic`` the real coefficient c. The term is concave for
+    c ≤ 0. Its gradient, in the convention of `PoissonLikelihood.gradient`
+    (ℓ(J + Δ) ≈ ℓ(J) + Re Tr(G Δ) for Hermitian Δ), is W + 2c·J.
+    """
+
+    def __init__(self, linear: np.ndarray | None = None, quadratic: float = 0.0):
+        self.linear = None if linear is None else np.asarray(linear, dtype=complex)
+        self.quadratic = float(quadratic)
+
+    def value(self, choi: np.ndarray) -> float:
+        out = 0.0
+        if self.linear is not None:
+            out += float(np.vdot(self.linear, choi).real)
+        if self.quadratic:
+            out += self.quadratic * float(np.vdot(choi, choi).real)
+        return out
+
+    def gradient(self, choi: np.ndarray) -> np.ndarray:
+        grad = np.zeros(choi.shape, dtype=complex) if self.linear is None else self.linear.copy()
+        if self.quadratic:
+            grad += 2.0 * self.quadratic * choi
+        return grad
+
+
+@dataclass
+class TiltedEvaluation(Evaluation):
+    """An `Evaluation` of ℓ + tilt: ``log_likelihood`` holds the sum, ``tilt`` the
+    added term (ℓ alone is ``log_likelihood − tilt``), ``choi`` the point."""
+
+    tilt: float = 0.0
+    choi: np.ndarray | None = None
+
+
+class TiltedLikelihood:
+    """ℓ(J) + tilt(J): the objective of one point of a profile likelihood
+    (`gatescope.profile`).
+
+    Same interface as `PoissonLikelihood` (``evaluate``, ``gradient``,
+    ``intensities``, ``counts``, ``total_counts``, ``model``); every value and
+    gradient is the base one plus the `Tilt`'s.
+    """
+
+    def __init__(self, base: PoissonLikelihood, tilt: Tilt):
+        self.base = base
+        self.tilt = tilt
+        self.model = base.model
+        self.counts = base.counts
+        self.constant = base.constant
+        self.total_counts = base.total_counts
+
+    def intensities(self, probabilities: np.ndarray) -> np.ndarray:
+        return self.base.intensities(probabilities)
+
+    def evaluate(self, choi: np.ndarray, probabilities: np.ndarray | None = None):
+        ev = self.base.evaluate(choi, probabilities)
+        extra = self.tilt.value(choi)
+        return TiltedEvaluation(ev.log_likelihood + extra, ev.intensities, ev.probabilities,
+                                ev.weights, extra, choi)
+
+    def gradient(self, evaluation: TiltedEvaluation) -> np.ndarray:
+        return self.base.gradient(evaluation) + self.tilt.gradient(evaluation.choi)

@@ -27,17 +27,18 @@ from .bootstrap import check_options as check_bootstrap_options
 from .bootstrap import fit_p_value, run_bootstrap
 from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
-from .errors import collect_warnings, warn
+from .errors import InputError, NumericalError, collect_warnings, warn
 from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
-from .intervals import DEFAULT_INTERVAL
+from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS, parameter_range
 from .likelihood import PoissonLikelihood
 from .merit import chsh_gap_warning, compute_figures
 from .model import build_model
-from .options import flag, fraction, whole
+from .options import choice, flag, fraction, whole
 from .options import seed as check_seed
 from .options import workers as check_workers
 from .parallel import single_threaded_blas
+from .profile import PROFILED_FIGURES, profile_figures
 from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
 from .reader import Experiment, read_experiment
@@ -47,7 +48,8 @@ from .result import Result, build_result
 def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
                       bootstrap_kind: str = "parametric", ci_level: float = 0.95,
                       interval: str | None = None, seed=None, workers=None,
-                      options: dict | None = None, command_line: bool = False) -> None:
+                      options: dict | None = None, command_line: bool = False,
+                      lower_bound: bool = False) -> None:
     """Check every option of `fit` before any computation (InputError naming the option).
 
     With ``command_line`` the options are named by their flags (``--ci-level``).
@@ -56,12 +58,22 @@ def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
     check_estimator_options(method, options or {}, key=name("method"))
     bootstrap = whole(bootstrap, name("bootstrap"), 0)
     fraction(ci_level, name("ci_level"))
+    if interval is not None:
+        choice(interval, FIT_INTERVALS, name("interval"), "interval")
+    if (interval == "profile" or lower_bound) and method not in MAXIMUM_LIKELIHOOD:
+        raise InputError(f"profile-likelihood intervals and lower bounds are centred on the "
+                         f"maximum-likelihood estimate; use --method "
+                         f"{' or '.join(MAXIMUM_LIKELIHOOD)}, not {method}"
+                         if command_line else
+                         f"profile-likelihood intervals and lower bounds need a maximum-"
+                         f"likelihood method ({', '.join(MAXIMUM_LIKELIHOOD)}), not {method}",
+                         key=name("interval") if interval == "profile" else name("lower_bound"))
     check_seed(seed, name("seed"))            # recorded even without a bootstrap
     check_workers(workers, name("workers"))
     if bootstrap:
         check_bootstrap_options(
             samples=bootstrap, kind=bootstrap_kind, workers=workers,
-            interval=DEFAULT_INTERVAL if interval is None else interval, seed=seed,
+            interval=DEFAULT_INTERVAL if interval in (None, "profile") else interval, seed=seed,
             names={key: name(key) for key in ("bootstrap", "bootstrap_kind", "interval", "seed",
                                               "workers")})
 
@@ -69,7 +81,8 @@ def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
 def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         bootstrap_kind: str = "parametric", ci_level: float = 0.95, seed: int | None = None,
         workers: int | None = None, progress: bool = False, command_line: str | None = None,
-        diamond: bool = False, interval: str | None = None, **options) -> Result:
+        diamond: bool = False, interval: str | None = None, lower_bound: bool = False,
+        **options) -> Result:
     """Reconstruct the process (or the state) of an experiment and compute its figures of
     merit.
 
@@ -92,10 +105,22 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     progress : bool
         Report on stderr: the compilation of the numerical kernels on a first run
         (`COMPILE_NOTICE`), and the bootstrap's progress.
-    interval : {"normal", "percentile", "basic", "bc"}, optional
-        Construction of the bootstrap intervals (default
-        `gatescope.intervals.DEFAULT_INTERVAL`, "normal"; see
-        :mod:`gatescope.intervals` and benchmarks/README.md for why).
+    interval : {"normal", "percentile", "basic", "bc", "profile"}, optional
+        Construction of the intervals. A bootstrap one (`gatescope.intervals`)
+        applies to every bootstrapped figure. ``"profile"``: two-sided
+        profile-likelihood intervals (`gatescope.profile`, with or without a
+        bootstrap) for the figures it covers — ``process_fidelity``,
+        ``average_gate_fidelity``, ``purity``, and a state's
+        ``state_fidelity`` (pure target) and ``purity`` — and the bootstrap
+        interval `gatescope.intervals.DEFAULT_INTERVAL` for the others. Default
+        (None): the profile-likelihood interval for the figures `default_profiled`
+        names, the bootstrap's default for the rest. Each figure records its construction
+        (``Figure.interval_method``).
+    lower_bound : bool
+        Also compute the one-sided profile-likelihood lower confidence bound
+        at ``ci_level`` of the figures `gatescope.profile` covers
+        (``Figure.lower_bound``). Profile intervals and bounds need a
+        maximum-likelihood method and set ``Figure.touches_boundary``.
     diamond : bool
         Also compute the diamond distance to the target by a semidefinite
         program (needs cvxpy, the ``sdp`` extra; skipped with a warning
@@ -117,17 +142,78 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         For an unknown method, an option the estimator does not take, or a
         bad bootstrap option — before any computation.
     """
-    interval = DEFAULT_INTERVAL if interval is None else interval
     check_fit_options(method=method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
-                      options=options)
+                      options=options, lower_bound=lower_bound)
+    profiled = PROFILED_FIGURES if interval == "profile" else ()
+    if interval is None:
+        profiled = default_profiled(experiment, method, bootstrap)
+    if interval in (None, "profile"):
+        interval = DEFAULT_INTERVAL           # the bootstrap's, for every other figure
     with collect_warnings() as texts:
         result = _fit(experiment, method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, seed=seed, workers=workers, progress=progress,
                       command_line=command_line, diamond=diamond, interval=interval,
-                      options=options)
+                      options=options, lower_bound=lower_bound, profiled=profiled)
     result.warnings = tuple(texts)
     return result
+
+
+#: The figures of a process that a bootstrap of a maximum-likelihood fit gives the
+#: profile-likelihood interval by default, by number of qubits: where its coverage near a
+#: perfect gate was measured closer to the level than the bootstrap's normal interval
+#: (benchmarks/README.md, "Coverage near the boundary"). One qubit: the fidelities and the
+#: purity; two qubits: the purity (there the normal interval of the fidelities covered
+#: better). States, and larger processes, keep the normal interval (not measured).
+PROFILE_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity", "purity"),
+                   2: ("purity",)}
+
+
+def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tuple:
+    """The figures whose interval is the profile-likelihood one when `fit` is given no
+    ``interval``: `PROFILE_DEFAULT` for a bootstrapped maximum-likelihood fit of a
+    process, none otherwise (every figure then has the bootstrap's
+    `gatescope.intervals.DEFAULT_INTERVAL`)."""
+    if bootstrap and method in MAXIMUM_LIKELIHOOD and experiment.kind != "state":
+        return PROFILE_DEFAULT.get(experiment.n_qubits, ())
+    return ()
+
+
+def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
+                    lower_bound: bool) -> None:
+    """Set the profile-likelihood intervals of the figures named in ``interval``, the
+    lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
+    that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
+
+    Each interval and bound is widened, if need be, to reach the figure's value: the
+    profile's own maximum-likelihood fit (tighter than the point fit) may differ from
+    it by the fit's tolerance. A figure the data do not determine keeps no profile. A
+    search that fails or does not converge is a warning (code ``profile``).
+    """
+    names = None if lower_bound else tuple(interval)
+    try:
+        found = profile_figures(model, target, level=level, interval=bool(interval),
+                                lower_bound=lower_bound, names=names, start=point.choi)
+    except (RuntimeError, NumericalError, ArithmeticError) as exc:
+        warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
+        return
+    for name, prof in found.items():
+        fig = result.figures.get(name)
+        if fig is None or not fig.determined:
+            continue
+        parts = [p for p in (prof.interval, prof.lower) if p is not None]
+        if not all(p.converged for p in parts):
+            warn("profile", f"the profile-likelihood search for {name} stopped before it "
+                            f"converged: its interval may be inaccurate", stacklevel=2)
+        low, high = parameter_range(name, model.dim, model.kind)
+        if prof.interval is not None and name in interval:
+            fig.ci = (max(min(prof.interval.low, fig.value), low),
+                      min(max(prof.interval.high, fig.value), high))
+            fig.interval_method = "profile"
+        if prof.lower is not None:
+            fig.lower_bound = max(min(prof.lower.low, fig.value), low)
+        fig.level = float(level)
+        fig.touches_boundary = bool(prof.touches_boundary)
 
 
 #: The notice printed while the numerical kernels compile (README, "First run").
@@ -222,7 +308,7 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
 
 
 def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
-         command_line, diamond, interval, options) -> Result:
+         command_line, diamond, interval, options, lower_bound=False, profiled=()) -> Result:
     started = time.time()
     t0 = time.perf_counter()
     if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
@@ -280,4 +366,7 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
             text = chsh_gap_warning(details, float(np.nanstd(values, ddof=1)))
             if text:
                 warn("chsh", text, stacklevel=2)
+    if profiled or lower_bound:
+        attach_profiles(result, model, point, target, ci_level, interval=profiled,
+                        lower_bound=lower_bound)
     return result

@@ -125,6 +125,7 @@ class Result:
             fig.ci = interval(boot.figures[:, k], fig.value, ci_level, boot.interval,
                               parameter_range(name, dim, self.kind))
             fig.level = float(ci_level)
+            fig.interval_method = boot.interval
         self.bootstrap = boot
 
 

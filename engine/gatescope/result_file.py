@@ -25,7 +25,7 @@ from .diagnostics import Diagnostics
 from .errors import InputError
 from .estimators import METHODS
 from .fileio import atomic_path
-from .intervals import Figure
+from .intervals import FIT_INTERVALS, Figure
 from .conventions import pauli_labels
 from .merit import FIGURE_NAMES, STATE_FIGURE_ORDER
 
@@ -163,6 +163,13 @@ def _write(f: h5py.File, r) -> None:
             ds.attrs["ci_low"] = float(fig.ci[0])
             ds.attrs["ci_high"] = float(fig.ci[1])
             ds.attrs["ci_level"] = float(fig.level)
+        if fig.interval_method is not None:
+            ds.attrs["ci_method"] = str(fig.interval_method)
+        if fig.lower_bound is not None:
+            ds.attrs["lower_bound"] = float(fig.lower_bound)
+            ds.attrs["lower_bound_level"] = float(fig.level)
+        if fig.touches_boundary is not None:
+            ds.attrs["touches_boundary"] = bool(fig.touches_boundary)
     extra = f.create_group("figures_extra")
     for name, value in r.figure_details.items():
         if isinstance(value, np.ndarray):
@@ -573,7 +580,16 @@ def _read(c: _Checked, verify: bool) -> dict:
             ci = (c.attr(where, "ci_low", float), c.attr(where, "ci_high", float))
             level = c.attr(where, "ci_level", float)
         figures[name] = Figure(float(value), ci, level,
-                               determined=c.attr(where, "determined", bool, True))
+                               determined=c.attr(where, "determined", bool, True),
+                               interval_method=c.attr(where, "ci_method", str, None),
+                               lower_bound=c.attr(where, "lower_bound", float, None),
+                               touches_boundary=c.attr(where, "touches_boundary", bool, None))
+        if figures[name].interval_method not in (None,) + FIT_INTERVALS:
+            raise _Damaged(f"{where}/@ci_method",
+                           f"is {figures[name].interval_method!r}, expected one of "
+                           + ", ".join(FIT_INTERVALS))
+        if figures[name].lower_bound is not None and level is None:
+            figures[name].level = c.attr(where, "lower_bound_level", float)
 
     required = (("purity",) if state else ("purity", "trace", "min_eigenvalue")) + (
         (("state_fidelity",) if state else ("process_fidelity", "average_gate_fidelity"))

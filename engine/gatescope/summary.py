@@ -113,14 +113,36 @@ def _signed(x: float) -> str:
 
 
 def _fmt_figure(fig) -> str:
+    bound = ("" if fig.lower_bound is None else
+             f"; lower bound {_num(fig.lower_bound)} (one-sided {100 * fig.level:g}%)")
     if fig.ci is None:
-        return _num(fig.value)
+        return _num(fig.value) + bound
     lo, hi = fig.ci
     if abs(hi - lo) < 5e-13:           # fixed by a constraint (e.g. trace of a TP map)
-        return f"{_num(fig.value)}  (no spread) at {100 * fig.level:g}%"
+        return f"{_num(fig.value)}  (no spread) at {100 * fig.level:g}%" + bound
+    how = " profile likelihood" if fig.interval_method == "profile" else ""
     # value with the distances to the interval ends, then the interval itself
     return (f"{_num(fig.value)} {_signed(hi - fig.value)} {_signed(lo - fig.value)}  "
-            f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%")
+            f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%{how}" + bound)
+
+
+#: What the top of a figure's range means, for `boundary_lines`.
+_TOP = {"process_fidelity": "a perfect gate", "average_gate_fidelity": "a perfect gate",
+        "state_fidelity": "the target state exactly", "purity": None}
+
+
+def boundary_lines(r: Result) -> list[str]:
+    """In words, for every figure whose profile-likelihood interval reaches the top of its
+    range (``Figure.touches_boundary``): what the data are consistent with."""
+    out = []
+    for name, fig in r.figures.items():
+        if not fig.touches_boundary:
+            continue
+        what = _TOP.get(name) or ("a pure state" if r.kind == "state" else "a pure process")
+        label = _label(name, r.kind == "state")
+        out.append(f"  {label}: the data are consistent with {what} at {100 * fig.level:g}% "
+                   f"confidence; the interval reaches 1 and is one-sided")
+    return out
 
 
 def title_of(r: Result) -> str:
@@ -194,6 +216,10 @@ def summary(result: Result, *, source: str | None = None) -> str:
         errors = f", {b.errors} raised an error" if b.errors else ""
         lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
                      f"seed {b.seed}; {b.failures} did not converge{errors})")
+    profiled = [_label(k, state) for k, f in r.figures.items() if f.interval_method == "profile"]
+    if profiled:
+        lines.append(f"  (profile-likelihood intervals: {', '.join(profiled)})")
+    lines.extend(boundary_lines(r))
     if state:
         lines.extend(_density_matrix(r))
     lines.append("")
@@ -395,6 +421,7 @@ def fit_summary(result: Result, path) -> str:
     shown = [k for k in main if k in r.figures] or list(r.figures)[:4]
     for name in shown:
         lines.append(_figure_line(name, r.figures[name], dim, r.kind))
+    lines.extend(boundary_lines(r))
     fit = f"  fit: {r.method}, {_status_text(r).split(' (')[0]}"
     dg = r.diagnostics
     if dg is not None and dg.bootstrap_decides:

@@ -41,15 +41,16 @@ MAXIMUM_LIKELIHOOD = ("mle", "mle-pg")
 def check_options(method: str, options: dict, *, key: str = "method") -> None:
     """InputError unless ``method`` is registered and takes every option in ``options``.
 
-    ``counts`` and ``start`` are set by the callers (the bootstrap), not by users.
+    ``counts`` and ``start`` are set by the callers (the bootstrap), not by users, and
+    ``tilt`` by the profile likelihood (`gatescope.profile`).
     """
     choice(method, METHODS, key, "method")
     accepted = inspect.signature(ESTIMATORS[method]).parameters
     for name in options:
-        if name in ("counts", "start") or name not in accepted or name == "model":
+        if name in ("counts", "start", "tilt") or name not in accepted or name == "model":
             raise InputError(f"the {method} estimator has no option {name!r}; its options: "
                              + ", ".join(p for p in accepted if p not in ("model", "counts",
-                                                                          "start")),
+                                                                          "start", "tilt")),
                              key=name)
 
 

@@ -17,7 +17,7 @@ import time
 import numpy as np
 
 from ..errors import NumericalError
-from ..likelihood import PoissonLikelihood
+from ..likelihood import PoissonLikelihood, Tilt, TiltedLikelihood
 from ..model import MeasurementModel, StateModel
 from ..projection import project_physical
 from .base import Fit
@@ -38,7 +38,7 @@ START_MIXTURES = (1e-2, 1e-1, 1.0)
 
 def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
             tol: float = 1e-10, maxiter: int = 3000, opt_tol: float = 1e-4, mix: float = 1e-3,
-            proj_tol: float = 1e-9, proj_maxiter: int = 100) -> Fit:
+            proj_tol: float = 1e-9, proj_maxiter: int = 100, tilt: Tilt | None = None) -> Fit:
     """Poisson maximum likelihood over CPTP maps, or over density matrices for a state
     model (accelerated projected gradient).
 
@@ -67,6 +67,11 @@ def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
         Fraction of the model's centre mixed into the start.
     proj_tol, proj_maxiter : float, int
         Tolerance and iteration limit of the inner projections.
+    tilt : likelihood.Tilt, optional
+        Maximise ℓ(J) + tilt(J) instead of ℓ(J) (one point of a profile
+        likelihood, `gatescope.profile`). The returned ``log_likelihood`` is
+        ℓ alone at the maximiser; ``info["objective"]`` is ℓ + tilt there.
+        Without a tilt the computation is unchanged.
 
     Raises
     ------
@@ -83,6 +88,8 @@ def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
     """
     t0 = time.perf_counter()
     lik = PoissonLikelihood(model, counts)
+    if tilt is not None:
+        lik = TiltedLikelihood(lik, tilt)
     if start is None:
         pls = fit_pls(model, counts=counts)
         start, mult = pls.choi, pls.info["multiplier"]
@@ -164,7 +171,11 @@ def fit_mle(model: MeasurementModel | StateModel, *, counts=None, start=None,
             stop_reason = "relative likelihood change and optimality residual below tolerance"
             break
         step *= STEP_GROWTH
-    return Fit("mle-pg", x, ev_x.intensities, ev_x.log_likelihood, converged, it, stop_reason,
-               time.perf_counter() - t0,
-               {"optimality_residual": float(residual), "restarts": restarts,
-                "projections": n_proj, "multiplier": mult})
+    info = {"optimality_residual": float(residual), "restarts": restarts,
+            "projections": n_proj, "multiplier": mult}
+    log_likelihood = ev_x.log_likelihood
+    if tilt is not None:
+        info["objective"] = log_likelihood
+        log_likelihood = log_likelihood - ev_x.tilt
+    return Fit("mle-pg", x, ev_x.intensities, log_likelihood, converged, it, stop_reason,
+               time.perf_counter() - t0, info)

@@ -1,0 +1,365 @@
+"""Profile-likelihood intervals (gatescope.profile) and the tilted fit behind them.
+
+Outside references:
+- cvxpy (Diamond & Boyd, J. Mach. Learn. Res. 17, 1 (2016)) as a generic convex
+  solver: the profile at a value f is the maximum of the Poisson log-likelihood over
+  CPTP maps (or density matrices) with the figure fixed at f, solved here directly
+  with that equality constraint (solver SCS, O'Donoghue et al., J. Optim. Theory Appl.
+  169, 1042 (2016)).
+- The Kraus-operator formula of the process fidelity, F_pro = Σ_k |Tr(U†K_k)|²/d²
+  (Nielsen, Phys. Lett. A 303, 249 (2002)).
+- χ²₁ quantiles from scipy.stats (common practice).
+
+With per-preparation normalisation, complete analyser bases and no background, the
+profiled Poisson log-likelihood is Σ_k n_k log p_k(J) plus a constant (the fitted
+intensities do not depend on J), so the reference problems below maximise
+Σ_k n_k log p_k over the physical set with the figure fixed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.stats import chi2
+
+from gatescope.channels import kraus_from_choi
+from gatescope.conventions import named_gate
+from gatescope.estimators import fit_mle
+from gatescope.likelihood import PoissonLikelihood, Tilt
+from gatescope.merit.process import average_gate_fidelity, process_fidelity
+from gatescope.model import build_model
+from gatescope.profile import (FIT_OPTIONS, Profile, average_gate_fidelity_figure,
+                               named_figure, one_sided_cutoff, process_fidelity_figure,
+                               profile_figures, profiled_names, purity_figure,
+                               state_fidelity_figure, two_sided_cutoff)
+from gatescope.synth.noise import random_channel
+
+SCS_TIGHT = dict(eps_abs=1e-9, eps_rel=1e-9, max_iters=200_000)
+#: The deviance at a computed end equals the cutoff to the search's tolerance
+#: (profile.DEVIANCE_TOL = 1e−3) plus the re-search of `deviance_at`.
+END_TOL = 5e-3
+
+
+# --------------------------------------------------------------------------
+# The tilted fit
+# --------------------------------------------------------------------------
+
+def test_zero_tilt_gives_the_untilted_fit_exactly(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.01", shots=500, seed=3, n_qubits=1)
+    model = build_model(exp)
+    plain = fit_mle(model)
+    for tilt in (Tilt(), Tilt(linear=np.zeros((4, 4))), Tilt(quadratic=0.0)):
+        tilted = fit_mle(model, tilt=tilt)
+        assert np.array_equal(tilted.choi, plain.choi)
+        assert tilted.log_likelihood == plain.log_likelihood
+        assert tilted.iterations == plain.iterations
+        assert tilted.info["objective"] == plain.log_likelihood
+
+
+def test_tilted_fit_reports_the_untilted_likelihood(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.01", shots=500, seed=3, n_qubits=1)
+    model = build_model(exp)
+    fig = process_fidelity_figure(exp.target)
+    fit = fit_mle(model, tilt=fig.tilt(-2000.0))
+    lik = PoissonLikelihood(model).evaluate(fit.choi).log_likelihood
+    assert fit.log_likelihood == pytest.approx(lik, abs=1e-9)
+    assert fit.info["objective"] == pytest.approx(lik - 2000.0 * fig.value(fit.choi), abs=1e-6)
+    # the tilt pulls the fidelity down from the estimate's
+    assert fig.value(fit.choi) < fig.value(fit_mle(model).choi)
+
+
+def test_tilt_is_not_a_user_option():
+    from gatescope.errors import InputError
+    from gatescope.estimators import check_options
+
+    with pytest.raises(InputError):
+        check_options("mle-pg", {"tilt": Tilt()})
+
+
+# --------------------------------------------------------------------------
+# The figures as linear (and quadratic) functions of J
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("n,gate", [(1, "H"), (1, "S"), (2, "CZ"), (2, "CNOT")])
+def test_figure_operators_give_the_figures(n, gate):
+    u = named_gate(gate)
+    d = 2 ** n
+    for seed, rank in ((1, 1), (2, 2), (3, d * d)):
+        J = random_channel(n, rank, seed=seed)
+        f_pro = process_fidelity_figure(u).value(J)
+        # Nielsen, Phys. Lett. A 303, 249 (2002): F_pro = Σ_k |Tr(U†K_k)|²/d²
+        assert f_pro == pytest.approx(sum(abs(np.trace(u.conj().T @ k)) ** 2
+                                          for k in kraus_from_choi(J)) / d ** 2, abs=1e-12)
+        assert f_pro == pytest.approx(process_fidelity(J, u), abs=1e-14)
+        assert average_gate_fidelity_figure(u).value(J) == pytest.approx(
+            average_gate_fidelity(J, u), abs=1e-14)
+        rho = J / d          # the normalised Choi state of a trace-preserving map
+        assert purity_figure(d).value(J) == pytest.approx(np.trace(rho @ rho).real, abs=1e-12)
+
+
+def test_state_figures():
+    rng = np.random.default_rng(4)
+    psi = rng.normal(size=4) + 1j * rng.normal(size=4)
+    psi /= np.linalg.norm(psi)
+    g = rng.normal(size=(4, 4)) + 1j * rng.normal(size=(4, 4))
+    rho = g @ g.conj().T
+    rho /= np.trace(rho).real
+    # <ψ|ρ|ψ> for a pure target, given as a ket or as its projector
+    for target in (psi, np.outer(psi, psi.conj())):
+        assert state_fidelity_figure(target).value(rho) == pytest.approx(
+            (psi.conj() @ rho @ psi).real, abs=1e-13)
+    assert purity_figure(4, "state").value(rho) == pytest.approx(np.trace(rho @ rho).real,
+                                                                 abs=1e-13)
+    with pytest.raises(ValueError):
+        state_fidelity_figure(np.eye(4) / 4)       # mixed target: not linear
+
+
+def test_cutoffs_are_chi2_quantiles():
+    # scipy.stats.chi2 (common practice): χ²₁ at 0.95 is 3.8415, at 0.90 2.7055
+    assert two_sided_cutoff(0.95) == pytest.approx(chi2.ppf(0.95, 1), rel=1e-12)
+    assert one_sided_cutoff(0.95) == pytest.approx(chi2.ppf(0.90, 1), rel=1e-12)
+    assert two_sided_cutoff(0.99) == pytest.approx(chi2.ppf(0.99, 1), rel=1e-12)
+
+
+# --------------------------------------------------------------------------
+# The profile against a generic convex solver
+# --------------------------------------------------------------------------
+
+def reduced_log_likelihood(model, J) -> float:
+    """Σ_k n_k log p_k(J) over rows with counts."""
+    n = np.asarray(model.counts, dtype=float)
+    p = model.forward(J)
+    keep = n > 0
+    return float(n[keep] @ np.log(p[keep]))
+
+
+def process_design(exp) -> np.ndarray:
+    """Rows a_k with a_k · vec_F(J) = Tr[(ρ_k^T ⊗ E_k) J] (vec_F: column stacking),
+    from the experiment's preparation states and analyser effects."""
+    rows = []
+    for pi, mi in zip(exp.prep_index, exp.meas_index):
+        m = np.kron(exp.prep_states[pi].T, exp.meas_effects[mi])
+        rows.append(m.T.reshape(-1, order="F"))
+    return np.array(rows)
+
+
+def cvxpy_constrained_max(exp, figure, value):
+    """max Σ n log p over CPTP J with the figure equal to ``value`` (a linear figure) or
+    the purity at most ``value`` (its lower side, where that bound is active)."""
+    import cvxpy as cp
+
+    d = exp.dim
+    n = np.asarray(exp.counts, dtype=float)
+    keep = n > 0
+    a = process_design(exp)[keep]
+    J = cp.Variable((d * d, d * d), hermitian=True)
+    p = cp.real(a @ cp.vec(J, order="F"))
+    constraints = [J >> 0, cp.partial_trace(J, [d, d], axis=1) == np.eye(d)]
+    if figure.quadratic:
+        constraints.append(cp.sum_squares(cp.real(J)) + cp.sum_squares(cp.imag(J))
+                           <= value / figure.scale)
+    else:
+        constraints.append(cp.real(cp.trace(figure.operator @ J)) == value)
+    problem = cp.Problem(cp.Maximize(n[keep] @ cp.log(p)), constraints)
+    problem.solve(solver="SCS", **SCS_TIGHT)
+    assert problem.status in ("optimal", "optimal_inaccurate"), problem.status
+    return problem.value
+
+
+@pytest.mark.parametrize("name", ["process_fidelity", "average_gate_fidelity", "purity"])
+def test_one_qubit_profile_matches_cvxpy(make_experiment, name):
+    pytest.importorskip("cvxpy")
+    exp, _ = make_experiment("H+depolarizing:0.03", shots=400, seed=11, n_qubits=1)
+    model = build_model(exp)
+    figure = named_figure(name, exp.target, 2)
+    prof = Profile(model, figure)
+    est = prof.estimate
+    # points on both sides (purity: below its estimate, where the problem is convex)
+    mus = (-1500.0, -300.0) if figure.quadratic else (-600.0, -150.0, 150.0, 600.0)
+    for mu in mus:
+        point = prof.at(mu)
+        assert point.converged
+        assert np.sign(point.value - est) == np.sign(mu)
+        ours = reduced_log_likelihood(model, point.choi)
+        # cvxpy as generic convex solver: the constrained maximum at the same value
+        ref = cvxpy_constrained_max(exp, figure, point.value)
+        # a profile point is feasible, so ours ≤ ref up to SCS's tolerance; and it is the
+        # maximum: equal within the solvers' stopping rules
+        assert ours == pytest.approx(ref, abs=2e-4), (mu, point.value)
+
+
+def test_state_fidelity_profile_matches_cvxpy(make_state_experiment):
+    cp = pytest.importorskip("cvxpy")
+    exp, _ = make_state_experiment("psi-+depolarizing:0.05", shots=300, seed=4)
+    model = build_model(exp)
+    figure = named_figure("state_fidelity", exp.target_state, model.dim, "state")
+    prof = Profile(model, figure)
+    for mu in (-400.0, 400.0):
+        point = prof.at(mu)
+        assert point.converged
+        ours = reduced_log_likelihood(model, point.choi)
+        # cvxpy as generic convex solver: max Σ n log p(ρ) over density matrices with
+        # <ψ|ρ|ψ> fixed; p(ρ) through the model's own forward map, column by column
+        d = model.dim
+        n = np.asarray(model.counts, dtype=float)
+        keep = n > 0
+        basis = []
+        for k in range(d * d):
+            e = np.zeros(d * d, dtype=complex)
+            e[k] = 1.0
+            basis.append(model.forward(e.reshape(d, d, order="F")))
+        a_re = np.array(basis).T[keep]
+        basis_i = []
+        for k in range(d * d):
+            e = np.zeros(d * d, dtype=complex)
+            e[k] = 1j
+            basis_i.append(model.forward(e.reshape(d, d, order="F")))
+        a_im = np.array(basis_i).T[keep]
+        rho = cp.Variable((d, d), hermitian=True)
+        v = cp.vec(rho, order="F")
+        p = a_re @ cp.real(v) + a_im @ cp.imag(v)
+        problem = cp.Problem(cp.Maximize(n[keep] @ cp.log(p)),
+                             [rho >> 0, cp.real(cp.trace(rho)) == 1,
+                              cp.real(cp.trace(figure.operator @ rho)) == point.value])
+        problem.solve(solver="SCS", **SCS_TIGHT)
+        assert ours == pytest.approx(problem.value, abs=2e-4), (mu, point.value)
+
+
+# --------------------------------------------------------------------------
+# Intervals
+# --------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def near_unitary(tmp_path_factory):
+    from support import simulated_experiment
+    exp, truth = simulated_experiment(tmp_path_factory.mktemp("nu"), "H+depolarizing:0.004",
+                                      shots=1000, seed=8, n_qubits=1)
+    model = build_model(exp)
+    return exp, model, fit_mle(model, **FIT_OPTIONS)
+
+
+@pytest.mark.parametrize("name", ["process_fidelity", "average_gate_fidelity", "purity"])
+def test_interval_contains_the_estimate_and_its_ends_sit_at_the_cutoff(near_unitary, name):
+    exp, model, mle = near_unitary
+    prof = Profile(model, named_figure(name, exp.target, 2), mle=mle)
+    two = prof.interval(0.95)
+    low = prof.lower_bound(0.95)
+    # the lower bound lies between the two-sided lower end and the estimate
+    assert two.low < low.low < two.estimate < two.high <= 1.0
+    # the deviance at the ends, recomputed by a search on the figure's value
+    assert prof.deviance_at(two.low) == pytest.approx(chi2.ppf(0.95, 1), abs=END_TOL)
+    assert prof.deviance_at(low.low) == pytest.approx(chi2.ppf(0.90, 1), abs=END_TOL)
+    if two.high < 1.0:
+        assert prof.deviance_at(two.high) == pytest.approx(chi2.ppf(0.95, 1), abs=END_TOL)
+    assert prof.deviance_at(0.5 * (two.low + two.estimate)) < chi2.ppf(0.95, 1)
+    assert two.converged and low.converged
+    # purity above its estimate is a non-concave search; every other end is exact
+    assert two.exact == (name != "purity") and low.exact
+
+
+def test_average_gate_fidelity_interval_is_the_image_of_the_process_fidelity_one(near_unitary):
+    # F_avg = (d F_pro + 1)/(d + 1) for trace-preserving maps (Horodecki, Horodecki &
+    # Horodecki, PRA 60, 1888 (1999); Nielsen, Phys. Lett. A 303, 249 (2002)), and a
+    # profile-likelihood interval does not depend on the parametrisation
+    exp, model, mle = near_unitary
+    pro = Profile(model, process_fidelity_figure(exp.target), mle=mle).interval(0.95)
+    avg = Profile(model, average_gate_fidelity_figure(exp.target), mle=mle).interval(0.95)
+    image = lambda f: (2 * f + 1) / 3          # noqa: E731
+    assert avg.low == pytest.approx(image(pro.low), abs=1e-6)
+    assert avg.high == pytest.approx(image(pro.high), abs=1e-6)
+
+
+@pytest.fixture(scope="module")
+def perfect_data(tmp_path_factory):
+    # counts equal to the expected counts of the ideal gate: no count where the gate
+    # predicts none, so the estimate is the target itself (F = 1 to rounding)
+    from support import simulated_experiment
+    exp, truth = simulated_experiment(tmp_path_factory.mktemp("pd"), "H", shots=1000, seed=1,
+                                      n_qubits=1, exact=True)
+    model = build_model(exp)
+    return exp, model, fit_mle(model, **FIT_OPTIONS)
+
+
+@pytest.mark.parametrize("name", ["process_fidelity", "average_gate_fidelity"])
+def test_estimate_on_the_boundary(perfect_data, name):
+    exp, model, mle = perfect_data
+    prof = Profile(model, named_figure(name, exp.target, 2), mle=mle)
+    assert prof.estimate == pytest.approx(1.0, abs=1e-9)
+    assert prof.edge_deviance(+1) == pytest.approx(0.0, abs=1e-6)
+    assert prof.consistent_with_top(0.95)
+    two = prof.interval(0.95)
+    low = prof.lower_bound(0.95)
+    assert two.high == 1.0 and two.touches_boundary
+    assert two.low < low.low < 1.0
+    # one-sided bound at D = z²_{0.95}, two-sided end at D = χ²₁(0.95), measured from F = 1
+    assert prof.deviance_at(low.low) == pytest.approx(chi2.ppf(0.90, 1), abs=END_TOL)
+    assert prof.deviance_at(two.low) == pytest.approx(chi2.ppf(0.95, 1), abs=END_TOL)
+
+
+def test_purity_on_the_boundary(perfect_data):
+    exp, model, mle = perfect_data
+    prof = Profile(model, purity_figure(2), mle=mle)
+    assert prof.estimate == pytest.approx(1.0, abs=1e-9)
+    two = prof.interval(0.95)
+    assert two.high == pytest.approx(1.0, abs=1e-9) and two.touches_boundary
+    assert prof.deviance_at(two.low) == pytest.approx(chi2.ppf(0.95, 1), abs=END_TOL)
+
+
+def test_far_from_the_boundary_the_flag_is_off(near_unitary):
+    exp, model, mle = near_unitary
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    # F = 0.997 with about 1.8e4 counts: F = 1 lies many standard errors away
+    assert prof.edge_deviance(+1) > chi2.ppf(0.95, 1)
+    assert prof.consistent_with_top(0.95) is False
+    assert not prof.interval(0.95).touches_boundary
+
+
+def test_profile_needs_a_trace_preserving_model_for_purity(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.01", shots=200, seed=3, n_qubits=1)
+    model = build_model(exp)
+    model.trace_decreasing = True
+    with pytest.raises(ValueError):
+        Profile(model, purity_figure(2))
+    assert "purity" not in profiled_names(model, exp.target)
+
+
+def test_profile_figures_of_a_state(make_state_experiment):
+    exp, rho = make_state_experiment("psi-+depolarizing:0.02", shots=500, seed=7)
+    model = build_model(exp)
+    found = profile_figures(model, exp.target_state, interval=True, lower_bound=True)
+    assert set(found) == {"state_fidelity", "purity"}
+    for prof in found.values():
+        assert prof.interval.low <= prof.lower.low <= prof.estimate <= prof.interval.high
+
+
+def test_named_figure_rejects_unknown_names():
+    with pytest.raises(ValueError):
+        named_figure("unitarity", named_gate("H"), 2)
+    with pytest.raises(ValueError):
+        named_figure("process_fidelity", None, 2)
+
+
+@pytest.mark.slow
+def test_coverage_far_from_the_boundary(tmp_path):
+    # Wilks, Ann. Math. Stat. 9, 60 (1938): for a truth in the interior the deviance at the
+    # truth tends to χ²₁, so the 95% two-sided interval covers 95% of the time and the 95%
+    # lower bound holds 95% of the time. 200 one-qubit experiments at F = 0.95 with 1000
+    # counts per basis; the binomial standard error of a coverage of 0.95 over 200 is 0.015,
+    # and the check allows three of them.
+    from gatescope.estimators import estimate
+    from support import simulated_experiment
+
+    n, hits, held = 200, 0, 0
+    for seed in range(n):
+        exp, truth = simulated_experiment(tmp_path / f"e{seed}", "H+depolarizing:0.0667",
+                                          shots=1000, seed=seed, n_qubits=1)
+        model = build_model(exp)
+        f0 = process_fidelity_figure(exp.target).value(truth)
+        point = estimate(model, "mle")
+        prof = profile_figures(model, exp.target, interval=True, lower_bound=True,
+                               names=("process_fidelity",), start=point.choi)["process_fidelity"]
+        hits += prof.interval.low <= f0 <= prof.interval.high
+        held += prof.lower.low <= f0
+    se = np.sqrt(0.95 * 0.05 / n)
+    assert abs(hits / n - 0.95) <= 3 * se, hits / n
+    assert abs(held / n - 0.95) <= 3 * se, held / n
