@@ -79,3 +79,34 @@ def test_a_file_without_checksums_says_so(tmp_path):
         f.attrs["x"] = 1
     with h5py.File(tmp_path / "f.h5", "r") as f:
         assert checksum.verify(f) == [("/checksums", "missing: the file carries no checksums")]
+
+
+def _collections(data: bytes):
+    """(offset, size) of every global heap collection, found by its signature."""
+    out, at = [], data.find(b"GCOL\x01\x00\x00\x00")
+    while at >= 0:
+        out.append((at, int.from_bytes(data[at + 8:at + 16], "little")))
+        at = data.find(b"GCOL\x01\x00\x00\x00", at + 1)
+    return out
+
+
+def test_a_damaged_global_heap_is_found_before_the_library_reads_it(tmp_path, cz_result):
+    import gatescope as gs
+
+    good = cz_result[1]
+    data = bytearray(good.read_bytes())
+    assert checksum.heap_damage(bytes(data)) is None
+    # the layout of a global heap collection (HDF5 File Format Specification 3.0,
+    # section III.E): a 16-byte header with the collection size, objects with a 16-byte
+    # header (index, reference count, reserved, size) and data padded to 8 bytes, the free
+    # space (index 0) last, reaching the end of the collection
+    start, size = max(_collections(bytes(data)), key=lambda c: c[1])
+    first = start + 16
+    assert int.from_bytes(data[first:first + 2], "little") != 0      # an object, not free space
+    object_size = int.from_bytes(data[first + 8:first + 16], "little")
+    data[first + 8:first + 16] = (object_size + 8).to_bytes(8, "little")   # one word longer
+    bad = tmp_path / "bad.h5"
+    bad.write_bytes(bytes(data))
+    assert checksum.heap_damage(bytes(data)) is not None
+    with pytest.raises(gs.InputError, match="global heap"):
+        gs.load_result(bad)

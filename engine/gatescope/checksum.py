@@ -24,7 +24,10 @@ library's layout choices and name the part that changed. The definition
   SHA-256 of the table's lines joined by newlines (UTF-8).
 
 `verify` recomputes every digest and names each part that differs, is
-missing or was added.
+missing or was added. `heap_damage` checks, before the HDF5 library reads
+anything, the one structure it trusts blindly: the collections of its
+global heap, where variable-length text (attributes and text datasets) is
+kept; a damaged object size there makes the library loop instead of fail.
 """
 
 from __future__ import annotations
@@ -34,6 +37,15 @@ import struct
 
 import h5py
 import numpy as np
+
+#: The signature and version of a global heap collection (HDF5 File Format Specification,
+#: version 3.0, section III.E "Global Heap"): "GCOL", version 1, three reserved bytes, the
+#: collection's size (8 bytes with the default length size), then its objects, each with a
+#: 16-byte header (index 2, reference count 2, reserved 4, size 8) and its data padded to a
+#: multiple of 8; the object of index 0 is the free space and ends the list.
+_HEAP_HEADER = b"GCOL\x01\x00\x00\x00"
+#: The smallest collection the library writes (same section).
+_HEAP_MIN_SIZE = 4096
 
 TABLE = "checksums"
 TABLE_ATTRIBUTE = "checksums_sha256"
@@ -117,6 +129,37 @@ def write(f: h5py.File) -> None:
     lines = [f"{digest} {path}" for path, digest in sorted(digests(f).items())]
     f.create_dataset(TABLE, data=np.array(lines, dtype=object), dtype=_STR)
     f.attrs[TABLE_ATTRIBUTE] = _table_hash(lines)
+
+
+def heap_damage(data) -> int | None:
+    """The byte offset of the first global heap object whose size does not fit in its
+    collection, or None when every collection is consistent.
+
+    ``data`` is the file's bytes (bytes or an mmap). A candidate collection is a
+    `_HEAP_HEADER` with a size of at least `_HEAP_MIN_SIZE` that fits in the file; its
+    objects are walked from the first to the free-space object (index 0), which must
+    end exactly where the collection ends (its size counts its header). A candidate
+    whose size is implausible is not a collection of this file and is skipped.
+    """
+    at = data.find(_HEAP_HEADER)
+    while at >= 0:
+        size = int.from_bytes(data[at + 8:at + 16], "little")
+        end = at + size
+        if _HEAP_MIN_SIZE <= size and end <= len(data):
+            offset = at + 16
+            while offset + 16 <= end:
+                index = int.from_bytes(data[offset:offset + 2], "little")
+                object_size = int.from_bytes(data[offset + 8:offset + 16], "little")
+                if index == 0:                   # free space: exactly the rest of the collection
+                    if offset + object_size != end:
+                        return offset
+                    break
+                next_offset = offset + 16 + (object_size + 7) // 8 * 8
+                if next_offset > end:
+                    return offset
+                offset = next_offset
+        at = data.find(_HEAP_HEADER, at + 1)
+    return None
 
 
 def verify(f: h5py.File) -> list[tuple[str, str]]:

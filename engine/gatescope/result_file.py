@@ -13,6 +13,7 @@ import cycle.
 
 from __future__ import annotations
 
+import mmap
 import re
 from pathlib import Path
 
@@ -392,6 +393,11 @@ def _open(path: Path) -> h5py.File:
         raise InputError(f"cannot read file: {exc.strerror}", file=shown) from None
     if start != HDF5_SIGNATURE:
         raise InputError("not an HDF5 file (it does not start with the HDF5 signature)", file=shown)
+    with open(path, "rb") as fh, mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) as data:
+        damaged_at = checksum.heap_damage(data)
+    if damaged_at is not None:
+        raise InputError(f"a damaged HDF5 file: its store of texts (global heap) is damaged at "
+                         f"byte {damaged_at}", file=shown)
     try:
         return h5py.File(path, "r")
     except (OSError, ValueError, RuntimeError) as exc:

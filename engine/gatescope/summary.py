@@ -131,18 +131,18 @@ _TOP = {"process_fidelity": "a perfect gate", "average_gate_fidelity": "a perfec
         "state_fidelity": "the target state exactly", "purity": None}
 
 
+def boundary_text(name: str, fig, kind: str) -> str:
+    """In words, for a figure whose profile-likelihood interval reaches the top of its range
+    (``Figure.touches_boundary``): what the data are consistent with."""
+    what = _TOP.get(name) or ("a pure state" if kind == "state" else "a pure process")
+    return (f"the data are consistent with {what} at {100 * fig.level:g}% confidence; the "
+            "interval reaches 1 and is one-sided")
+
+
 def boundary_lines(r: Result) -> list[str]:
-    """In words, for every figure whose profile-likelihood interval reaches the top of its
-    range (``Figure.touches_boundary``): what the data are consistent with."""
-    out = []
-    for name, fig in r.figures.items():
-        if not fig.touches_boundary:
-            continue
-        what = _TOP.get(name) or ("a pure state" if r.kind == "state" else "a pure process")
-        label = _label(name, r.kind == "state")
-        out.append(f"  {label}: the data are consistent with {what} at {100 * fig.level:g}% "
-                   f"confidence; the interval reaches 1 and is one-sided")
-    return out
+    """`boundary_text` of every figure that touches the top of its range, one line each."""
+    return [f"  {_label(name, r.kind == 'state')}: {boundary_text(name, fig, r.kind)}"
+            for name, fig in r.figures.items() if fig.touches_boundary]
 
 
 def title_of(r: Result) -> str:

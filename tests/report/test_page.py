@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import shutil
+import warnings
 import subprocess
 
 import h5py
 import pytest
-from support import MISCALIBRATED_MEAS, check_self_contained_page
+from support import MISCALIBRATED_MEAS, check_self_contained_page, simulated_experiment
 
 import gatescope as gs
 from gatescope.report.page import MAX_ROWS_LISTED, report_html
@@ -142,3 +143,20 @@ def test_a_headless_browser_renders_the_report(boot_result, tmp_path):
                          text=True, timeout=120)
     assert dom.returncode == 0 and "<h2 id=\"summary\">Summary</h2>" in dom.stdout
     assert dom.stdout.count("<img ") == 5                     # every image element survived
+
+
+def test_profile_intervals_lower_bounds_and_the_boundary_are_shown(tmp_path):
+    # counts equal to an ideal Hadamard's expected counts: the estimate is the target, so
+    # the profile-likelihood interval of the process fidelity reaches F = 1
+    exp, _ = simulated_experiment(tmp_path / "perfect", "H", n_qubits=1, shots=1000, exact=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = gs.fit(exp, bootstrap=20, seed=2, workers=1, lower_bound=True)
+    assert r.figures["process_fidelity"].interval_method == "profile"
+    assert r.figures["process_fidelity"].touches_boundary
+    text = report_html(r, source="perfect.h5")
+    seen = check_self_contained_page(text)["text"]
+    assert "the data are consistent with a perfect gate at 95% confidence" in seen
+    assert seen.count("one-sided lower bound at 95%") == sum(
+        f.lower_bound is not None for f in r.figures.values())
+    assert "profile likelihood for process fidelity" in seen          # the histogram caption

@@ -24,7 +24,8 @@ from ..conventions import n_qubits_of
 from ..diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
 from ..estimators import MAXIMUM_LIKELIHOOD
 from ..intervals import parameter_range
-from ..summary import figure_label, number_text, row_numbers, status_of, status_text, title_of
+from ..summary import (boundary_text, figure_label, number_text, row_numbers, status_of,
+                       status_text, title_of)
 from . import html
 from .html import esc
 from .plots import figure_size, render
@@ -67,6 +68,8 @@ def figures_table(r) -> str:
             value = _value(fig.value)
         if fig.ci is None:
             interval = '<span class="small">no interval (no bootstrap)</span>'
+            if fig.lower_bound is not None:
+                interval = ""
         else:
             lo, hi = fig.ci
             level = f"{100 * fig.level:g}%" if fig.level is not None else ""
@@ -74,6 +77,15 @@ def figures_table(r) -> str:
                 interval = f"no spread at {level}"
             else:
                 interval = f"[{_value(lo)}, {_value(hi)}] at {level}"
+            if fig.interval_method == "profile":
+                interval += '<br><span class="small">profile likelihood</span>'
+        if fig.lower_bound is not None:
+            level = f"{100 * fig.level:g}%" if fig.level is not None else ""
+            interval += (("<br>" if interval else "")
+                         + f"≥ {_value(fig.lower_bound)} <span class=small>(one-sided lower "
+                           f"bound at {level})</span>")
+        if fig.touches_boundary:
+            notes.append(esc(boundary_text(name, fig, r.kind)))
         flag = _out_of_range(name, fig.value, r.dim, r.kind)
         if flag:
             notes.append(flag)

@@ -287,6 +287,17 @@ def data_plots(r) -> list[Plot]:
 # Bootstrap
 # --------------------------------------------------------------------------
 
+def _constructions(r, names) -> str:
+    """How the intervals of ``names`` were made, in words."""
+    how = {name: r.figures[name].interval_method or r.bootstrap.interval for name in names}
+    profiled = [figure_label(n, r.kind) for n, m in how.items() if m == "profile"]
+    if not profiled:
+        return r.bootstrap.interval
+    if len(profiled) == len(how):
+        return "profile likelihood"
+    return f"profile likelihood for {', '.join(profiled)}; {r.bootstrap.interval} otherwise"
+
+
 def bootstrap_plot(r) -> Plot | None:
     """Histograms of the bootstrap values of the main figures, with the estimate and the
     interval (None without a bootstrap). Figures without spread (fixed by a constraint,
@@ -312,7 +323,7 @@ def bootstrap_plot(r) -> Plot | None:
     return Plot("bootstrap", "histograms", {"panels": panels},
                 title="Bootstrap distributions",
                 caption=(f"{boot.samples} {boot.kind} resamples, refitted; the line is the "
-                         f"estimate, the band the {boot.interval} interval."),
+                         f"estimate, the band the figure's interval ({_constructions(r, names)})."),
                 alt="histograms of the bootstrap values of the main figures")
 
 
