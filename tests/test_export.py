@@ -66,3 +66,14 @@ def test_csv_table_has_one_row_per_figure(boot_result):
     assert float(first["value"]) == fid.value and float(first["ci_low"]) == fid.ci[0]
     assert first["determined"] == "true"
     assert as_json(boot_result)["figures"]["trace"]["ci"] is not None
+
+
+def test_csv_table_carries_the_interval_method_and_lower_bound(make_experiment):
+    exp, _ = make_experiment("H+depolarizing:0.02", n_qubits=1, shots=1000, seed=4)
+    res = gs.fit(exp, interval="profile", lower_bound=True)
+    rows = {r["figure"]: r for r in csv.DictReader(io.StringIO(figures_csv(res)))}
+    pf = res.figures["process_fidelity"]
+    assert rows["process_fidelity"]["interval_method"] == "profile"
+    assert float(rows["process_fidelity"]["lower_bound"]) == pf.lower_bound
+    assert rows["process_fidelity"]["touches_boundary"] == "false"
+    assert rows["trace"]["lower_bound"] == "" and rows["trace"]["interval_method"] == ""

@@ -24,7 +24,8 @@ from .summary import row_numbers, status_of, title_of
 
 #: Version of the JSON summary's shape (docs/file-formats.md, "JSON summary").
 JSON_VERSION = 1
-CSV_COLUMNS = ("figure", "value", "ci_low", "ci_high", "ci_level", "determined", "in_range")
+CSV_COLUMNS = ("figure", "value", "ci_low", "ci_high", "ci_level", "determined", "in_range",
+               "interval_method", "lower_bound", "touches_boundary")
 
 
 def _number(x):
@@ -133,7 +134,9 @@ def figures_csv(result: Result) -> str:
         writer.writerow([name] + ["" if v is None else repr(v) if isinstance(v, float) else
                                   str(v).lower() if isinstance(v, bool) else v
                                   for v in (fig["value"], ci[0], ci[1], fig["level"],
-                                            fig["determined"], fig["in_range"])])
+                                            fig["determined"], fig["in_range"],
+                                            fig["interval_method"], fig["lower_bound"],
+                                            fig["touches_boundary"])])
     return buf.getvalue()
 
 

@@ -160,3 +160,5 @@ def test_profile_intervals_lower_bounds_and_the_boundary_are_shown(tmp_path):
     assert seen.count("one-sided lower bound at 95%") == sum(
         f.lower_bound is not None for f in r.figures.values())
     assert "profile likelihood for process fidelity" in seen          # the histogram caption
+    # the side panel names the bootstrap's construction and the figures that do not use it
+    assert "normal (profile likelihood for process fidelity, average gate fidelity" in seen

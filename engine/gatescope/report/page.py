@@ -180,9 +180,12 @@ def _bootstrap_items(r) -> list[tuple[str, str]]:
     b = r.bootstrap
     if b is None:
         return []
+    profiled = [figure_label(name, r.kind) for name, fig in r.figures.items()
+                if fig.interval_method == "profile"]
+    how = b.interval + (f" (profile likelihood for {', '.join(profiled)})" if profiled else "")
     items = [("resamples", f"{b.samples} {b.kind}" + (f", refitted with {b.method}"
                                                        if b.method else "")),
-             ("intervals", b.interval), ("seed", str(b.seed)),
+             ("intervals", how), ("seed", str(b.seed)),
              ("refits that did not converge", str(b.failures))]
     if b.errors:
         items.append(("refits that raised an error", str(b.errors)))
