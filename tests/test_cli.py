@@ -240,7 +240,9 @@ def test_fit_prints_a_summary_json_and_show_writes_csv(small, capsys, tmp_path):
     assert json.loads(capsys.readouterr().out)["figures"] == data["figures"]
     table = tmp_path / "figures.csv"
     assert main(["show", str(out), "--csv", str(table)]) == 0
-    assert table.read_text().splitlines()[0] == "figure,value,ci_low,ci_high,ci_level,determined,in_range"
+    assert table.read_text().splitlines()[0] == ("figure,value,ci_low,ci_high,ci_level,determined,in_range,"
+                                                   "interval_method,lower_bound,lower_bound_method,"
+                                                   "touches_boundary")
     assert "file format 2, checksums verified" in capsys.readouterr().out
     assert main(["show", str(out), "--csv", str(table)]) == 2          # no silent overwrite
     assert "--force" in capsys.readouterr().err

@@ -33,7 +33,7 @@ def test_json_carries_figures_status_fit_and_warnings(boot_result):
                                                    "level": 0.95, "determined": True,
                                                    "in_range": True,
                                                    "interval_method": "normal",
-                                                   "lower_bound": None,
+                                                   "lower_bound": None, "lower_bound_method": None,
                                                    "touches_boundary": None}
     # the default of a two-qubit bootstrap: profile likelihood for the purity
     # (pipeline.default_profiled), the bootstrap's normal interval elsewhere
@@ -75,5 +75,6 @@ def test_csv_table_carries_the_interval_method_and_lower_bound(make_experiment):
     pf = res.figures["process_fidelity"]
     assert rows["process_fidelity"]["interval_method"] == "profile"
     assert float(rows["process_fidelity"]["lower_bound"]) == pf.lower_bound
+    assert rows["process_fidelity"]["lower_bound_method"] == "test inversion"   # one qubit
     assert rows["process_fidelity"]["touches_boundary"] == "false"
     assert rows["trace"]["lower_bound"] == "" and rows["trace"]["interval_method"] == ""

@@ -339,6 +339,74 @@ def test_named_figure_rejects_unknown_names():
         named_figure("process_fidelity", None, 2)
 
 
+# --------------------------------------------------------------------------
+# Test inversion
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("n,gate", [(1, "H"), (2, "CZ")])
+def test_pauli_twirl_is_the_group_average(n, gate):
+    # Pauli twirl as the average over the Pauli group, T(Ψ)(ρ) = d⁻² Σ_P P Ψ(P ρ P) P
+    # (Dankert, Cleve, Emerson & Livine, Phys. Rev. A 80, 012304 (2009)), applied to
+    # U†∘Φ and followed by U, against the chi-diagonal form of `pauli_twirl`
+    from gatescope.channels import apply_channel, choi_from_unitary, compose
+    from gatescope.conventions import pauli_basis
+    from gatescope.profile import pauli_twirl
+
+    u = named_gate(gate)
+    d = 2 ** n
+    phi = random_channel(n, rank=3, seed=11 + n)
+    err = compose(phi, choi_from_unitary(u.conj().T))         # U†∘Φ: Φ first
+    rng = np.random.default_rng(5)
+    twirled = pauli_twirl(phi, u)
+    for _ in range(3):
+        a = rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d))
+        rho = a @ a.conj().T
+        rho /= np.trace(rho)
+        avg = sum(p @ apply_channel(err, p @ rho @ p) @ p for p in pauli_basis(n)) / d ** 2
+        want = u @ avg @ u.conj().T
+        assert np.allclose(apply_channel(twirled, rho), want, atol=1e-12)
+    # the twirl keeps the process fidelity to U (Nielsen's Kraus formula, Phys. Lett. A
+    # 303, 249 (2002))
+    fid = lambda j: sum(abs(np.trace(u.conj().T @ k)) ** 2 for k in kraus_from_choi(j)) / d ** 2  # noqa: E731
+    assert fid(twirled) == pytest.approx(fid(phi), abs=1e-12)
+
+
+def test_test_inversion_lower_bound(near_unitary):
+    exp, model, mle = near_unitary
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    profile_bound = prof.lower_bound(0.95)
+    bound = prof.test_inversion_lower_bound(0.95, samples=60, seed=3)
+    assert bound.method == "test inversion" and bound.sided == "lower"
+    assert bound.low < profile_bound.estimate and bound.high == 1.0
+    # its cutoff is the deviance at the bound
+    assert prof.deviance_at(bound.low) == pytest.approx(bound.cutoff, abs=END_TOL)
+    # at the bound the simulated p-value is α = 0.05 up to its Monte Carlo error (binomial,
+    # B = 60: standard error 0.028), with the same random numbers as the search
+    end = prof.end_point(-1, bound.cutoff)
+    p = prof.exceedance(end.choi, prof.statistic(), samples=60, seed=3)
+    assert 0.0 < p - 1.0 / 61 <= 0.05 + 2 * 0.028
+    # a lower level gives a higher bound (same random numbers)
+    assert prof.test_inversion_lower_bound(0.80, samples=60, seed=3).low > bound.low
+    # the same seed gives the same bound; the p-values come from the simulated fits
+    again = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    assert again.test_inversion_lower_bound(0.95, samples=60, seed=3).low == bound.low
+    assert prof.simulated_fits >= 60
+
+
+def test_exceedance_counts_the_simulated_estimates(perfect_data):
+    # data drawn from the target itself: no count where the gate predicts none, yet the
+    # fits find small rotations in the shot noise of the other rows, so the simulated
+    # estimates lie just below F = 1 (the coherent part a fit takes from the noise)
+    exp, model, mle = perfect_data
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    target = process_fidelity_figure(exp.target).maximiser
+    b = 20
+    assert prof.exceedance(target, 0.99, samples=b, seed=1) == 1.0
+    assert prof.exceedance(target, 1.0 + 1e-12, samples=b, seed=1) == 1.0 / (b + 1)
+    assert prof.exceedance(target, 1.0 - 1e-6, samples=b, seed=1) < 0.5
+    assert prof.simulated_fits == 3 * b
+
+
 @pytest.mark.slow
 def test_coverage_far_from_the_boundary(tmp_path):
     # Wilks, Ann. Math. Stat. 9, 60 (1938): for a truth in the interior the deviance at the

@@ -25,7 +25,7 @@ from .summary import row_numbers, status_of, title_of
 #: Version of the JSON summary's shape (docs/file-formats.md, "JSON summary").
 JSON_VERSION = 1
 CSV_COLUMNS = ("figure", "value", "ci_low", "ci_high", "ci_level", "determined", "in_range",
-               "interval_method", "lower_bound", "touches_boundary")
+               "interval_method", "lower_bound", "lower_bound_method", "touches_boundary")
 
 
 def _number(x):
@@ -71,6 +71,7 @@ def as_json(result: Result, path=None) -> dict:
             "in_range": _in_range(name, fig.value, dim),
             "interval_method": fig.interval_method,
             "lower_bound": _number(fig.lower_bound),
+            "lower_bound_method": fig.lower_bound_method,
             "touches_boundary": fig.touches_boundary,
         }
     gof = None
@@ -136,6 +137,7 @@ def figures_csv(result: Result) -> str:
                                   for v in (fig["value"], ci[0], ci[1], fig["level"],
                                             fig["determined"], fig["in_range"],
                                             fig["interval_method"], fig["lower_bound"],
+                                            fig["lower_bound_method"],
                                             fig["touches_boundary"])])
     return buf.getvalue()
 

@@ -57,6 +57,8 @@ DEFAULT_INTERVAL = "normal"
 #: The interval constructions `gatescope.fit` takes: the bootstrap ones and the
 #: profile likelihood (`gatescope.profile`, for the figures it covers).
 FIT_INTERVALS = INTERVALS + ("profile",)
+#: Constructions of a one-sided lower bound (`Figure.lower_bound_method`).
+LOWER_BOUND_METHODS = ("profile", "test inversion")
 
 
 @dataclass
@@ -70,8 +72,10 @@ class Figure:
 
     ``interval_method`` names the construction of ``ci``: a bootstrap one of
     `INTERVALS` or ``"profile"`` (`gatescope.profile`); None when unknown.
-    ``lower_bound`` is the one-sided lower confidence bound at ``level``
-    (profile likelihood), None when not computed. ``touches_boundary`` is True
+    ``lower_bound`` is the one-sided lower confidence bound at ``level``,
+    None when not computed; ``lower_bound_method`` its construction,
+    `LOWER_BOUND_METHODS`: ``"profile"`` (profile likelihood) or ``"test
+    inversion"`` (calibrated by simulation, `gatescope.profile`). ``touches_boundary`` is True
     when the top of the figure's range (F = 1: a perfect gate, or the target
     state) lies inside the profile-likelihood interval at ``level`` — the data
     are then consistent with it, and the interval is one-sided; None when no
@@ -85,6 +89,7 @@ class Figure:
     interval_method: str | None = None
     lower_bound: float | None = None
     touches_boundary: bool | None = None
+    lower_bound_method: str | None = None
 
     def __float__(self) -> float:
         return float(self.value)

@@ -24,7 +24,7 @@ import numpy as np
 
 from . import kernels, resources
 from .bootstrap import check_options as check_bootstrap_options
-from .bootstrap import fit_p_value, run_bootstrap
+from .bootstrap import draw_seed, fit_p_value, run_bootstrap
 from .checks import assess_estimate, check_data, undetermined_figures, warn_about_fit
 from .diagnostics import diagnostics, warn_if_poor_fit
 from .errors import InputError, NumericalError, collect_warnings, warn
@@ -99,7 +99,8 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     ci_level : float
         Confidence level of the intervals, a fraction.
     seed : int, optional
-        Seed of the bootstrap; drawn at random and recorded when not given.
+        Seed of the bootstrap and of the test-inversion lower bounds; drawn at
+        random and recorded when not given.
     workers : int, optional
         Processes for the bootstrap (default: the machine's cores).
     progress : bool
@@ -117,10 +118,13 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         names, the bootstrap's default for the rest. Each figure records its construction
         (``Figure.interval_method``).
     lower_bound : bool
-        Also compute the one-sided profile-likelihood lower confidence bound
-        at ``ci_level`` of the figures `gatescope.profile` covers
-        (``Figure.lower_bound``). Profile intervals and bounds need a
-        maximum-likelihood method and set ``Figure.touches_boundary``.
+        Also compute the one-sided lower confidence bound at ``ci_level`` of the
+        figures `gatescope.profile` covers (``Figure.lower_bound``): the
+        test-inversion bound for the figures `TEST_INVERSION_DEFAULT` names (the
+        fidelities of a one-qubit process), the profile-likelihood bound for the
+        others (``Figure.lower_bound_method`` says which). Profile intervals and
+        bounds need a maximum-likelihood method and set
+        ``Figure.touches_boundary``.
     diamond : bool
         Also compute the diamond distance to the target by a semidefinite
         program (needs cvxpy, the ``sdp`` extra; skipped with a warning
@@ -179,8 +183,19 @@ def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tup
     return ()
 
 
+#: The figures whose lower bound (`fit` with ``lower_bound``) is the test-inversion one
+#: (`gatescope.profile.Profile.test_inversion_lower_bound`), by number of qubits of a
+#: process: where its coverage near a perfect gate was measured
+#: (benchmarks/README.md, "Lower bounds near the boundary"). Elsewhere the bound is the
+#: profile-likelihood one.
+TEST_INVERSION_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity")}
+#: Entropy added to the seed of a fit for the random numbers of its test inversions, so
+#: that they are not those of its bootstrap.
+TEST_INVERSION_STREAM = 0x7465
+
+
 def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
-                    lower_bound: bool) -> None:
+                    lower_bound: bool, seed: int = 0) -> None:
     """Set the profile-likelihood intervals of the figures named in ``interval``, the
     lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
     that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
@@ -191,9 +206,12 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     search that fails or does not converge is a warning (code ``profile``).
     """
     names = None if lower_bound else tuple(interval)
+    inverted = (TEST_INVERSION_DEFAULT.get(model.n_qubits, ()) if model.kind != "state"
+                else ())
     try:
         found = profile_figures(model, target, level=level, interval=bool(interval),
-                                lower_bound=lower_bound, names=names, start=point.choi)
+                                lower_bound=lower_bound, names=names, start=point.choi,
+                                test_inversion=inverted, seed=[seed, TEST_INVERSION_STREAM])
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
         return
@@ -212,6 +230,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
             fig.interval_method = "profile"
         if prof.lower is not None:
             fig.lower_bound = max(min(prof.lower.low, fig.value), low)
+            fig.lower_bound_method = prof.lower.method
         fig.level = float(level)
         fig.touches_boundary = bool(prof.touches_boundary)
 
@@ -332,6 +351,8 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
     values = compute_figures(point.choi, target, diamond=diamond, details=details,
                              kind=model.kind)
     boot = None
+    if seed is None and lower_bound and not bootstrap:
+        seed = draw_seed()                    # the test inversions simulate data sets
     if bootstrap:
         boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
@@ -368,5 +389,5 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
                 warn("chsh", text, stacklevel=2)
     if profiled or lower_bound:
         attach_profiles(result, model, point, target, ci_level, interval=profiled,
-                        lower_bound=lower_bound)
+                        lower_bound=lower_bound, seed=seed)
     return result

@@ -92,7 +92,8 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy.special import ndtri
 
-from .channels import choi_from_unitary
+from .bootstrap import resample_counts
+from .channels import chi_to_choi, choi_from_unitary, choi_to_chi
 from .estimators import Fit, fit_mle
 from .likelihood import PoissonLikelihood, Tilt
 from .merit.state import _pure_vector
@@ -106,6 +107,13 @@ FIT_OPTIONS = {"tol": 1e-10, "opt_tol": 1e-5, "maxiter": 20000}
 DEVIANCE_TOL = 1e-3
 #: At most this many tilted fits per end of an interval.
 MAX_FITS_PER_END = 40
+#: Simulated data sets per tested value of a test-inversion lower bound.
+CALIBRATION_SAMPLES = 200
+#: At most this many values tested per test-inversion lower bound.
+MAX_TESTED = 8
+#: The search of a test-inversion bound stops when an accepted and a rejected value lie
+#: this close in signed root of the deviance (about a tenth of a standard error).
+S_TOL = 0.1
 #: The figures of a process with a profile (the fidelities need a target).
 PROCESS_FIGURES = ("process_fidelity", "average_gate_fidelity", "purity")
 #: The figures of a state with a profile (the fidelity needs a pure target).
@@ -144,6 +152,10 @@ class ProfiledFigure:
     scale : float
         For purity F(J) = scale·Tr J² (1/d² for a process's Choi matrix of
         trace d, 1 for a density matrix); its tilt is μ·scale·Tr J².
+    unitary : array or None
+        The target unitary U of a process fidelity: the test-inversion lower
+        bound (`Profile.test_inversion_lower_bound`) simulates processes
+        Pauli-twirled around it.
     """
 
     name: str
@@ -152,6 +164,7 @@ class ProfiledFigure:
     high: float
     maximiser: np.ndarray | None = None
     scale: float = 0.0
+    unitary: np.ndarray | None = None
 
     @property
     def quadratic(self) -> bool:
@@ -179,7 +192,7 @@ def process_fidelity_figure(target: np.ndarray) -> ProfiledFigure:
     u = np.asarray(target, dtype=complex)
     d = u.shape[0]
     return ProfiledFigure("process_fidelity", choi_from_unitary(u) / d ** 2, 0.0, 1.0,
-                          choi_from_unitary(u))
+                          choi_from_unitary(u), unitary=u)
 
 
 def average_gate_fidelity_figure(target: np.ndarray) -> ProfiledFigure:
@@ -190,7 +203,8 @@ def average_gate_fidelity_figure(target: np.ndarray) -> ProfiledFigure:
     u = np.asarray(target, dtype=complex)
     d = u.shape[0]
     w = (choi_from_unitary(u) / d + np.eye(d * d) / d) / (d + 1)
-    return ProfiledFigure("average_gate_fidelity", w, 0.0, 1.0, choi_from_unitary(u))
+    return ProfiledFigure("average_gate_fidelity", w, 0.0, 1.0, choi_from_unitary(u),
+                          unitary=u)
 
 
 def state_fidelity_figure(target) -> ProfiledFigure:
@@ -268,7 +282,10 @@ class ProfileInterval:
     ``cutoff`` is the deviance at the ends; ``touches_boundary`` is True when
     an end is the edge of the figure's range (the data are compatible with,
     e.g., a perfect gate at this level); ``exact`` is False when an end was
-    found by a non-concave search (purity above its estimate); ``converged``
+    found by a non-concave search (purity above its estimate); ``method`` is
+    ``"profile"``, or ``"test inversion"`` for
+    `Profile.test_inversion_lower_bound` (whose ``cutoff`` is then the
+    deviance at the bound, the calibrated cutoff); ``converged``
     is False when a fit of a concave search stopped before it converged (a
     non-concave search is local anyway, its fits may stop where the line
     search cannot climb); ``fits`` and ``seconds`` count the tilted fits this
@@ -287,6 +304,7 @@ class ProfileInterval:
     fits: int
     seconds: float
     converged: bool = True
+    method: str = "profile"
 
     @property
     def ci(self) -> tuple[float, float]:
@@ -327,7 +345,9 @@ class Profile:
                                     np.asarray(mle.choi, dtype=complex), bool(mle.converged),
                                     int(mle.iterations))]
         self.fits = 0
+        self.simulated_fits = 0
         self._edge_loglik = {}
+        self._observed = None
 
     # ---- basic quantities ------------------------------------------------
 
@@ -522,6 +542,144 @@ class Profile:
                                time.perf_counter() - t0, bool(converged))
 
 
+    # ---- test inversion: a lower bound calibrated by simulation ---------------
+
+    def statistic(self, counts=None) -> float:
+        """T = F(Ĵ), Ĵ the maximum-likelihood fit (`fit_mle`, its default options: the
+        estimate `gatescope.fit` reports) of ``counts`` (default the data's)."""
+        if counts is None and self._observed is not None:
+            return self._observed
+        fit = fit_mle(self.model, counts=self.counts if counts is None else counts)
+        value = self.figure.value(fit.choi)
+        if counts is None:
+            self._observed = value
+        return value
+
+    def simulated_process(self, choi: np.ndarray) -> np.ndarray:
+        """The process the test of the value F(``choi``) simulates: ``choi`` Pauli-twirled
+        around the target for a process fidelity (`pauli_twirl`), ``choi`` itself for
+        other figures."""
+        if self.figure.unitary is None or self.model.kind == "state":
+            return choi
+        return pauli_twirl(choi, self.figure.unitary)
+
+    def exceedance(self, choi: np.ndarray, observed: float, *, samples: int,
+                   seed: int) -> float:
+        """Monte Carlo p-value (1 + #{T* ≥ observed})/(B + 1) of the value F(``choi``).
+
+        B = ``samples`` data sets of Poisson counts are drawn from
+        `simulated_process` (with the intensities that maximise ℓ there, as the
+        parametric bootstrap draws them) and T* = F(Ĵ*) is each one's estimate
+        (`statistic`; Davison & Hinkley, *Bootstrap Methods and their
+        Application*, 1997, §4.2, for the Monte Carlo p-value). Data set b
+        always uses the b-th child of ``SeedSequence(seed)``, so the p-values
+        of different tested values share their random numbers.
+        """
+        source = self.simulated_process(choi)
+        ev = self.likelihood.evaluate(source)
+        means = np.maximum(np.asarray(self.model.expected_counts(source, ev.intensities),
+                                      dtype=float), 0.0)
+        t0 = time.perf_counter()
+        above = 0
+        for child in np.random.SeedSequence(seed).spawn(samples):
+            fit = fit_mle(self.model, counts=resample_counts(means, child), start=source)
+            above += self.figure.value(fit.choi) >= observed
+        self.seconds += time.perf_counter() - t0
+        self.simulated_fits += samples
+        return (1.0 + above) / (samples + 1.0)
+
+    def test_inversion_lower_bound(self, level: float = 0.95, *,
+                                   samples: int = CALIBRATION_SAMPLES,
+                                   seed: int = 0) -> ProfileInterval:
+        """The lower confidence bound at ``level`` by inverting a simulated test.
+
+        A value f is rejected when the estimate T = F(Ĵ) is larger than data
+        from a process with figure f make plausible: its p-value `exceedance`,
+        simulated at the profile maximiser J_f (the nuisance parameters at
+        their constrained maximum-likelihood values; for a process fidelity
+        Pauli-twirled around the target, `simulated_process`), is at most
+        α = 1 − level. The bound is the f where the p-value crosses α (the
+        test-inversion bootstrap bound: Carpenter, J. R. Stat. Soc. B 61, 159
+        (1999)). The tested values are points of the profile, labelled by the
+        signed root s of their deviance (s > 0 below the estimate). The first is
+        the profile-likelihood bound s = z_level; steps of at least 0.5 in s
+        (or the asymptotic slope −1 of Φ⁻¹(p) against s) look for a value
+        accepted (p > α) and one rejected; false position on Φ⁻¹(p) then shrinks
+        that bracket to `S_TOL` — the p-values of B simulated data sets change
+        in steps, so a bracket, not a root, is what can be found — or until
+        `MAX_TESTED` values are tested. The bound is the profile's value at the
+        false-position point of the last bracket (``converged`` False when no
+        bracket was found: the bound is then the last value tested). Only values
+        at or below the estimate are tested: when even the estimate is rejected
+        (data whose counts lie closer to their expectations than shot noise makes
+        likely) the bound is the profile-likelihood one, ``method`` "profile",
+        ``converged`` False. The simulated data sets are the same for every tested value (common random
+        numbers), so p changes little between nearby values. Cost: B fits for
+        each tested value (4 to 6 as a rule).
+        """
+        if not 0.5 < level < 1:
+            raise ValueError(f"a one-sided level must lie in (0.5, 1), got {level}")
+        t0, fits0, sims0 = time.perf_counter(), self.fits, self.simulated_fits
+        observed = self.statistic()
+        alpha = 1.0 - level
+        z_goal = float(ndtri(alpha))
+        clip = 0.5 / (samples + 1.0)
+
+        def point(s):
+            if s == 0.0:
+                return End(self.estimate, self.mle.choi, False, bool(self.mle.converged))
+            return self.end_point(-1 if s > 0 else +1, s * s)
+
+        def z_of(p):
+            return float(ndtri(min(max(p, clip), 1.0 - clip)))
+
+        tested = {}                                  # signed root s → p-value
+        accepted = rejected = None                   # the largest accepted, smallest rejected s
+        s = float(ndtri(level))                      # the profile-likelihood bound first
+        for _ in range(MAX_TESTED):
+            end = point(s)
+            p = self.exceedance(end.choi, observed, samples=samples, seed=seed)
+            tested[s] = p
+            if p > alpha:
+                accepted = s if accepted is None else max(accepted, s)
+                if end.touches_edge and s > 0:       # even the bottom of the range is accepted
+                    break
+            else:
+                rejected = s if rejected is None else min(rejected, s)
+            if accepted is not None and rejected is not None:
+                if rejected - accepted <= S_TOL:
+                    break
+                s = accepted + (rejected - accepted) * _falsi(z_of(tested[accepted]),
+                                                              z_of(tested[rejected]), z_goal)
+            elif rejected is None:                   # all accepted: further from the estimate
+                s = accepted + max(0.5, z_of(p) - z_goal)
+            elif rejected > 0.0:                     # all rejected: back towards the estimate
+                s = max(rejected - max(0.5, z_goal - z_of(p)), 0.0)
+            else:
+                break
+        if accepted is None and rejected == 0.0:
+            # even the estimate is rejected: data from the processes tested give lower
+            # estimates than these data (counts closer to their expectations than shot
+            # noise makes likely); no value below the estimate is in the confidence set,
+            # and the bound reported is the profile-likelihood one
+            bound = self.lower_bound(level)
+            return replace(bound, fits=self.fits - fits0 + self.simulated_fits - sims0,
+                           seconds=time.perf_counter() - t0, converged=False)
+        converged = accepted is not None and rejected is not None
+        if converged:
+            s = accepted + (rejected - accepted) * _falsi(z_of(tested[accepted]),
+                                                          z_of(tested[rejected]), z_goal)
+        else:
+            s = accepted if rejected is None else rejected
+        end = point(s)
+        low = self.figure.low if end.touches_edge and s > 0 else end.value
+        return ProfileInterval(self.figure.name, self.estimate, low, self.figure.high, level,
+                               "lower", s * s if s > 0 else 0.0,
+                               bool(low <= self.figure.low), True,
+                               self.fits - fits0 + self.simulated_fits - sims0,
+                               time.perf_counter() - t0, bool(converged and end.converged),
+                               "test inversion")
+
     def log_likelihood_at(self, value: float, *, value_tol: float | None = None,
                           ll_tol: float = 1e-4) -> float:
         """ℓ_p(value), by a search on μ for F(J_μ) = value (to ``value_tol``, default
@@ -549,6 +707,30 @@ class Profile:
     def deviance_at(self, value: float, **kw) -> float:
         """D(value) = 2(ℓ̂ − ℓ_p(value)) (see `log_likelihood_at`)."""
         return max(2.0 * (self.max_log_likelihood - self.log_likelihood_at(value, **kw)), 0.0)
+
+
+def _falsi(z_accepted: float, z_rejected: float, z_goal: float) -> float:
+    """Where between an accepted (0) and a rejected (1) value the p-value's normal score
+    reaches ``z_goal``, on the straight line through their scores, kept within
+    [0.2, 0.8] (a false-position step that always shrinks the bracket)."""
+    if z_accepted == z_rejected:
+        return 0.5
+    return min(max((z_accepted - z_goal) / (z_accepted - z_rejected), 0.2), 0.8)
+
+
+def pauli_twirl(choi: np.ndarray, unitary: np.ndarray) -> np.ndarray:
+    """The process U∘T(U†∘Φ), Φ of Choi matrix ``choi``, T the Pauli twirl
+    T(Ψ)(ρ) = Σ_m χ_mm P_m ρ P_m (the chi matrix of Ψ with its off-diagonal part
+    removed). It keeps the process fidelity to U (χ_00 of U†∘Φ), the trace of J,
+    hence the average gate fidelity, and the Pauli error rates χ_mm; it drops the
+    coherent (χ_0m) and non-unital parts of the error (Dankert et al., Phys. Rev. A
+    80, 012304 (2009), for the twirl)."""
+    d = unitary.shape[0]
+    back = np.kron(np.eye(d), np.asarray(unitary, dtype=complex).conj().T)
+    chi = choi_to_chi(back @ choi @ back.conj().T)
+    twirled = chi_to_choi(np.diag(np.diag(chi).real).astype(complex))
+    forth = back.conj().T
+    return forth @ twirled @ forth.conj().T
 
 
 def _inverse_interpolation(nodes, lo, hi, goal: float) -> float:
@@ -590,7 +772,8 @@ class FigureProfile:
 
 def profile_figures(model, target, *, level: float = 0.95, interval: bool = True,
                     lower_bound: bool = False, names=None, start=None, counts=None,
-                    fit_options: dict | None = None) -> dict:
+                    fit_options: dict | None = None, test_inversion=(),
+                    seed=0, samples: int = CALIBRATION_SAMPLES) -> dict:
     """Profile-likelihood intervals and lower bounds of the figures of ``model``.
 
     Parameters
@@ -606,6 +789,12 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
     start : array, optional
         Warm start of the profile's own maximum-likelihood fit (the point
         estimate of the pipeline).
+    test_inversion : iterable of str
+        Figures whose lower bound is `Profile.test_inversion_lower_bound`
+        (``samples`` simulated data sets per tested value, random numbers from
+        ``seed``, an int or a sequence of ints for `numpy.random.SeedSequence`)
+        instead of the profile-likelihood one; only figures with a target
+        unitary (the process and average gate fidelities) take it.
 
     Returns
     -------
@@ -630,7 +819,11 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         prof = Profile(model, named_figure(name, target, model.dim, model.kind), counts=counts,
                        mle=mle, fit_options=options)
         two = prof.interval(level) if interval else None
-        low = prof.lower_bound(level) if lower_bound else None
+        low = None
+        if lower_bound:
+            low = (prof.test_inversion_lower_bound(level, samples=samples, seed=seed)
+                   if name in test_inversion and prof.figure.unitary is not None
+                   else prof.lower_bound(level))
         top = prof.consistent_with_top(level)
         if top is None:
             # purity: no single maximiser; the two-sided interval says whether it reaches 1
@@ -663,4 +856,5 @@ __all__ = ["ProfiledFigure", "ProfilePoint", "ProfileInterval", "Profile", "Figu
            "profile_figures", "profiled_names", "process_fidelity_figure",
            "average_gate_fidelity_figure", "state_fidelity_figure", "purity_figure",
            "named_figure", "two_sided_cutoff", "one_sided_cutoff", "FIT_OPTIONS",
+           "pauli_twirl", "CALIBRATION_SAMPLES",
            "PROFILED_FIGURES"]

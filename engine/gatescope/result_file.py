@@ -26,7 +26,7 @@ from .diagnostics import Diagnostics
 from .errors import InputError
 from .estimators import METHODS
 from .fileio import atomic_path
-from .intervals import FIT_INTERVALS, Figure
+from .intervals import FIT_INTERVALS, LOWER_BOUND_METHODS, Figure
 from .conventions import pauli_labels
 from .merit import FIGURE_NAMES, STATE_FIGURE_ORDER
 
@@ -169,6 +169,8 @@ def _write(f: h5py.File, r) -> None:
         if fig.lower_bound is not None:
             ds.attrs["lower_bound"] = float(fig.lower_bound)
             ds.attrs["lower_bound_level"] = float(fig.level)
+            if fig.lower_bound_method is not None:
+                ds.attrs["lower_bound_method"] = str(fig.lower_bound_method)
         if fig.touches_boundary is not None:
             ds.attrs["touches_boundary"] = bool(fig.touches_boundary)
     extra = f.create_group("figures_extra")
@@ -589,11 +591,16 @@ def _read(c: _Checked, verify: bool) -> dict:
                                determined=c.attr(where, "determined", bool, True),
                                interval_method=c.attr(where, "ci_method", str, None),
                                lower_bound=c.attr(where, "lower_bound", float, None),
-                               touches_boundary=c.attr(where, "touches_boundary", bool, None))
+                               touches_boundary=c.attr(where, "touches_boundary", bool, None),
+                               lower_bound_method=c.attr(where, "lower_bound_method", str, None))
         if figures[name].interval_method not in (None,) + FIT_INTERVALS:
             raise _Damaged(f"{where}/@ci_method",
                            f"is {figures[name].interval_method!r}, expected one of "
                            + ", ".join(FIT_INTERVALS))
+        if figures[name].lower_bound_method not in (None,) + LOWER_BOUND_METHODS:
+            raise _Damaged(f"{where}/@lower_bound_method",
+                           f"is {figures[name].lower_bound_method!r}, expected one of "
+                           + ", ".join(LOWER_BOUND_METHODS))
         if figures[name].lower_bound is not None and level is None:
             figures[name].level = c.attr(where, "lower_bound_level", float)
 

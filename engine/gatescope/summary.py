@@ -114,7 +114,8 @@ def _signed(x: float) -> str:
 
 def _fmt_figure(fig) -> str:
     bound = ("" if fig.lower_bound is None else
-             f"; lower bound {_num(fig.lower_bound)} (one-sided {100 * fig.level:g}%)")
+             f"; lower bound {_num(fig.lower_bound)} (one-sided {100 * fig.level:g}%"
+             + (", test inversion" if fig.lower_bound_method == "test inversion" else "") + ")")
     if fig.ci is None:
         return _num(fig.value) + bound
     lo, hi = fig.ci

@@ -52,6 +52,10 @@ def _out_of_range(name: str, value: float, dim: int, kind: str) -> str:
             f"impossible for a physical {what}</span>")
 
 
+def _bound_how(fig) -> str:
+    return ", test inversion" if fig.lower_bound_method == "test inversion" else ""
+
+
 def figures_table(r) -> str:
     """Every figure of the result: its label and name, value, interval, and what to know."""
     rows = []
@@ -83,7 +87,7 @@ def figures_table(r) -> str:
             level = f"{100 * fig.level:g}%" if fig.level is not None else ""
             interval += (("<br>" if interval else "")
                          + f"≥ {_value(fig.lower_bound)} <span class=small>(one-sided lower "
-                           f"bound at {level})</span>")
+                           f"bound at {level}{_bound_how(fig)})</span>")
         if fig.touches_boundary:
             notes.append(esc(boundary_text(name, fig, r.kind)))
         flag = _out_of_range(name, fig.value, r.dim, r.kind)

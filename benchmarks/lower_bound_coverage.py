@@ -1,0 +1,165 @@
+"""Coverage of one-sided lower bounds near a perfect gate: profile likelihood against
+test inversion.
+
+A cell is a noise kind on a gate at a ratio r = infidelity / ``--sigma-ref``, as in
+``boundary_coverage.py`` (same channels; repetition k draws its counts with seed
+``seed + k``, so the data sets are those of that script at the same settings). Each
+repetition fits the profile of the process fidelity and records its
+profile-likelihood lower bound (`Profile.lower_bound`) and its test-inversion lower
+bound (`Profile.test_inversion_lower_bound`, B simulated data sets per tested value,
+seed ``seed + k + 2_000_000``), with their seconds. For a trace-preserving process the
+bounds of the average gate fidelity are the images of these under F ↦ (dF + 1)/(d + 1),
+so they hold exactly when these do.
+
+One CSV line per repetition (``--out``); a rerun skips the repetitions already there;
+``--table-only`` prints the table of what the file holds.
+
+    nice -n 10 python benchmarks/lower_bound_coverage.py --repetitions 200 --workers 2
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import csv  # noqa: E402
+import math  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import time  # noqa: E402
+import warnings  # noqa: E402
+from collections import defaultdict  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from boundary_coverage import KINDS, SIGMA_REF, noisy_channel  # noqa: E402
+from gatescope.merit import compute_figures  # noqa: E402
+from gatescope.model import build_model  # noqa: E402
+from gatescope.parallel import Runner  # noqa: E402
+from gatescope.profile import Profile, process_fidelity_figure  # noqa: E402
+from gatescope.reader import read_experiment  # noqa: E402
+from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: E402
+
+FIELDS = ("gate", "kind", "ratio", "shots", "samples", "level", "rep", "truth", "est",
+          "profile_lb", "profile_s", "ti_lb", "ti_cutoff", "ti_fits", "ti_s")
+
+
+def one_repetition(opts: dict, job) -> dict | None:
+    gate, kind, ratio, shots, rep = job
+    if opts["stop_at"] is not None and time.time() > opts["stop_at"]:
+        return None
+    channel = noisy_channel(gate, kind, ratio * opts["sigma_ref"])
+    with tempfile.TemporaryDirectory() as tmp:
+        rows = simulate_counts(channel, shots=shots, seed=opts["seed"] + rep)
+        exp = read_experiment(write_experiment(Path(tmp), channel, rows, title="coverage"))
+    model = build_model(exp)
+    out = {"gate": gate, "kind": kind, "ratio": ratio, "shots": shots,
+           "samples": opts["samples"], "level": opts["level"], "rep": rep,
+           "truth": compute_figures(channel.choi, exp.target)["process_fidelity"]}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        t0 = time.perf_counter()
+        prof = Profile(model, process_fidelity_figure(exp.target))
+        plb = prof.lower_bound(opts["level"])
+        out.update(est=prof.estimate, profile_lb=plb.low, profile_s=time.perf_counter() - t0)
+        ti = prof.test_inversion_lower_bound(opts["level"], samples=opts["samples"],
+                                             seed=opts["seed"] + rep + 2_000_000)
+        out.update(ti_lb=ti.low, ti_cutoff=ti.cutoff, ti_fits=ti.fits, ti_s=ti.seconds)
+    return out
+
+
+def read_rows(path: Path) -> list[dict]:
+    if not path.exists():
+        return []
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
+def key_of(row) -> tuple:
+    return (row["gate"], float(row["shots"]), row["kind"], float(row["ratio"]),
+            int(row["samples"]), float(row["level"]))
+
+
+def _cov(hit: np.ndarray) -> str:
+    c = hit.mean()
+    return f"{c:.3f} ± {math.sqrt(max(c * (1 - c), 1e-12) / hit.size):.3f}"
+
+
+def table(rows: list[dict]) -> str:
+    groups = defaultdict(list)
+    for row in rows:
+        groups[key_of(row)].append(row)
+    head = ["gate, counts, noise, r", "n", "infid./sd", "profile LB cov.", "test-inv. LB cov.",
+            "mean cutoff", "est. − profile LB", "est. − test-inv. LB", "fits", "test-inv. s"]
+    out = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+    for key in sorted(groups):
+        g = groups[key]
+        col = lambda name: np.array([float(r[name]) for r in g])   # noqa: E731
+        t, est = col("truth"), col("est")
+        ratio = (1.0 - t.mean()) / est.std(ddof=1) if len(g) > 1 else float("nan")
+        out.append(f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g} | {len(g)} | {ratio:.2f} | "
+                   f"{_cov(col('profile_lb') <= t)} | {_cov(col('ti_lb') <= t)} | "
+                   f"{np.mean(col('ti_cutoff')):.2f} | {np.mean(est - col('profile_lb')):.2e} | "
+                   f"{np.mean(est - col('ti_lb')):.2e} | {np.mean(col('ti_fits')):.0f} | "
+                   f"{np.mean(col('ti_s')):.2f} |")
+    return "\n".join(out)
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("--repetitions", type=int, default=200, help="repetitions per cell")
+    p.add_argument("--samples", type=int, default=200,
+                   help="simulated data sets per tested value (B)")
+    p.add_argument("--shots", type=float, default=1000.0,
+                   help="expected counts per preparation and analyser basis")
+    p.add_argument("--gate", default="H")
+    p.add_argument("--kinds", nargs="+", default=list(KINDS), choices=KINDS)
+    p.add_argument("--ratios", type=float, nargs="+", default=[0.3, 1.0, 3.0, 10.0])
+    p.add_argument("--sigma-ref", type=float, default=SIGMA_REF,
+                   help=f"infidelity of ratio 1 (default {SIGMA_REF:g}, one qubit at 1000 counts "
+                        "per basis)")
+    p.add_argument("--max-minutes", type=float, default=None,
+                   help="start no new repetition after this much wall time")
+    p.add_argument("--level", type=float, default=0.95)
+    p.add_argument("--workers", type=int, default=1, help="repetitions run in parallel")
+    p.add_argument("--seed", type=int, default=2026)
+    p.add_argument("--out", type=Path,
+                   default=Path(__file__).parent / "results" / "lower_bound_coverage.csv",
+                   help="CSV of the repetitions (appended to; existing ones are skipped)")
+    p.add_argument("--table-only", action="store_true", help="print the table of --out and exit")
+    args = p.parse_args(argv)
+    if not args.table_only:
+        done = {(key_of(r), int(r["rep"])) for r in read_rows(args.out)}
+        todo = [(args.gate, kind, ratio, args.shots, rep) for rep in range(args.repetitions)
+                for kind in args.kinds for ratio in args.ratios
+                if ((args.gate, args.shots, kind, ratio, args.samples, args.level), rep)
+                not in done]
+        opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
+                "sigma_ref": args.sigma_ref,
+                "stop_at": None if args.max_minutes is None
+                else time.time() + 60.0 * args.max_minutes}
+        new_file = not args.out.exists() or args.out.stat().st_size == 0
+        args.out.parent.mkdir(parents=True, exist_ok=True)
+        with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
+            writer = csv.DictWriter(fh, fieldnames=FIELDS)
+            if new_file:
+                writer.writeheader()
+            for _, row in runner.map(one_repetition, todo, chunk=1):
+                if row is None:
+                    continue
+                writer.writerow(row)
+                fh.flush()
+                print(f"{row['gate']} {row['kind']} {row['ratio']:g} rep {row['rep']}: F̂ "
+                      f"{row['est']:.6f} (truth {row['truth']:.6f}) profile LB "
+                      f"{row['profile_lb']:.6f}, test-inversion LB {row['ti_lb']:.6f} "
+                      f"({row['ti_s']:.1f} s)", file=sys.stderr)
+    print(table(read_rows(args.out)))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
