@@ -1,5 +1,5 @@
-"""Coverage of one-sided lower bounds near a perfect gate: profile likelihood against
-test inversion.
+"""Coverage of lower bounds (and intervals) near a perfect gate: profile likelihood
+against test inversion.
 
 A cell is a noise kind on a gate at a ratio r = infidelity / ``--sigma-ref``, as in
 ``boundary_coverage.py`` (same channels; repetition k draws its counts with seed
@@ -9,7 +9,8 @@ profile-likelihood lower bound (`Profile.lower_bound`) and its test-inversion lo
 bound (`Profile.test_inversion_lower_bound`, B simulated data sets per tested value,
 seed ``seed + k + 2_000_000``), with their seconds. For a trace-preserving process the
 bounds of the average gate fidelity are the images of these under F ↦ (dF + 1)/(d + 1),
-so they hold exactly when these do.
+so they hold exactly when these do. ``--two-sided`` adds the two-sided profile-likelihood
+and test-inversion intervals (`Profile.interval`, `Profile.test_inversion_interval`).
 
 One CSV line per repetition (``--out``); a rerun skips the repetitions already there;
 ``--table-only`` prints the table of what the file holds.
@@ -46,6 +47,8 @@ from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: 
 
 FIELDS = ("gate", "kind", "ratio", "shots", "samples", "level", "rep", "truth", "est",
           "profile_lb", "profile_s", "ti_lb", "ti_cutoff", "ti_fits", "ti_s")
+#: The extra columns of ``--two-sided``: both profile-likelihood and test-inversion intervals.
+TWO_SIDED = ("profile_lo", "profile_hi", "ti_lo", "ti_hi", "ti2_fits", "ti2_s")
 
 
 def one_repetition(opts: dict, job) -> dict | None:
@@ -69,6 +72,12 @@ def one_repetition(opts: dict, job) -> dict | None:
         ti = prof.test_inversion_lower_bound(opts["level"], samples=opts["samples"],
                                              seed=opts["seed"] + rep + 2_000_000)
         out.update(ti_lb=ti.low, ti_cutoff=ti.cutoff, ti_fits=ti.fits, ti_s=ti.seconds)
+        if opts["two_sided"]:
+            two = prof.interval(opts["level"])
+            ti2 = prof.test_inversion_interval(opts["level"], samples=opts["samples"],
+                                               seed=opts["seed"] + rep + 2_000_000)
+            out.update(profile_lo=two.low, profile_hi=two.high, ti_lo=ti2.low, ti_hi=ti2.high,
+                       ti2_fits=ti2.fits, ti2_s=ti2.seconds)
     return out
 
 
@@ -95,17 +104,27 @@ def table(rows: list[dict]) -> str:
         groups[key_of(row)].append(row)
     head = ["gate, counts, noise, r", "n", "infid./sd", "profile LB cov.", "test-inv. LB cov.",
             "mean cutoff", "est. − profile LB", "est. − test-inv. LB", "fits", "test-inv. s"]
+    two = bool(rows) and all(r.get("ti_lo") not in (None, "") for r in rows)
+    if two:
+        head += ["profile cov.", "test-inv. cov.", "profile width", "test-inv. width",
+                 "two-sided s"]
     out = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
     for key in sorted(groups):
         g = groups[key]
         col = lambda name: np.array([float(r[name]) for r in g])   # noqa: E731
         t, est = col("truth"), col("est")
         ratio = (1.0 - t.mean()) / est.std(ddof=1) if len(g) > 1 else float("nan")
-        out.append(f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g} | {len(g)} | {ratio:.2f} | "
-                   f"{_cov(col('profile_lb') <= t)} | {_cov(col('ti_lb') <= t)} | "
-                   f"{np.mean(col('ti_cutoff')):.2f} | {np.mean(est - col('profile_lb')):.2e} | "
-                   f"{np.mean(est - col('ti_lb')):.2e} | {np.mean(col('ti_fits')):.0f} | "
-                   f"{np.mean(col('ti_s')):.2f} |")
+        line = (f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g} | {len(g)} | {ratio:.2f} | "
+                f"{_cov(col('profile_lb') <= t)} | {_cov(col('ti_lb') <= t)} | "
+                f"{np.mean(col('ti_cutoff')):.2f} | {np.mean(est - col('profile_lb')):.2e} | "
+                f"{np.mean(est - col('ti_lb')):.2e} | {np.mean(col('ti_fits')):.0f} | "
+                f"{np.mean(col('ti_s')):.2f} |")
+        if two:
+            plo, phi, tlo, thi = (col(k) for k in ("profile_lo", "profile_hi", "ti_lo", "ti_hi"))
+            line += (f" {_cov((plo <= t) & (t <= phi))} | {_cov((tlo <= t) & (t <= thi))} | "
+                     f"{np.mean(phi - plo):.2e} | {np.mean(thi - tlo):.2e} | "
+                     f"{np.mean(col('ti2_s')):.2f} |")
+        out.append(line)
     return "\n".join(out)
 
 
@@ -130,6 +149,9 @@ def main(argv=None) -> int:
     p.add_argument("--out", type=Path,
                    default=Path(__file__).parent / "results" / "lower_bound_coverage.csv",
                    help="CSV of the repetitions (appended to; existing ones are skipped)")
+    p.add_argument("--two-sided", action="store_true",
+                   help="also the two-sided profile-likelihood and test-inversion intervals "
+                        "(use its own --out)")
     p.add_argument("--table-only", action="store_true", help="print the table of --out and exit")
     args = p.parse_args(argv)
     if not args.table_only:
@@ -139,13 +161,13 @@ def main(argv=None) -> int:
                 if ((args.gate, args.shots, kind, ratio, args.samples, args.level), rep)
                 not in done]
         opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
-                "sigma_ref": args.sigma_ref,
+                "sigma_ref": args.sigma_ref, "two_sided": args.two_sided,
                 "stop_at": None if args.max_minutes is None
                 else time.time() + 60.0 * args.max_minutes}
         new_file = not args.out.exists() or args.out.stat().st_size == 0
         args.out.parent.mkdir(parents=True, exist_ok=True)
         with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
-            writer = csv.DictWriter(fh, fieldnames=FIELDS)
+            writer = csv.DictWriter(fh, fieldnames=FIELDS + (TWO_SIDED if args.two_sided else ()))
             if new_file:
                 writer.writeheader()
             for _, row in runner.map(one_repetition, todo, chunk=1):

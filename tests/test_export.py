@@ -75,6 +75,6 @@ def test_csv_table_carries_the_interval_method_and_lower_bound(make_experiment):
     pf = res.figures["process_fidelity"]
     assert rows["process_fidelity"]["interval_method"] == "profile"
     assert float(rows["process_fidelity"]["lower_bound"]) == pf.lower_bound
-    assert rows["process_fidelity"]["lower_bound_method"] == "test inversion"   # one qubit
+    assert rows["process_fidelity"]["lower_bound_method"] == "test-inversion"   # one qubit
     assert rows["process_fidelity"]["touches_boundary"] == "false"
     assert rows["trace"]["lower_bound"] == "" and rows["trace"]["interval_method"] == ""

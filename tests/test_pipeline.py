@@ -284,6 +284,38 @@ def test_a_perfect_gate_touches_the_boundary(make_experiment):
     assert res.figures["average_gate_fidelity"].touches_boundary
 
 
+def test_test_inversion_intervals_and_bounds(make_experiment, monkeypatch):
+    import gatescope.profile
+    monkeypatch.setattr(gatescope.profile, "CALIBRATION_SAMPLES", 40)     # a quicker test
+    exp, _ = make_experiment("H+depolarizing:0.004", n_qubits=1, shots=1000, seed=6)
+    res = gs.fit(exp, interval="test-inversion", lower_bound=True, seed=11)
+    for name in ("process_fidelity", "average_gate_fidelity"):
+        f = res.figures[name]
+        assert f.interval_method == "test-inversion" and f.lower_bound_method == "test-inversion"
+        assert f.ci[0] <= f.lower_bound <= f.value <= f.ci[1] <= 1.0
+    # no test inversion for the purity (its maximiser is not one process): profile likelihood
+    assert res.figures["purity"].interval_method == "profile"
+    assert res.figures["purity"].lower_bound_method == "profile"
+    # the seed fixes the simulated data sets
+    again = gs.fit(exp, interval="test-inversion", lower_bound=True, seed=11)
+    assert again.figures["process_fidelity"].ci == res.figures["process_fidelity"].ci
+    # the seed drawn when none is given is recorded
+    drawn = gs.fit(exp, lower_bound=True)
+    assert drawn.provenance["seed"] is not None
+
+
+def test_test_inversion_is_refused_beyond_two_qubits(make_experiment, monkeypatch):
+    import gatescope.pipeline as pipeline
+    import dataclasses
+    exp, _ = make_experiment("CZ", n_qubits=2, shots=100)
+    exp = dataclasses.replace(exp, n_qubits=3)         # only the size is looked at
+    called = []
+    monkeypatch.setattr(pipeline, "estimate", lambda *a, **k: called.append(1))
+    with pytest.raises(gs.InputError, match="up to 2 qubits"):
+        gs.fit(exp, interval="test-inversion")
+    assert not called
+
+
 def test_profile_of_a_state(make_state_experiment):
     exp, _ = make_state_experiment("psi-+depolarizing:0.02", shots=500, seed=7)
     res = gs.fit(exp, lower_bound=True)

@@ -376,7 +376,7 @@ def test_test_inversion_lower_bound(near_unitary):
     prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
     profile_bound = prof.lower_bound(0.95)
     bound = prof.test_inversion_lower_bound(0.95, samples=60, seed=3)
-    assert bound.method == "test inversion" and bound.sided == "lower"
+    assert bound.method == "test-inversion" and bound.sided == "lower"
     assert bound.low < profile_bound.estimate and bound.high == 1.0
     # its cutoff is the deviance at the bound
     assert prof.deviance_at(bound.low) == pytest.approx(bound.cutoff, abs=END_TOL)
@@ -391,6 +391,25 @@ def test_test_inversion_lower_bound(near_unitary):
     again = Profile(model, process_fidelity_figure(exp.target), mle=mle)
     assert again.test_inversion_lower_bound(0.95, samples=60, seed=3).low == bound.low
     assert prof.simulated_fits >= 60
+
+
+def test_test_inversion_interval(near_unitary):
+    exp, model, mle = near_unitary
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    two = prof.test_inversion_interval(0.90, samples=60, seed=4)
+    bound = prof.test_inversion_lower_bound(0.95, samples=60, seed=4)
+    assert two.method == "test-inversion" and two.sided == "two-sided"
+    # each end of the 90% interval is a one-sided 95% end: the lower one is the 95% lower
+    # bound itself (same random numbers, the same search)
+    assert two.low == pytest.approx(bound.low, abs=1e-12)
+    assert two.low < two.estimate < two.high < 1.0
+    # at the upper end the p-value of the upper test is 0.05 up to its Monte Carlo error
+    end = prof.end_point(+1, two_sided_cutoff(0.90))
+    high = prof.test_inversion_end(+1, 0.05, samples=60, seed=4)
+    assert high.value == pytest.approx(two.high, abs=1e-12) and high.deviance is not None
+    p = prof.exceedance(high.choi, prof.statistic(), samples=60, seed=4, side=+1)
+    assert p <= 0.05 + 2 * 0.028
+    assert end.value > two.estimate
 
 
 def test_exceedance_counts_the_simulated_estimates(perfect_data):

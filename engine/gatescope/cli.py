@@ -70,15 +70,19 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--bootstrap-kind", choices=KINDS, default=KINDS[0])
     f.add_argument("--ci-level", type=float, default=0.95, metavar="LEVEL", help="confidence level (fraction)")
     f.add_argument("--interval", choices=FIT_INTERVALS, default=None,
-                   help="interval construction: a bootstrap one, or profile (profile likelihood "
+                   help="interval construction: a bootstrap one, profile (profile likelihood "
                         "for the fidelities and the purity, the bootstrap's "
-                        f"{DEFAULT_INTERVAL} for the rest); default: with an mle bootstrap, "
+                        f"{DEFAULT_INTERVAL} for the rest), or test-inversion (as profile, with "
+                        "the fidelities' intervals calibrated by simulated data sets; one and "
+                        "two qubits); default: with an mle bootstrap, "
                         "profile for the fidelities and the purity of a one-qubit process and "
                         f"the purity of a two-qubit one, {DEFAULT_INTERVAL} for the rest")
     f.add_argument("--lower-bound", action="store_true",
-                   help="also the one-sided profile-likelihood lower bound of the fidelities "
-                        "and the purity, at --ci-level")
-    f.add_argument("--seed", type=int, default=None, help="seed of the bootstrap (recorded)")
+                   help="also the one-sided lower bound of the fidelities and the purity, at "
+                        "--ci-level (test inversion for the fidelities of a one-qubit process, "
+                        "profile likelihood otherwise)")
+    f.add_argument("--seed", type=int, default=None,
+                   help="seed of the bootstrap and of the test inversions (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")
     f.add_argument("--quiet", action="store_true",
                    help="no progress, no summary: print the path of the result file only")

@@ -54,11 +54,13 @@ from .options import choice, fraction
 
 INTERVALS = ("percentile", "basic", "bc", "normal")
 DEFAULT_INTERVAL = "normal"
-#: The interval constructions `gatescope.fit` takes: the bootstrap ones and the
-#: profile likelihood (`gatescope.profile`, for the figures it covers).
-FIT_INTERVALS = INTERVALS + ("profile",)
+#: The interval constructions `gatescope.fit` takes: the bootstrap ones, the profile
+#: likelihood and the test inversion (`gatescope.profile`, for the figures they cover).
+FIT_INTERVALS = INTERVALS + ("profile", "test-inversion")
+#: The constructions of `FIT_INTERVALS` that `gatescope.profile` computes.
+PROFILE_INTERVALS = ("profile", "test-inversion")
 #: Constructions of a one-sided lower bound (`Figure.lower_bound_method`).
-LOWER_BOUND_METHODS = ("profile", "test inversion")
+LOWER_BOUND_METHODS = ("profile", "test-inversion")
 
 
 @dataclass
@@ -71,11 +73,13 @@ class Figure:
     `gatescope.checks.undetermined_figures`).
 
     ``interval_method`` names the construction of ``ci``: a bootstrap one of
-    `INTERVALS` or ``"profile"`` (`gatescope.profile`); None when unknown.
+    `INTERVALS`, ``"profile"`` or ``"test-inversion"`` (`gatescope.profile`); None
+    when unknown.
     ``lower_bound`` is the one-sided lower confidence bound at ``level``,
     None when not computed; ``lower_bound_method`` its construction,
-    `LOWER_BOUND_METHODS`: ``"profile"`` (profile likelihood) or ``"test
-    inversion"`` (calibrated by simulation, `gatescope.profile`). ``touches_boundary`` is True
+    `LOWER_BOUND_METHODS`: ``"profile"`` (profile likelihood) or
+    ``"test-inversion"`` (calibrated by simulated data sets, `gatescope.profile`).
+    ``touches_boundary`` is True
     when the top of the figure's range (F = 1: a perfect gate, or the target
     state) lies inside the profile-likelihood interval at ``level`` — the data
     are then consistent with it, and the interval is one-sided; None when no

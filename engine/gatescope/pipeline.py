@@ -30,7 +30,7 @@ from .diagnostics import diagnostics, warn_if_poor_fit
 from .errors import InputError, NumericalError, collect_warnings, warn
 from .estimators import MAXIMUM_LIKELIHOOD, estimate
 from .estimators import check_options as check_estimator_options
-from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS, parameter_range
+from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS, PROFILE_INTERVALS, parameter_range
 from .likelihood import PoissonLikelihood
 from .merit import chsh_gap_warning, compute_figures
 from .model import build_model
@@ -60,20 +60,22 @@ def check_fit_options(*, method: str = "mle", bootstrap: int = 0,
     fraction(ci_level, name("ci_level"))
     if interval is not None:
         choice(interval, FIT_INTERVALS, name("interval"), "interval")
-    if (interval == "profile" or lower_bound) and method not in MAXIMUM_LIKELIHOOD:
+    if (interval in PROFILE_INTERVALS or lower_bound) and method not in MAXIMUM_LIKELIHOOD:
         raise InputError(f"profile-likelihood intervals and lower bounds are centred on the "
                          f"maximum-likelihood estimate; use --method "
                          f"{' or '.join(MAXIMUM_LIKELIHOOD)}, not {method}"
                          if command_line else
                          f"profile-likelihood intervals and lower bounds need a maximum-"
                          f"likelihood method ({', '.join(MAXIMUM_LIKELIHOOD)}), not {method}",
-                         key=name("interval") if interval == "profile" else name("lower_bound"))
+                         key=name("interval") if interval in PROFILE_INTERVALS
+                         else name("lower_bound"))
     check_seed(seed, name("seed"))            # recorded even without a bootstrap
     check_workers(workers, name("workers"))
     if bootstrap:
         check_bootstrap_options(
             samples=bootstrap, kind=bootstrap_kind, workers=workers,
-            interval=DEFAULT_INTERVAL if interval in (None, "profile") else interval, seed=seed,
+            interval=DEFAULT_INTERVAL if interval in (None,) + PROFILE_INTERVALS else interval,
+            seed=seed,
             names={key: name(key) for key in ("bootstrap", "bootstrap_kind", "interval", "seed",
                                               "workers")})
 
@@ -149,16 +151,23 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     check_fit_options(method=method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options, lower_bound=lower_bound)
-    profiled = PROFILED_FIGURES if interval == "profile" else ()
+    profiled = PROFILED_FIGURES if interval in PROFILE_INTERVALS else ()
+    inverted = interval == "test-inversion"
+    if inverted and experiment.kind != "state" and experiment.n_qubits > MAX_INVERTED_QUBITS:
+        raise InputError(f"test-inversion intervals take about a thousand refits: they are "
+                         f"offered up to {MAX_INVERTED_QUBITS} qubits, and this experiment has "
+                         f"{experiment.n_qubits}; use --interval profile",
+                         key="interval")
     if interval is None:
         profiled = default_profiled(experiment, method, bootstrap)
-    if interval in (None, "profile"):
+    if interval in (None,) + PROFILE_INTERVALS:
         interval = DEFAULT_INTERVAL           # the bootstrap's, for every other figure
     with collect_warnings() as texts:
         result = _fit(experiment, method, bootstrap=bootstrap, bootstrap_kind=bootstrap_kind,
                       ci_level=ci_level, seed=seed, workers=workers, progress=progress,
                       command_line=command_line, diamond=diamond, interval=interval,
-                      options=options, lower_bound=lower_bound, profiled=profiled)
+                      options=options, lower_bound=lower_bound, profiled=profiled,
+                      inverted=inverted)
     result.warnings = tuple(texts)
     return result
 
@@ -189,13 +198,16 @@ def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tup
 #: (benchmarks/README.md, "Lower bounds near the boundary"). Elsewhere the bound is the
 #: profile-likelihood one.
 TEST_INVERSION_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity")}
+#: Test-inversion intervals (`fit` with ``interval="test-inversion"``) are offered up to
+#: this many qubits: each end tests 4–8 values with B = `profile.CALIBRATION_SAMPLES` refits.
+MAX_INVERTED_QUBITS = 2
 #: Entropy added to the seed of a fit for the random numbers of its test inversions, so
 #: that they are not those of its bootstrap.
 TEST_INVERSION_STREAM = 0x7465
 
 
 def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
-                    lower_bound: bool, seed: int = 0) -> None:
+                    lower_bound: bool, seed: int = 0, inverted: bool = False) -> None:
     """Set the profile-likelihood intervals of the figures named in ``interval``, the
     lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
     that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
@@ -206,12 +218,14 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     search that fails or does not converge is a warning (code ``profile``).
     """
     names = None if lower_bound else tuple(interval)
-    inverted = (TEST_INVERSION_DEFAULT.get(model.n_qubits, ()) if model.kind != "state"
-                else ())
+    bounds = (TEST_INVERSION_DEFAULT.get(model.n_qubits, ()) if model.kind != "state"
+              else ())
     try:
         found = profile_figures(model, target, level=level, interval=bool(interval),
                                 lower_bound=lower_bound, names=names, start=point.choi,
-                                test_inversion=inverted, seed=[seed, TEST_INVERSION_STREAM])
+                                invert_bounds=bounds,
+                                invert_intervals=PROFILED_FIGURES if inverted else (),
+                                seed=[seed, TEST_INVERSION_STREAM])
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
         return
@@ -220,6 +234,12 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         if fig is None or not fig.determined:
             continue
         parts = [p for p in (prof.interval, prof.lower) if p is not None]
+        asked = ((prof.interval, inverted), (prof.lower, name in bounds))
+        if any(p is not None and wanted and p.method != "test-inversion" for p, wanted in asked):
+            warn("profile", f"the test inversion of {name} rejected every value up to the "
+                            f"estimate itself (counts closer to their expectations than shot "
+                            f"noise makes likely): its profile-likelihood interval or bound is "
+                            f"given instead", stacklevel=2)
         if not all(p.converged for p in parts):
             warn("profile", f"the profile-likelihood search for {name} stopped before it "
                             f"converged: its interval may be inaccurate", stacklevel=2)
@@ -227,7 +247,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         if prof.interval is not None and name in interval:
             fig.ci = (max(min(prof.interval.low, fig.value), low),
                       min(max(prof.interval.high, fig.value), high))
-            fig.interval_method = "profile"
+            fig.interval_method = prof.interval.method
         if prof.lower is not None:
             fig.lower_bound = max(min(prof.lower.low, fig.value), low)
             fig.lower_bound_method = prof.lower.method
@@ -327,7 +347,8 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
 
 
 def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
-         command_line, diamond, interval, options, lower_bound=False, profiled=()) -> Result:
+         command_line, diamond, interval, options, lower_bound=False, profiled=(),
+         inverted=False) -> Result:
     started = time.time()
     t0 = time.perf_counter()
     if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:
@@ -351,7 +372,7 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
     values = compute_figures(point.choi, target, diamond=diamond, details=details,
                              kind=model.kind)
     boot = None
-    if seed is None and lower_bound and not bootstrap:
+    if seed is None and (lower_bound or inverted) and not bootstrap:
         seed = draw_seed()                    # the test inversions simulate data sets
     if bootstrap:
         boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
@@ -389,5 +410,5 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
                 warn("chsh", text, stacklevel=2)
     if profiled or lower_bound:
         attach_profiles(result, model, point, target, ci_level, interval=profiled,
-                        lower_bound=lower_bound, seed=seed)
+                        lower_bound=lower_bound, seed=seed, inverted=inverted)
     return result

@@ -272,6 +272,7 @@ class End:
     touches_edge: bool
     converged: bool
     mu: float = 0.0              # the multiplier of the profile there (inf: the maximiser)
+    deviance: float | None = None  # a test-inversion end: the deviance there (its cutoff)
 
 
 @dataclass
@@ -283,9 +284,11 @@ class ProfileInterval:
     an end is the edge of the figure's range (the data are compatible with,
     e.g., a perfect gate at this level); ``exact`` is False when an end was
     found by a non-concave search (purity above its estimate); ``method`` is
-    ``"profile"``, or ``"test inversion"`` for
-    `Profile.test_inversion_lower_bound` (whose ``cutoff`` is then the
-    deviance at the bound, the calibrated cutoff); ``converged``
+    ``"profile"``, or ``"test-inversion"`` for `Profile.test_inversion_lower_bound`
+    and `Profile.test_inversion_interval` (whose ``cutoff`` is then the
+    deviance at the lower end, the calibrated cutoff; an end where even the
+    estimate was rejected falls back to the profile-likelihood end and makes
+    ``method`` "profile"); ``converged``
     is False when a fit of a concave search stopped before it converged (a
     non-concave search is local anyway, its fits may stop where the line
     search cannot climb); ``fits`` and ``seconds`` count the tilted fits this
@@ -564,8 +567,10 @@ class Profile:
         return pauli_twirl(choi, self.figure.unitary)
 
     def exceedance(self, choi: np.ndarray, observed: float, *, samples: int,
-                   seed: int) -> float:
-        """Monte Carlo p-value (1 + #{T* ≥ observed})/(B + 1) of the value F(``choi``).
+                   seed, side: int = -1) -> float:
+        """Monte Carlo p-value of the value F(``choi``) against the estimate ``observed``:
+        (1 + #{T* ≥ observed})/(B + 1) for ``side`` −1 (a value below the estimate),
+        (1 + #{T* ≤ observed})/(B + 1) for ``side`` +1 (a value above it).
 
         B = ``samples`` data sets of Poisson counts are drawn from
         `simulated_process` (with the intensities that maximise ℓ there, as the
@@ -580,69 +585,108 @@ class Profile:
         means = np.maximum(np.asarray(self.model.expected_counts(source, ev.intensities),
                                       dtype=float), 0.0)
         t0 = time.perf_counter()
-        above = 0
+        beyond = 0
         for child in np.random.SeedSequence(seed).spawn(samples):
             fit = fit_mle(self.model, counts=resample_counts(means, child), start=source)
-            above += self.figure.value(fit.choi) >= observed
+            value = self.figure.value(fit.choi)
+            beyond += value >= observed if side < 0 else value <= observed
         self.seconds += time.perf_counter() - t0
         self.simulated_fits += samples
-        return (1.0 + above) / (samples + 1.0)
+        return (1.0 + beyond) / (samples + 1.0)
 
     def test_inversion_lower_bound(self, level: float = 0.95, *,
                                    samples: int = CALIBRATION_SAMPLES,
-                                   seed: int = 0) -> ProfileInterval:
-        """The lower confidence bound at ``level`` by inverting a simulated test.
-
-        A value f is rejected when the estimate T = F(Ĵ) is larger than data
-        from a process with figure f make plausible: its p-value `exceedance`,
-        simulated at the profile maximiser J_f (the nuisance parameters at
-        their constrained maximum-likelihood values; for a process fidelity
-        Pauli-twirled around the target, `simulated_process`), is at most
-        α = 1 − level. The bound is the f where the p-value crosses α (the
-        test-inversion bootstrap bound: Carpenter, J. R. Stat. Soc. B 61, 159
-        (1999)). The tested values are points of the profile, labelled by the
-        signed root s of their deviance (s > 0 below the estimate). The first is
-        the profile-likelihood bound s = z_level; steps of at least 0.5 in s
-        (or the asymptotic slope −1 of Φ⁻¹(p) against s) look for a value
-        accepted (p > α) and one rejected; false position on Φ⁻¹(p) then shrinks
-        that bracket to `S_TOL` — the p-values of B simulated data sets change
-        in steps, so a bracket, not a root, is what can be found — or until
-        `MAX_TESTED` values are tested. The bound is the profile's value at the
-        false-position point of the last bracket (``converged`` False when no
-        bracket was found: the bound is then the last value tested). Only values
-        at or below the estimate are tested: when even the estimate is rejected
-        (data whose counts lie closer to their expectations than shot noise makes
-        likely) the bound is the profile-likelihood one, ``method`` "profile",
-        ``converged`` False. The simulated data sets are the same for every tested value (common random
-        numbers), so p changes little between nearby values. Cost: B fits for
-        each tested value (4 to 6 as a rule).
-        """
+                                   seed=0) -> ProfileInterval:
+        """The lower confidence bound at ``level`` by inverting a simulated test: the
+        end `test_inversion_end` below the estimate at tail α = 1 − level."""
         if not 0.5 < level < 1:
             raise ValueError(f"a one-sided level must lie in (0.5, 1), got {level}")
+        return self._inverted(level, (-1,), 1.0 - level, "lower", samples, seed)
+
+    def test_inversion_interval(self, level: float = 0.95, *,
+                                samples: int = CALIBRATION_SAMPLES,
+                                seed=0) -> ProfileInterval:
+        """The two-sided interval at ``level`` by inverting simulated tests: the ends
+        `test_inversion_end` at tail (1 − level)/2 on each side of the estimate (the
+        same simulated data sets for both)."""
+        return self._inverted(level, (-1, +1), 0.5 * (1.0 - level), "two-sided", samples,
+                              seed)
+
+    def _inverted(self, level, sides, tail, sided, samples, seed) -> ProfileInterval:
         t0, fits0, sims0 = time.perf_counter(), self.fits, self.simulated_fits
+        ends = {-1: self.figure.low, +1: self.figure.high}
+        cutoff, touches, converged, method = math.nan, False, True, "test-inversion"
+        for side in sides:
+            end = self.test_inversion_end(side, tail, samples=samples, seed=seed)
+            ends[side] = end.value
+            touches |= end.touches_edge
+            converged &= end.converged
+            if end.deviance is None:
+                method = "profile"          # fell back to the profile-likelihood end
+            elif math.isnan(cutoff):
+                cutoff = end.deviance
+        return ProfileInterval(self.figure.name, self.estimate, ends[-1], ends[+1], level,
+                               sided, cutoff, bool(touches), True,
+                               self.fits - fits0 + self.simulated_fits - sims0,
+                               time.perf_counter() - t0, bool(converged), method)
+
+    def test_inversion_end(self, side: int, tail: float, *,
+                           samples: int = CALIBRATION_SAMPLES, seed=0) -> End:
+        """The end on ``side`` (−1 below the estimate, +1 above) of the confidence set of
+        a simulated test at one-sided ``tail``.
+
+        A value f on the lower side is rejected when the estimate T = F(Ĵ) is
+        larger than data from a process with figure f make plausible — its
+        p-value `exceedance`, simulated at the profile maximiser J_f (the
+        nuisance parameters at their constrained maximum-likelihood values;
+        for a fidelity Pauli-twirled around the target, `simulated_process`),
+        is at most ``tail`` — and on the upper side when T is smaller. The end
+        is where the p-value crosses ``tail`` (the test-inversion bootstrap
+        interval: Carpenter, J. R. Stat. Soc. B 61, 159 (1999)). The tested
+        values are points of the profile, labelled by the signed root s of
+        their deviance (s > 0 on ``side`` of the estimate). The first is the
+        profile-likelihood end s = z_{1−tail}; steps of at least 0.5 in s (or
+        the asymptotic slope −1 of Φ⁻¹(p) against s) look for a value accepted
+        (p > tail) and one rejected; false position on Φ⁻¹(p) then shrinks that
+        bracket to `S_TOL` — the p-values of B simulated data sets change in
+        steps, so a bracket, not a root, is what can be found — or until
+        `MAX_TESTED` values are tested. The end is the profile's value at the
+        false-position point of the last bracket (``converged`` False when no
+        bracket was found: the end is then the last value tested); the edge of
+        the range when even the edge is accepted (``touches_edge``). Only
+        values on ``side`` of the estimate are tested: when even the estimate
+        is rejected (data whose counts lie closer to their expectations than
+        shot noise makes likely) the end is the profile-likelihood one, and
+        ``deviance`` of the result is None; otherwise it is s², the deviance
+        there (the calibrated cutoff). The simulated data sets are the same
+        for every tested value (common random numbers), so p changes little
+        between nearby values. Cost: B fits for each tested value (4 to 6 as a
+        rule).
+        """
         observed = self.statistic()
-        alpha = 1.0 - level
-        z_goal = float(ndtri(alpha))
+        z_goal = float(ndtri(tail))
         clip = 0.5 / (samples + 1.0)
 
         def point(s):
             if s == 0.0:
                 return End(self.estimate, self.mle.choi, False, bool(self.mle.converged))
-            return self.end_point(-1 if s > 0 else +1, s * s)
+            return self.end_point(side if s > 0 else -side, s * s)
 
         def z_of(p):
             return float(ndtri(min(max(p, clip), 1.0 - clip)))
 
         tested = {}                                  # signed root s → p-value
         accepted = rejected = None                   # the largest accepted, smallest rejected s
-        s = float(ndtri(level))                      # the profile-likelihood bound first
+        s = float(ndtri(1.0 - tail))                 # the profile-likelihood end first
+        edge = None
         for _ in range(MAX_TESTED):
             end = point(s)
-            p = self.exceedance(end.choi, observed, samples=samples, seed=seed)
+            p = self.exceedance(end.choi, observed, samples=samples, seed=seed, side=side)
             tested[s] = p
-            if p > alpha:
+            if p > tail:
                 accepted = s if accepted is None else max(accepted, s)
-                if end.touches_edge and s > 0:       # even the bottom of the range is accepted
+                if end.touches_edge and s > 0:       # even the edge of the range is accepted
+                    edge = end
                     break
             else:
                 rejected = s if rejected is None else min(rejected, s)
@@ -657,14 +701,13 @@ class Profile:
                 s = max(rejected - max(0.5, z_goal - z_of(p)), 0.0)
             else:
                 break
+        if edge is not None:
+            return replace(edge, deviance=accepted * accepted)
         if accepted is None and rejected == 0.0:
-            # even the estimate is rejected: data from the processes tested give lower
-            # estimates than these data (counts closer to their expectations than shot
-            # noise makes likely); no value below the estimate is in the confidence set,
-            # and the bound reported is the profile-likelihood one
-            bound = self.lower_bound(level)
-            return replace(bound, fits=self.fits - fits0 + self.simulated_fits - sims0,
-                           seconds=time.perf_counter() - t0, converged=False)
+            # even the estimate is rejected: no value on this side is in the confidence
+            # set; the end reported is the profile-likelihood one
+            end = self.end_point(side, one_sided_cutoff(1.0 - tail))
+            return replace(end, deviance=None)
         converged = accepted is not None and rejected is not None
         if converged:
             s = accepted + (rejected - accepted) * _falsi(z_of(tested[accepted]),
@@ -672,13 +715,8 @@ class Profile:
         else:
             s = accepted if rejected is None else rejected
         end = point(s)
-        low = self.figure.low if end.touches_edge and s > 0 else end.value
-        return ProfileInterval(self.figure.name, self.estimate, low, self.figure.high, level,
-                               "lower", s * s if s > 0 else 0.0,
-                               bool(low <= self.figure.low), True,
-                               self.fits - fits0 + self.simulated_fits - sims0,
-                               time.perf_counter() - t0, bool(converged and end.converged),
-                               "test inversion")
+        return replace(end, converged=bool(converged and end.converged),
+                       deviance=s * s if s > 0 else 0.0)
 
     def log_likelihood_at(self, value: float, *, value_tol: float | None = None,
                           ll_tol: float = 1e-4) -> float:
@@ -772,8 +810,8 @@ class FigureProfile:
 
 def profile_figures(model, target, *, level: float = 0.95, interval: bool = True,
                     lower_bound: bool = False, names=None, start=None, counts=None,
-                    fit_options: dict | None = None, test_inversion=(),
-                    seed=0, samples: int = CALIBRATION_SAMPLES) -> dict:
+                    fit_options: dict | None = None, invert_bounds=(), invert_intervals=(),
+                    seed=0, samples: int | None = None) -> dict:
     """Profile-likelihood intervals and lower bounds of the figures of ``model``.
 
     Parameters
@@ -789,12 +827,13 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
     start : array, optional
         Warm start of the profile's own maximum-likelihood fit (the point
         estimate of the pipeline).
-    test_inversion : iterable of str
-        Figures whose lower bound is `Profile.test_inversion_lower_bound`
+    invert_bounds, invert_intervals : iterable of str
+        Figures whose lower bound is `Profile.test_inversion_lower_bound`, and
+        whose two-sided interval is `Profile.test_inversion_interval`
         (``samples`` simulated data sets per tested value, random numbers from
-        ``seed``, an int or a sequence of ints for `numpy.random.SeedSequence`)
-        instead of the profile-likelihood one; only figures with a target
-        unitary (the process and average gate fidelities) take it.
+        ``seed``, an int or a sequence of ints for `numpy.random.SeedSequence`;
+        ``samples`` None: `CALIBRATION_SAMPLES`), instead of the profile-likelihood ones; only figures with a target
+        unitary (the process and average gate fidelities) take them.
 
     Returns
     -------
@@ -805,6 +844,7 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
     ``process_fidelity`` (computed once when both are asked for).
     """
     options = dict(FIT_OPTIONS if fit_options is None else fit_options)
+    samples = CALIBRATION_SAMPLES if samples is None else samples
     allowed = profiled_names(model, target)
     names = allowed if names is None else tuple(n for n in names if n in allowed)
     t0 = time.perf_counter()
@@ -818,14 +858,18 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
             continue
         prof = Profile(model, named_figure(name, target, model.dim, model.kind), counts=counts,
                        mle=mle, fit_options=options)
-        two = prof.interval(level) if interval else None
-        low = None
+        invertible = prof.figure.unitary is not None and model.kind != "state"
+        two = low = None
+        if interval:
+            two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
+                   if name in invert_intervals and invertible else prof.interval(level))
         if lower_bound:
             low = (prof.test_inversion_lower_bound(level, samples=samples, seed=seed)
-                   if name in test_inversion and prof.figure.unitary is not None
-                   else prof.lower_bound(level))
+                   if name in invert_bounds and invertible else prof.lower_bound(level))
         top = prof.consistent_with_top(level)
-        if top is None:
+        if two is not None and two.method == "test-inversion":
+            top = bool(two.high >= prof.figure.high)      # the calibrated interval decides
+        elif top is None:
             # purity: no single maximiser; the two-sided interval says whether it reaches 1
             if two is None:
                 two_top = prof.end_point(+1, two_sided_cutoff(level))

@@ -112,16 +112,20 @@ def _signed(x: float) -> str:
     return ("−" if x < 0 else "+") + _num(abs(x))
 
 
+#: How `show` and the report name an interval or bound not made by the bootstrap.
+METHOD_WORDS = {"profile": "profile likelihood", "test-inversion": "test inversion"}
+
+
 def _fmt_figure(fig) -> str:
     bound = ("" if fig.lower_bound is None else
              f"; lower bound {_num(fig.lower_bound)} (one-sided {100 * fig.level:g}%"
-             + (", test inversion" if fig.lower_bound_method == "test inversion" else "") + ")")
+             + (", test inversion" if fig.lower_bound_method == "test-inversion" else "") + ")")
     if fig.ci is None:
         return _num(fig.value) + bound
     lo, hi = fig.ci
     if abs(hi - lo) < 5e-13:           # fixed by a constraint (e.g. trace of a TP map)
         return f"{_num(fig.value)}  (no spread) at {100 * fig.level:g}%" + bound
-    how = " profile likelihood" if fig.interval_method == "profile" else ""
+    how = (" " + METHOD_WORDS[fig.interval_method]) if fig.interval_method in METHOD_WORDS else ""
     # value with the distances to the interval ends, then the interval itself
     return (f"{_num(fig.value)} {_signed(hi - fig.value)} {_signed(lo - fig.value)}  "
             f"[{_num(lo)}, {_num(hi)}] at {100 * fig.level:g}%{how}" + bound)
@@ -217,9 +221,10 @@ def summary(result: Result, *, source: str | None = None) -> str:
         errors = f", {b.errors} raised an error" if b.errors else ""
         lines.append(f"  (bootstrap: {b.samples} {b.kind} resamples{refit}, {b.interval} intervals, "
                      f"seed {b.seed}; {b.failures} did not converge{errors})")
-    profiled = [_label(k, state) for k, f in r.figures.items() if f.interval_method == "profile"]
-    if profiled:
-        lines.append(f"  (profile-likelihood intervals: {', '.join(profiled)})")
+    for method, words in METHOD_WORDS.items():
+        named = [_label(k, state) for k, f in r.figures.items() if f.interval_method == method]
+        if named:
+            lines.append(f"  ({words.replace(' ', '-')} intervals: {', '.join(named)})")
     lines.extend(boundary_lines(r))
     if state:
         lines.extend(_density_matrix(r))

@@ -24,7 +24,7 @@ from ..conventions import n_qubits_of
 from ..diagnostics import OUTLIER_RESIDUAL, POOR_FIT_P
 from ..estimators import MAXIMUM_LIKELIHOOD
 from ..intervals import parameter_range
-from ..summary import (boundary_text, figure_label, number_text, row_numbers, status_of,
+from ..summary import (METHOD_WORDS, boundary_text, figure_label, number_text, row_numbers, status_of,
                        status_text, title_of)
 from . import html
 from .html import esc
@@ -53,7 +53,7 @@ def _out_of_range(name: str, value: float, dim: int, kind: str) -> str:
 
 
 def _bound_how(fig) -> str:
-    return ", test inversion" if fig.lower_bound_method == "test inversion" else ""
+    return ", test inversion" if fig.lower_bound_method == "test-inversion" else ""
 
 
 def figures_table(r) -> str:
@@ -81,8 +81,8 @@ def figures_table(r) -> str:
                 interval = f"no spread at {level}"
             else:
                 interval = f"[{_value(lo)}, {_value(hi)}] at {level}"
-            if fig.interval_method == "profile":
-                interval += '<br><span class="small">profile likelihood</span>'
+            if fig.interval_method in METHOD_WORDS:
+                interval += f'<br><span class="small">{METHOD_WORDS[fig.interval_method]}</span>'
         if fig.lower_bound is not None:
             level = f"{100 * fig.level:g}%" if fig.level is not None else ""
             interval += (("<br>" if interval else "")
@@ -184,9 +184,12 @@ def _bootstrap_items(r) -> list[tuple[str, str]]:
     b = r.bootstrap
     if b is None:
         return []
-    profiled = [figure_label(name, r.kind) for name, fig in r.figures.items()
-                if fig.interval_method == "profile"]
-    how = b.interval + (f" (profile likelihood for {', '.join(profiled)})" if profiled else "")
+    how = b.interval
+    for method, words in METHOD_WORDS.items():
+        named = [figure_label(name, r.kind) for name, fig in r.figures.items()
+                 if fig.interval_method == method]
+        if named:
+            how += f" ({words} for {', '.join(named)})"
     items = [("resamples", f"{b.samples} {b.kind}" + (f", refitted with {b.method}"
                                                        if b.method else "")),
              ("intervals", how), ("seed", str(b.seed)),

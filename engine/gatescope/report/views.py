@@ -28,7 +28,7 @@ import numpy as np
 from ..channels import choi_from_unitary, choi_to_chi, choi_to_ptm
 from ..conventions import n_qubits_of, pauli_labels
 from ..diagnostics import OUTLIER_RESIDUAL
-from ..summary import MAIN_FIGURES, STATE_MAIN_FIGURES, figure_label
+from ..summary import MAIN_FIGURES, METHOD_WORDS, STATE_MAIN_FIGURES, figure_label
 from .plots import Plot
 
 #: Single-qubit labels in the order the data view lists them; others follow in the order
@@ -290,12 +290,17 @@ def data_plots(r) -> list[Plot]:
 def _constructions(r, names) -> str:
     """How the intervals of ``names`` were made, in words."""
     how = {name: r.figures[name].interval_method or r.bootstrap.interval for name in names}
-    profiled = [figure_label(n, r.kind) for n, m in how.items() if m == "profile"]
-    if not profiled:
+    parts = []
+    for method, words in METHOD_WORDS.items():
+        named = [figure_label(n, r.kind) for n, m in how.items() if m == method]
+        if len(named) == len(how):
+            return words
+        if named:
+            parts.append(f"{words} for {', '.join(named)}")
+    others = any(m not in METHOD_WORDS for m in how.values())
+    if not parts:
         return r.bootstrap.interval
-    if len(profiled) == len(how):
-        return "profile likelihood"
-    return f"profile likelihood for {', '.join(profiled)}; {r.bootstrap.interval} otherwise"
+    return "; ".join(parts) + (f"; {r.bootstrap.interval} otherwise" if others else "")
 
 
 def bootstrap_plot(r) -> Plot | None:
