@@ -12,7 +12,9 @@ bounds of the average gate fidelity are the images of these under F ↦ (dF + 1)
 so they hold exactly when these do. ``--two-sided`` adds the two-sided profile-likelihood
 and test-inversion intervals (`Profile.interval`, `Profile.test_inversion_interval`).
 
-One CSV line per repetition (``--out``); a rerun skips the repetitions already there;
+"fallbacks" counts the repetitions whose test inversion rejected even the estimate and gave
+the profile-likelihood bound instead (their cutoff is NaN in the CSV). One CSV line per
+repetition (``--out``); a rerun skips the repetitions already there;
 ``--table-only`` prints the table of what the file holds.
 
     nice -n 10 python benchmarks/lower_bound_coverage.py --repetitions 200 --workers 2
@@ -103,7 +105,8 @@ def table(rows: list[dict]) -> str:
     for row in rows:
         groups[key_of(row)].append(row)
     head = ["gate, counts, noise, r", "n", "infid./sd", "profile LB cov.", "test-inv. LB cov.",
-            "mean cutoff", "est. − profile LB", "est. − test-inv. LB", "fits", "test-inv. s"]
+            "mean cutoff", "fallbacks", "est. − profile LB", "est. − test-inv. LB", "fits",
+            "test-inv. s"]
     two = bool(rows) and all(r.get("ti_lo") not in (None, "") for r in rows)
     if two:
         head += ["profile cov.", "test-inv. cov.", "profile width", "test-inv. width",
@@ -116,7 +119,8 @@ def table(rows: list[dict]) -> str:
         ratio = (1.0 - t.mean()) / est.std(ddof=1) if len(g) > 1 else float("nan")
         line = (f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g} | {len(g)} | {ratio:.2f} | "
                 f"{_cov(col('profile_lb') <= t)} | {_cov(col('ti_lb') <= t)} | "
-                f"{np.mean(col('ti_cutoff')):.2f} | {np.mean(est - col('profile_lb')):.2e} | "
+                f"{np.nanmean(col('ti_cutoff')):.2f} | {int(np.isnan(col('ti_cutoff')).sum())} | "
+                f"{np.mean(est - col('profile_lb')):.2e} | "
                 f"{np.mean(est - col('ti_lb')):.2e} | {np.mean(col('ti_fits')):.0f} | "
                 f"{np.mean(col('ti_s')):.2f} |")
         if two:

@@ -18,6 +18,17 @@ one CSV line per figure to ``--out`` (default
 benchmarks/results/state_coverage_runs.csv); a rerun with the same file
 skips the repetitions already there, and ``--table-only`` prints the table of
 what the file holds.
+
+``--profile`` (write to its own ``--out``) adds, for the figures `gatescope.profile`
+covers (the fidelity to a pure target and the purity), the two-sided
+profile-likelihood interval and the one-sided lower bounds at ``--level``: the
+profile-likelihood one and the bootstrap's estimate − z·s* (columns
+``profile_low``, ``profile_high``, ``profile_lb``, ``normal_lb``; empty for the
+other figures). Near a pure state, for the coverage map of benchmarks/README.md:
+
+    nice -n 10 python benchmarks/state_coverage.py --profile --repetitions 100 \
+        --configs phi++depolarizing:0.0004=phi+ phi++depolarizing:0.004=phi+ \
+        --out benchmarks/results/state_boundary_coverage.csv
 """
 
 from __future__ import annotations
@@ -38,6 +49,7 @@ from collections import defaultdict  # noqa: E402
 from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
+from scipy.special import ndtri  # noqa: E402
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent / "engine"))
@@ -49,6 +61,7 @@ from gatescope.intervals import INTERVALS, interval, parameter_range  # noqa: E4
 from gatescope.merit import compute_state_figures  # noqa: E402
 from gatescope.model import StateModel  # noqa: E402
 from gatescope.model.state import full_grid  # noqa: E402
+from gatescope.profile import profile_figures  # noqa: E402
 from gatescope.synth.state import simulate_state_counts, state_from_spec  # noqa: E402
 
 #: (SPEC, target state name or None): the demo's pair source (t₂ = t₃), a Bell state in
@@ -58,6 +71,8 @@ DEFAULT_CONFIGS = ("psi-+visibility:0.94+depolarizing:0.03=psi-",
                    "random:1:3+depolarizing:0.1")
 FIELDS = (["config", "shots", "samples", "level", "rep", "figure", "truth", "point", "boot_mean",
            "boot_sd"] + [f"{c}_{end}" for c in INTERVALS for end in ("low", "high")])
+#: The extra columns of ``--profile``.
+PROFILE_FIELDS = ["profile_low", "profile_high", "profile_lb", "normal_lb"]
 
 
 def _config(text: str):
@@ -80,8 +95,22 @@ def one_repetition(text: str, shots: float, rep: int, args) -> list[dict]:
         warnings.simplefilter("ignore")
         boot, _ = run_bootstrap(model, point, target, samples=args.samples,
                                 seed=args.seed + rep + 1_000_000, workers=args.workers)
-    return [summary_row(text, shots, args.samples, args.level, rep, name, truth[name],
+        profiles = (profile_figures(model, target, level=args.level, lower_bound=True,
+                                    start=point.choi) if args.profile else {})
+    rows = [summary_row(text, shots, args.samples, args.level, rep, name, truth[name],
                         figures[name], boot.figures[:, k]) for k, name in enumerate(boot.names)]
+    if args.profile:
+        z = float(ndtri(args.level))
+        for row in rows:
+            prof = profiles.get(row["figure"])
+            row.update(dict.fromkeys(PROFILE_FIELDS, ""))
+            if prof is not None:
+                est, low = float(row["point"]), parameter_range(row["figure"], 4, "state")[0]
+                row.update(profile_low=repr(min(prof.interval.low, est)),
+                           profile_high=repr(max(prof.interval.high, est)),
+                           profile_lb=repr(min(prof.lower.low, est)),
+                           normal_lb=repr(max(est - z * float(row["boot_sd"]), low)))
+    return rows
 
 
 def summary_row(config, shots, samples, level, rep, figure, truth, point, values) -> dict:
@@ -104,14 +133,23 @@ def read_rows(path: Path) -> list[dict]:
         return list(csv.DictReader(fh))
 
 
+def _coverage(hits) -> str:
+    p = float(np.mean(hits))
+    return f"{p:.3f} ± {math.sqrt(p * (1 - p) / len(hits)):.3f}"
+
+
 def table(rows: list[dict]) -> str:
     groups = defaultdict(list)
     for r in rows:
         groups[(r["config"], float(r["shots"]), r["figure"])].append(r)
+    profiled = bool(rows) and "profile_low" in rows[0]
+    extra = ["profile", "normal LB", "profile LB"] if profiled else []
+    if profiled:
+        groups = {k: rs for k, rs in groups.items() if rs[0]["profile_low"] != ""}
     lines = ["| configuration | shots | figure | reps | truth | mean bias ± se | sd of θ̂ | mean s* "
              "| mean boot bias | " + " | ".join("**normal** (default)" if c == "normal" else c
-                                               for c in INTERVALS) + " |",
-             "|---" * (8 + len(INTERVALS)) + "|"]
+                                               for c in list(INTERVALS) + extra) + " |",
+             "|---" * (8 + len(INTERVALS) + len(extra)) + "|"]
     for (config, shots, figure), rs in groups.items():
         truth = float(rs[0]["truth"])
         points = np.array([float(r["point"]) for r in rs])
@@ -119,10 +157,11 @@ def table(rows: list[dict]) -> str:
         boot_bias = np.array([float(r["boot_mean"]) for r in rs]) - points
         bias = points - truth
         cover = []
-        for c in INTERVALS:
+        for c in list(INTERVALS) + (["profile"] if profiled else []):
             hits = [float(r[f"{c}_low"]) <= truth <= float(r[f"{c}_high"]) for r in rs]
-            p = float(np.mean(hits))
-            cover.append(f"{p:.3f} ± {math.sqrt(p * (1 - p) / len(hits)):.3f}")
+            cover.append(_coverage(hits))
+        for c in ("normal", "profile") if profiled else ():
+            cover.append(_coverage([float(r[f"{c}_lb"]) <= truth for r in rs]))
         lines.append(f"| {config} | {shots:g} | {figure} | {len(rs)} | {truth:.4f} | "
                      f"{bias.mean():+.4f} ± {bias.std(ddof=1) / math.sqrt(len(rs)):.4f} | "
                      f"{points.std(ddof=1):.4f} | {spreads.mean():.4f} | {boot_bias.mean():+.4f} | "
@@ -142,13 +181,16 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=2026)
     parser.add_argument("--out", type=Path, default=HERE / "results" / "state_coverage_runs.csv")
     parser.add_argument("--table-only", action="store_true")
+    parser.add_argument("--profile", action="store_true",
+                        help="add the profile-likelihood interval and lower bounds (own --out)")
     args = parser.parse_args(argv)
     if not args.table_only:
         done = {(r["config"], float(r["shots"]), int(r["rep"])) for r in read_rows(args.out)}
         new_file = not args.out.exists()
         args.out.parent.mkdir(parents=True, exist_ok=True)
         with open(args.out, "a", newline="") as fh:
-            writer = csv.DictWriter(fh, fieldnames=FIELDS)
+            writer = csv.DictWriter(fh, fieldnames=FIELDS + (PROFILE_FIELDS if args.profile
+                                                             else []))
             if new_file:
                 writer.writeheader()
             for config in args.configs:

@@ -108,16 +108,20 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     progress : bool
         Report on stderr: the compilation of the numerical kernels on a first run
         (`COMPILE_NOTICE`), and the bootstrap's progress.
-    interval : {"normal", "percentile", "basic", "bc", "profile"}, optional
+    interval : {"normal", "percentile", "basic", "bc", "profile", "test-inversion"}, optional
         Construction of the intervals. A bootstrap one (`gatescope.intervals`)
         applies to every bootstrapped figure. ``"profile"``: two-sided
         profile-likelihood intervals (`gatescope.profile`, with or without a
         bootstrap) for the figures it covers — ``process_fidelity``,
         ``average_gate_fidelity``, ``purity``, and a state's
         ``state_fidelity`` (pure target) and ``purity`` — and the bootstrap
-        interval `gatescope.intervals.DEFAULT_INTERVAL` for the others. Default
-        (None): the profile-likelihood interval for the figures `default_profiled`
-        names, the bootstrap's default for the rest. Each figure records its construction
+        interval `gatescope.intervals.DEFAULT_INTERVAL` for the others.
+        ``"test-inversion"``: as ``"profile"``, but the process and average gate
+        fidelities get the test-inversion interval (`gatescope.profile`,
+        calibrated by simulated data sets; one and two qubits). Default (None):
+        the test-inversion interval for the figures `default_inverted` names,
+        the profile-likelihood one for the others `default_profiled` names, the
+        bootstrap's default for the rest. Each figure records its construction
         (``Figure.interval_method``).
     lower_bound : bool
         Also compute the one-sided lower confidence bound at ``ci_level`` of the
@@ -152,7 +156,7 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options, lower_bound=lower_bound)
     profiled = PROFILED_FIGURES if interval in PROFILE_INTERVALS else ()
-    inverted = interval == "test-inversion"
+    inverted = PROFILED_FIGURES if interval == "test-inversion" else ()
     if inverted and experiment.kind != "state" and experiment.n_qubits > MAX_INVERTED_QUBITS:
         raise InputError(f"test-inversion intervals take about a thousand refits: they are "
                          f"offered up to {MAX_INVERTED_QUBITS} qubits, and this experiment has "
@@ -160,6 +164,7 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                          key="interval")
     if interval is None:
         profiled = default_profiled(experiment, method, bootstrap)
+        inverted = default_inverted(experiment, method, bootstrap)
     if interval in (None,) + PROFILE_INTERVALS:
         interval = DEFAULT_INTERVAL           # the bootstrap's, for every other figure
     with collect_warnings() as texts:
@@ -192,11 +197,12 @@ def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tup
     return ()
 
 
-#: The figures whose lower bound (`fit` with ``lower_bound``) is the test-inversion one
-#: (`gatescope.profile.Profile.test_inversion_lower_bound`), by number of qubits of a
-#: process: where its coverage near a perfect gate was measured
-#: (benchmarks/README.md, "Lower bounds near the boundary"). Elsewhere the bound is the
-#: profile-likelihood one.
+#: The figures whose lower bound (`fit` with ``lower_bound``) and, given an ``mle``
+#: bootstrap and no ``interval``, whose interval are the test-inversion ones
+#: (`gatescope.profile.Profile.test_inversion_lower_bound`, `test_inversion_interval`),
+#: by number of qubits of a process: where their coverage near a perfect gate was
+#: measured closest to the level (benchmarks/README.md, "Test inversion"). Elsewhere
+#: the bound is the profile-likelihood one and the interval `PROFILE_DEFAULT`'s.
 TEST_INVERSION_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity")}
 #: Test-inversion intervals (`fit` with ``interval="test-inversion"``) are offered up to
 #: this many qubits: each end tests 4–8 values with B = `profile.CALIBRATION_SAMPLES` refits.
@@ -206,8 +212,17 @@ MAX_INVERTED_QUBITS = 2
 TEST_INVERSION_STREAM = 0x7465
 
 
+def default_inverted(experiment: Experiment, method: str, bootstrap: int) -> tuple:
+    """The figures whose interval is the test-inversion one when `fit` is given no
+    ``interval``: `TEST_INVERSION_DEFAULT` for a bootstrapped maximum-likelihood fit of
+    a process, none otherwise."""
+    if bootstrap and method in MAXIMUM_LIKELIHOOD and experiment.kind != "state":
+        return TEST_INVERSION_DEFAULT.get(experiment.n_qubits, ())
+    return ()
+
+
 def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
-                    lower_bound: bool, seed: int = 0, inverted: bool = False) -> None:
+                    lower_bound: bool, seed: int = 0, inverted=()) -> None:
     """Set the profile-likelihood intervals of the figures named in ``interval``, the
     lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
     that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
@@ -224,7 +239,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         found = profile_figures(model, target, level=level, interval=bool(interval),
                                 lower_bound=lower_bound, names=names, start=point.choi,
                                 invert_bounds=bounds,
-                                invert_intervals=PROFILED_FIGURES if inverted else (),
+                                invert_intervals=inverted,
                                 seed=[seed, TEST_INVERSION_STREAM])
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
@@ -234,7 +249,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         if fig is None or not fig.determined:
             continue
         parts = [p for p in (prof.interval, prof.lower) if p is not None]
-        asked = ((prof.interval, inverted), (prof.lower, name in bounds))
+        asked = ((prof.interval, name in inverted), (prof.lower, name in bounds))
         if any(p is not None and wanted and p.method != "test-inversion" for p, wanted in asked):
             warn("profile", f"the test inversion of {name} rejected every value up to the "
                             f"estimate itself (counts closer to their expectations than shot "
@@ -348,7 +363,7 @@ def compile_kernels(model, method: str = "mle", *, notify: bool = True,
 
 def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, workers, progress,
          command_line, diamond, interval, options, lower_bound=False, profiled=(),
-         inverted=False) -> Result:
+         inverted=()) -> Result:
     started = time.time()
     t0 = time.perf_counter()
     if experiment.kind != "state" and experiment.n_qubits >= resources.GUARD_FROM_QUBITS:

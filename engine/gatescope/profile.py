@@ -107,8 +107,9 @@ FIT_OPTIONS = {"tol": 1e-10, "opt_tol": 1e-5, "maxiter": 20000}
 DEVIANCE_TOL = 1e-3
 #: At most this many tilted fits per end of an interval.
 MAX_FITS_PER_END = 40
-#: Simulated data sets per tested value of a test-inversion lower bound.
-CALIBRATION_SAMPLES = 200
+#: Simulated data sets per tested value of a test inversion (the B of the coverage
+#: measured in benchmarks/README.md, "Test inversion").
+CALIBRATION_SAMPLES = 100
 #: At most this many values tested per test-inversion lower bound.
 MAX_TESTED = 8
 #: The search of a test-inversion bound stops when an accepted and a rejected value lie
