@@ -53,7 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .bootstrap import KINDS
     from .conventions import GATE_NAMES
     from .estimators import METHODS
-    from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS, INTERVALS
+    from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS
     from .synth.noise import spec_forms
     from .synth.state import STATE_NOISE_KINDS
 
