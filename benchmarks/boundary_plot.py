@@ -24,7 +24,8 @@ RESULTS = Path(__file__).parent / "results"
 #: (count level, CSV of boundary_coverage.py) of the one-qubit map.
 MAP = ((100, "boundary_coverage_100.csv"), (1000, "boundary_coverage.csv"),
        (10000, "boundary_coverage_10000.csv"))
-CALIBRATED = ("lower_bound_coverage.csv", "two_sided_coverage.csv", "two_sided_coverage_100.csv")
+CALIBRATED = ("lower_bound_coverage.csv", "two_sided_coverage.csv", "two_sided_coverage_100.csv",
+              "two_sided_coverage_10000.csv")
 MARKERS = {"white": "o", "overrotation": "s", "damping": "^"}
 
 

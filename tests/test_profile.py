@@ -412,6 +412,27 @@ def test_test_inversion_interval(near_unitary):
     assert end.value > two.estimate
 
 
+def test_test_inversion_reaches_a_perfect_gate_far_out_in_deviance(tmp_path):
+    # a few counts where the gate predicts (almost) none: the target itself lies at a
+    # deviance far beyond any cutoff, yet processes ever closer to it stay accepted — their simulated
+    # estimates fall below the observed one about as often as the target's — so the upper
+    # end is the top of the range, reached and flagged, not the last value a finite step
+    # tried. Common practice: a confidence set of a fidelity may contain F = 1 as a limit.
+    from support import simulated_experiment
+    exp, _ = simulated_experiment(tmp_path, "H+depolarizing:0.0004", shots=1000, seed=3,
+                                  n_qubits=1)
+    model = build_model(exp)
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=fit_mle(model, **FIT_OPTIONS))
+    assert prof.edge_deviance(+1) > 100.0
+    high = prof.test_inversion_end(+1, 0.025, samples=60, seed=5)
+    assert high.value == 1.0 and high.touches_edge and high.converged
+    # the p-value of the upper test just below the top is above the tail, by itself
+    near = (1.0 - 1e-9) * prof.figure.maximiser + 1e-9 * prof.mle.choi
+    assert prof.exceedance(near, prof.statistic(), samples=60, seed=5, side=+1) > 0.025
+    two = prof.test_inversion_interval(0.95, samples=60, seed=5)
+    assert two.high == 1.0 and two.touches_boundary and two.converged
+
+
 def test_exceedance_counts_the_simulated_estimates(perfect_data):
     # data drawn from the target itself: no count where the gate predicts none, yet the
     # fits find small rotations in the shot noise of the other rows, so the simulated

@@ -567,6 +567,14 @@ class Profile:
             return choi
         return pauli_twirl(choi, self.figure.unitary)
 
+    def _near_top(self) -> np.ndarray:
+        """A physical process at the top of the figure's range to within 10⁻⁹ of its
+        scale: the maximiser (the target) mixed with 10⁻⁹ of the estimate, so that it
+        predicts counts wherever the estimate does and the intensities that maximise
+        ℓ there are finite (the target alone may give some observed rows zero)."""
+        eps = 1e-9
+        return (1.0 - eps) * self.figure.maximiser + eps * self.mle.choi
+
     def exceedance(self, choi: np.ndarray, observed: float, *, samples: int,
                    seed, side: int = -1) -> float:
         """Monte Carlo p-value of the value F(``choi``) against the estimate ``observed``:
@@ -654,7 +662,12 @@ class Profile:
         `MAX_TESTED` values are tested. The end is the profile's value at the
         false-position point of the last bracket (``converged`` False when no
         bracket was found: the end is then the last value tested); the edge of
-        the range when even the edge is accepted (``touches_edge``). Only
+        the range when even the edge is accepted (``touches_edge``). Above the
+        estimate of a fidelity, once a value is accepted and none rejected, the
+        top itself is tested next (`_near_top`, one extra value): a perfect gate
+        often lies at infinite deviance — a count in a row it leaves dark — while
+        the p-values of the profile's values approach a limit above the tail, so
+        no finite step would reach it. Only
         values on ``side`` of the estimate are tested: when even the estimate
         is rejected (data whose counts lie closer to their expectations than
         shot noise makes likely) the end is the profile-likelihood one, and
@@ -679,7 +692,7 @@ class Profile:
         tested = {}                                  # signed root s → p-value
         accepted = rejected = None                   # the largest accepted, smallest rejected s
         s = float(ndtri(1.0 - tail))                 # the profile-likelihood end first
-        edge = None
+        edge = edge_p = None
         for _ in range(MAX_TESTED):
             end = point(s)
             p = self.exceedance(end.choi, observed, samples=samples, seed=seed, side=side)
@@ -697,6 +710,13 @@ class Profile:
                 s = accepted + (rejected - accepted) * _falsi(z_of(tested[accepted]),
                                                               z_of(tested[rejected]), z_goal)
             elif rejected is None:                   # all accepted: further from the estimate
+                if side > 0 and self.figure.maximiser is not None and edge_p is None:
+                    edge_p = self.exceedance(self._near_top(), observed, samples=samples,
+                                             seed=seed, side=side)
+                    if edge_p > tail:                # the whole side up to the top
+                        edge = End(self.figure.high, self.figure.maximiser, True, True,
+                                   math.inf)
+                        break
                 s = accepted + max(0.5, z_of(p) - z_goal)
             elif rejected > 0.0:                     # all rejected: back towards the estimate
                 s = max(rejected - max(0.5, z_goal - z_of(p)), 0.0)
