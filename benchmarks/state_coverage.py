@@ -24,7 +24,11 @@ covers (the fidelity to a pure target and the purity), the two-sided
 profile-likelihood interval and the one-sided lower bounds at ``--level``: the
 profile-likelihood one and the bootstrap's estimate − z·s* (columns
 ``profile_low``, ``profile_high``, ``profile_lb``, ``normal_lb``; empty for the
-other figures). Near a pure state, for the coverage map of benchmarks/README.md:
+other figures). ``--test-inversion`` (with ``--profile``) adds the state fidelity's
+test-inversion interval and lower bound (`gatescope.profile`, ``--samples`` simulated
+data sets per tested value, seed ``seed + r + 2_000_000``; columns ``ti_low``,
+``ti_high``, ``ti_lb``, ``ti_s``). Near a pure state, for the coverage map of
+benchmarks/README.md:
 
     nice -n 10 python benchmarks/state_coverage.py --profile --repetitions 100 \
         --configs phi++depolarizing:0.0004=phi+ phi++depolarizing:0.004=phi+ \
@@ -73,6 +77,8 @@ FIELDS = (["config", "shots", "samples", "level", "rep", "figure", "truth", "poi
            "boot_sd"] + [f"{c}_{end}" for c in INTERVALS for end in ("low", "high")])
 #: The extra columns of ``--profile``.
 PROFILE_FIELDS = ["profile_low", "profile_high", "profile_lb", "normal_lb"]
+#: The extra columns of ``--test-inversion`` (the state fidelity only).
+INVERTED_FIELDS = ["ti_low", "ti_high", "ti_lb", "ti_s"]
 
 
 def _config(text: str):
@@ -97,6 +103,14 @@ def one_repetition(text: str, shots: float, rep: int, args) -> list[dict]:
                                 seed=args.seed + rep + 1_000_000, workers=args.workers)
         profiles = (profile_figures(model, target, level=args.level, lower_bound=True,
                                     start=point.choi) if args.profile else {})
+        t0 = time.perf_counter()
+        inverted = (profile_figures(model, target, level=args.level, lower_bound=True,
+                                    names=("state_fidelity",), start=point.choi,
+                                    invert_intervals=("state_fidelity",),
+                                    invert_bounds=("state_fidelity",), samples=args.samples,
+                                    seed=args.seed + rep + 2_000_000)
+                    if args.test_inversion else {})
+        ti_seconds = time.perf_counter() - t0
     rows = [summary_row(text, shots, args.samples, args.level, rep, name, truth[name],
                         figures[name], boot.figures[:, k]) for k, name in enumerate(boot.names)]
     if args.profile:
@@ -110,6 +124,14 @@ def one_repetition(text: str, shots: float, rep: int, args) -> list[dict]:
                            profile_high=repr(max(prof.interval.high, est)),
                            profile_lb=repr(min(prof.lower.low, est)),
                            normal_lb=repr(max(est - z * float(row["boot_sd"]), low)))
+            if args.test_inversion:
+                row.update(dict.fromkeys(INVERTED_FIELDS, ""))
+                inv = inverted.get(row["figure"])
+                if inv is not None:
+                    est = float(row["point"])
+                    row.update(ti_low=repr(min(inv.interval.low, est)),
+                               ti_high=repr(max(inv.interval.high, est)),
+                               ti_lb=repr(min(inv.lower.low, est)), ti_s=repr(ti_seconds))
     return rows
 
 
@@ -143,7 +165,9 @@ def table(rows: list[dict]) -> str:
     for r in rows:
         groups[(r["config"], float(r["shots"]), r["figure"])].append(r)
     profiled = bool(rows) and "profile_low" in rows[0]
+    inverted = profiled and "ti_low" in rows[0]
     extra = ["profile", "normal LB", "profile LB"] if profiled else []
+    extra += ["test inversion", "test-inv. LB", "test-inv. s"] if inverted else []
     if profiled:
         groups = {k: rs for k, rs in groups.items() if rs[0]["profile_low"] != ""}
     lines = ["| configuration | shots | figure | reps | truth | mean bias ± se | sd of θ̂ | mean s* "
@@ -162,6 +186,13 @@ def table(rows: list[dict]) -> str:
             cover.append(_coverage(hits))
         for c in ("normal", "profile") if profiled else ():
             cover.append(_coverage([float(r[f"{c}_lb"]) <= truth for r in rs]))
+        if inverted and rs[0]["ti_low"] != "":
+            cover.append(_coverage([float(r["ti_low"]) <= truth <= float(r["ti_high"])
+                                    for r in rs]))
+            cover.append(_coverage([float(r["ti_lb"]) <= truth for r in rs]))
+            cover.append(f"{np.mean([float(r['ti_s']) for r in rs]):.1f}")
+        elif inverted:
+            cover += ["", "", ""]
         lines.append(f"| {config} | {shots:g} | {figure} | {len(rs)} | {truth:.4f} | "
                      f"{bias.mean():+.4f} ± {bias.std(ddof=1) / math.sqrt(len(rs)):.4f} | "
                      f"{points.std(ddof=1):.4f} | {spreads.mean():.4f} | {boot_bias.mean():+.4f} | "
@@ -183,6 +214,9 @@ def main(argv=None) -> int:
     parser.add_argument("--table-only", action="store_true")
     parser.add_argument("--profile", action="store_true",
                         help="add the profile-likelihood interval and lower bounds (own --out)")
+    parser.add_argument("--test-inversion", action="store_true",
+                        help="with --profile: add the state fidelity's test-inversion interval "
+                             "and lower bound (B = --samples simulated data sets per value)")
     args = parser.parse_args(argv)
     if not args.table_only:
         done = {(r["config"], float(r["shots"]), int(r["rep"])) for r in read_rows(args.out)}
@@ -190,7 +224,8 @@ def main(argv=None) -> int:
         args.out.parent.mkdir(parents=True, exist_ok=True)
         with open(args.out, "a", newline="") as fh:
             writer = csv.DictWriter(fh, fieldnames=FIELDS + (PROFILE_FIELDS if args.profile
-                                                             else []))
+                                                             else [])
+                                    + (INVERTED_FIELDS if args.test_inversion else []))
             if new_file:
                 writer.writeheader()
             for config in args.configs:

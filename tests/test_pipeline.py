@@ -296,12 +296,25 @@ def test_test_inversion_intervals_and_bounds(make_experiment, monkeypatch):
     # no test inversion for the purity (its maximiser is not one process): profile likelihood
     assert res.figures["purity"].interval_method == "profile"
     assert res.figures["purity"].lower_bound_method == "profile"
+    assert not [w for w in res.warnings if "test inversion" in w]
     # the seed fixes the simulated data sets
     again = gs.fit(exp, interval="test-inversion", lower_bound=True, seed=11)
     assert again.figures["process_fidelity"].ci == res.figures["process_fidelity"].ci
     # the seed drawn when none is given is recorded
     drawn = gs.fit(exp, lower_bound=True)
     assert drawn.provenance["seed"] is not None
+
+
+def test_test_inversion_interval_of_a_state(make_state_experiment, monkeypatch):
+    import gatescope.profile
+    monkeypatch.setattr(gatescope.profile, "CALIBRATION_SAMPLES", 40)     # a quicker test
+    exp, _ = make_state_experiment("phi++depolarizing:0.02", shots=500, seed=3)
+    res = gs.fit(exp, interval="test-inversion", seed=2)
+    fid = res.figures["state_fidelity"]
+    assert fid.interval_method == "test-inversion"
+    assert fid.ci[0] <= fid.value <= fid.ci[1] <= 1.0
+    assert res.figures["purity"].interval_method == "profile"
+    assert not [w for w in res.warnings if "test inversion" in w]
 
 
 def test_test_inversion_is_refused_beyond_two_qubits(make_experiment, monkeypatch):

@@ -28,7 +28,7 @@ from gatescope.estimators import fit_mle
 from gatescope.likelihood import PoissonLikelihood, Tilt
 from gatescope.merit.process import average_gate_fidelity, process_fidelity
 from gatescope.model import build_model
-from gatescope.profile import (FIT_OPTIONS, Profile, average_gate_fidelity_figure,
+from gatescope.profile import (FIT_OPTIONS, INVERTED_FIGURES, Profile, average_gate_fidelity_figure,
                                named_figure, one_sided_cutoff, process_fidelity_figure,
                                profile_figures, profiled_names, purity_figure,
                                state_fidelity_figure, two_sided_cutoff)
@@ -431,6 +431,30 @@ def test_test_inversion_reaches_a_perfect_gate_far_out_in_deviance(tmp_path):
     assert prof.exceedance(near, prof.statistic(), samples=60, seed=5, side=+1) > 0.025
     two = prof.test_inversion_interval(0.95, samples=60, seed=5)
     assert two.high == 1.0 and two.touches_boundary and two.converged
+
+
+def test_test_inversion_of_a_state_fidelity(make_state_experiment):
+    # a state's fidelity to a pure target is linear with one maximiser, like a process
+    # fidelity: the simulated data sets come from the profile maximiser ρ_f itself (no
+    # twirl). Carpenter, J. R. Stat. Soc. B 61, 159 (1999): at each end the Monte Carlo
+    # p-value of its one-sided test is the tail, up to its binomial error (B = 60: 0.028
+    # at 0.05), with the same random numbers.
+    exp, _ = make_state_experiment("phi++depolarizing:0.01", shots=500, seed=4)
+    model = build_model(exp)
+    found = profile_figures(model, exp.target_state, interval=True, lower_bound=True,
+                            invert_intervals=INVERTED_FIGURES, invert_bounds=INVERTED_FIGURES,
+                            samples=60, seed=2)
+    fid, pur = found["state_fidelity"], found["purity"]
+    assert fid.interval.method == "test-inversion" and fid.lower.method == "test-inversion"
+    assert pur.interval.method == "profile"               # purity: no single maximiser
+    assert fid.interval.low <= fid.lower.low <= fid.estimate <= fid.interval.high <= 1.0
+    prof = Profile(model, named_figure("state_fidelity", exp.target_state, 4, "state"))
+    low = prof.test_inversion_end(-1, 0.05, samples=60, seed=2)
+    # the same bound up to the searches' tolerances (the points of the profile each search
+    # finds depend on what was computed before)
+    assert low.value == pytest.approx(fid.lower.low, abs=0.05 * (fid.estimate - fid.lower.low))
+    p = prof.exceedance(low.choi, prof.statistic(), samples=60, seed=2, side=-1)
+    assert abs(p - 0.05) <= 2 * 0.028 + 1.0 / 61
 
 
 def test_exceedance_counts_the_simulated_estimates(perfect_data):

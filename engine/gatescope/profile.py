@@ -120,6 +120,9 @@ PROCESS_FIGURES = ("process_fidelity", "average_gate_fidelity", "purity")
 #: The figures of a state with a profile (the fidelity needs a pure target).
 STATE_FIGURES = ("state_fidelity", "purity")
 PROFILED_FIGURES = ("process_fidelity", "average_gate_fidelity", "state_fidelity", "purity")
+#: The figures with test-inversion intervals and bounds: the linear ones, whose top
+#: (F = 1) has one maximiser, the target.
+INVERTED_FIGURES = ("process_fidelity", "average_gate_fidelity", "state_fidelity")
 
 
 def two_sided_cutoff(level: float) -> float:
@@ -853,8 +856,8 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         whose two-sided interval is `Profile.test_inversion_interval`
         (``samples`` simulated data sets per tested value, random numbers from
         ``seed``, an int or a sequence of ints for `numpy.random.SeedSequence`;
-        ``samples`` None: `CALIBRATION_SAMPLES`), instead of the profile-likelihood ones; only figures with a target
-        unitary (the process and average gate fidelities) take them.
+        ``samples`` None: `CALIBRATION_SAMPLES`), instead of the profile-likelihood ones;
+        only `INVERTED_FIGURES` take them.
 
     Returns
     -------
@@ -879,7 +882,7 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
             continue
         prof = Profile(model, named_figure(name, target, model.dim, model.kind), counts=counts,
                        mle=mle, fit_options=options)
-        invertible = prof.figure.unitary is not None and model.kind != "state"
+        invertible = name in INVERTED_FIGURES
         two = low = None
         if interval:
             two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
@@ -920,6 +923,7 @@ def _affine_image(pro: FigureProfile, name: str, dim: int) -> FigureProfile:
 __all__ = ["ProfiledFigure", "ProfilePoint", "ProfileInterval", "Profile", "FigureProfile",
            "profile_figures", "profiled_names", "process_fidelity_figure",
            "average_gate_fidelity_figure", "state_fidelity_figure", "purity_figure",
+           "INVERTED_FIGURES",
            "named_figure", "two_sided_cutoff", "one_sided_cutoff", "FIT_OPTIONS",
            "pauli_twirl", "CALIBRATION_SAMPLES",
            "PROFILED_FIGURES"]
