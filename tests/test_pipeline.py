@@ -356,20 +356,26 @@ def test_profile_options_are_checked_before_the_fit(make_experiment, monkeypatch
 def test_the_default_interval():
     from types import SimpleNamespace
 
-    from gatescope.pipeline import default_profiled
+    from gatescope.pipeline import default_inverted, default_profiled
 
-    # profile likelihood by default where it covered better near F = 1
-    # (benchmarks/README.md, "Coverage near the boundary"): one qubit, the fidelities and
-    # the purity; two qubits, the purity; the bootstrap's normal interval otherwise
+    # profile likelihood or test inversion by default where they covered better near the
+    # boundary (benchmarks/README.md, "Coverage near the boundary"): a one-qubit process,
+    # test inversion for the fidelities and profile for the purity; the purity of a
+    # two-qubit process and of a two-qubit state; the bootstrap's normal interval otherwise
     one, two = (SimpleNamespace(n_qubits=n, kind="process") for n in (1, 2))
+    pair = SimpleNamespace(n_qubits=2, kind="state")
     assert default_profiled(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity",
                                                  "purity")
+    assert default_inverted(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity")
     assert default_profiled(one, "mle-pg", 100) == default_profiled(one, "mle", 100)
     assert default_profiled(two, "mle", 100) == ("purity",)
+    assert default_profiled(pair, "mle", 100) == ("purity",)
+    assert default_inverted(two, "mle", 100) == ()
     for exp, method, boot in ((one, "pls", 100), (one, "mle", 0),
                               (SimpleNamespace(n_qubits=3, kind="process"), "mle", 100),
-                              (SimpleNamespace(n_qubits=2, kind="state"), "mle", 100)):
+                              (SimpleNamespace(n_qubits=3, kind="state"), "mle", 100)):
         assert default_profiled(exp, method, boot) == ()
+        assert default_inverted(exp, method, boot) == ()
 
 
 def test_an_explicit_bootstrap_interval_keeps_every_figure_on_it(make_experiment):

@@ -178,33 +178,34 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
     return result
 
 
-#: The figures of a process that a bootstrap of a maximum-likelihood fit gives the
-#: profile-likelihood interval by default, by number of qubits: where its coverage near a
-#: perfect gate was measured closer to the level than the bootstrap's normal interval
-#: (benchmarks/README.md, "Coverage near the boundary"). One qubit: the fidelities and the
-#: purity; two qubits: the purity (there the normal interval of the fidelities covered
-#: better). States, and larger processes, keep the normal interval (not measured).
-PROFILE_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity", "purity"),
-                   2: ("purity",)}
+#: The figures that a bootstrap of a maximum-likelihood fit gives the profile-likelihood
+#: interval by default, by (kind, number of qubits): where its coverage near the
+#: boundary was measured closer to the level than the bootstrap's normal interval
+#: (benchmarks/README.md, "Coverage near the boundary"). The purity of one- and
+#: two-qubit processes and of two-qubit states; the fidelities of one qubit are in
+#: `TEST_INVERSION_DEFAULT`. Other figures and sizes keep the normal interval.
+PROFILE_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity", "purity"),
+                   ("process", 2): ("purity",),
+                   ("state", 2): ("purity",)}
 
 
 def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tuple:
     """The figures whose interval is the profile-likelihood one when `fit` is given no
-    ``interval``: `PROFILE_DEFAULT` for a bootstrapped maximum-likelihood fit of a
-    process, none otherwise (every figure then has the bootstrap's
+    ``interval``: `PROFILE_DEFAULT` for a bootstrapped maximum-likelihood fit, none
+    otherwise (every figure then has the bootstrap's
     `gatescope.intervals.DEFAULT_INTERVAL`)."""
-    if bootstrap and method in MAXIMUM_LIKELIHOOD and experiment.kind != "state":
-        return PROFILE_DEFAULT.get(experiment.n_qubits, ())
+    if bootstrap and method in MAXIMUM_LIKELIHOOD:
+        return PROFILE_DEFAULT.get((experiment.kind, experiment.n_qubits), ())
     return ()
 
 
 #: The figures whose lower bound (`fit` with ``lower_bound``) and, given an ``mle``
 #: bootstrap and no ``interval``, whose interval are the test-inversion ones
 #: (`gatescope.profile.Profile.test_inversion_lower_bound`, `test_inversion_interval`),
-#: by number of qubits of a process: where their coverage near a perfect gate was
-#: measured closest to the level (benchmarks/README.md, "Test inversion"). Elsewhere
-#: the bound is the profile-likelihood one and the interval `PROFILE_DEFAULT`'s.
-TEST_INVERSION_DEFAULT = {1: ("process_fidelity", "average_gate_fidelity")}
+#: by (kind, number of qubits): where their coverage near the boundary was measured
+#: closest to the level (benchmarks/README.md, "Test inversion"). Elsewhere the bound
+#: is the profile-likelihood one and the interval `PROFILE_DEFAULT`'s.
+TEST_INVERSION_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity")}
 #: Test-inversion intervals (`fit` with ``interval="test-inversion"``) are offered up to
 #: this many qubits, for processes and states: each end tests 4–8 values with
 #: B = `profile.CALIBRATION_SAMPLES` refits.
@@ -216,10 +217,10 @@ TEST_INVERSION_STREAM = 0x7465
 
 def default_inverted(experiment: Experiment, method: str, bootstrap: int) -> tuple:
     """The figures whose interval is the test-inversion one when `fit` is given no
-    ``interval``: `TEST_INVERSION_DEFAULT` for a bootstrapped maximum-likelihood fit of
-    a process, none otherwise."""
-    if bootstrap and method in MAXIMUM_LIKELIHOOD and experiment.kind != "state":
-        return TEST_INVERSION_DEFAULT.get(experiment.n_qubits, ())
+    ``interval``: `TEST_INVERSION_DEFAULT` for a bootstrapped maximum-likelihood fit,
+    none otherwise."""
+    if bootstrap and method in MAXIMUM_LIKELIHOOD:
+        return TEST_INVERSION_DEFAULT.get((experiment.kind, experiment.n_qubits), ())
     return ()
 
 
@@ -235,8 +236,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     search that fails or does not converge is a warning (code ``profile``).
     """
     names = None if lower_bound else tuple(interval)
-    bounds = (TEST_INVERSION_DEFAULT.get(model.n_qubits, ()) if model.kind != "state"
-              else ())
+    bounds = TEST_INVERSION_DEFAULT.get((model.kind, model.n_qubits), ())
     try:
         found = profile_figures(model, target, level=level, interval=bool(interval),
                                 lower_bound=lower_bound, names=names, start=point.choi,
