@@ -94,7 +94,7 @@ from scipy.special import ndtri
 
 from .bootstrap import resample_counts
 from .channels import chi_to_choi, choi_from_unitary, choi_to_chi
-from .estimators import Fit, fit_mle
+from .estimators import Fit, estimate, fit_mle
 from .likelihood import PoissonLikelihood, Tilt
 from .merit.state import _pure_vector
 
@@ -552,11 +552,12 @@ class Profile:
     # ---- test inversion: a lower bound calibrated by simulation ---------------
 
     def statistic(self, counts=None) -> float:
-        """T = F(Ĵ), Ĵ the maximum-likelihood fit (`fit_mle`, its default options: the
-        estimate `gatescope.fit` reports) of ``counts`` (default the data's)."""
+        """T = F(Ĵ), Ĵ the maximum-likelihood fit of ``counts`` (default the data's) by
+        the estimator `gatescope.fit` reports (`gatescope.estimators.estimate`,
+        ``"mle"``, its default options)."""
         if counts is None and self._observed is not None:
             return self._observed
-        fit = fit_mle(self.model, counts=self.counts if counts is None else counts)
+        fit = estimate(self.model, "mle", counts=self.counts if counts is None else counts)
         value = self.figure.value(fit.choi)
         if counts is None:
             self._observed = value
@@ -587,7 +588,8 @@ class Profile:
         B = ``samples`` data sets of Poisson counts are drawn from
         `simulated_process` (with the intensities that maximise ℓ there, as the
         parametric bootstrap draws them) and T* = F(Ĵ*) is each one's estimate
-        (`statistic`; Davison & Hinkley, *Bootstrap Methods and their
+        (by `statistic`'s estimator, warm-started at the simulated process, as
+        the bootstrap warm-starts its refits; Davison & Hinkley, *Bootstrap Methods and their
         Application*, 1997, §4.2, for the Monte Carlo p-value). Data set b
         always uses the b-th child of ``SeedSequence(seed)``, so the p-values
         of different tested values share their random numbers.
@@ -599,7 +601,8 @@ class Profile:
         t0 = time.perf_counter()
         beyond = 0
         for child in np.random.SeedSequence(seed).spawn(samples):
-            fit = fit_mle(self.model, counts=resample_counts(means, child), start=source)
+            fit = estimate(self.model, "mle", counts=resample_counts(means, child),
+                           start=source)
             value = self.figure.value(fit.choi)
             beyond += value >= observed if side < 0 else value <= observed
         self.seconds += time.perf_counter() - t0
