@@ -192,10 +192,11 @@ def table(rows: list[dict]) -> str:
     return "\n".join(out)
 
 
-def main(argv=None) -> int:
-    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+def add_cell_arguments(p: argparse.ArgumentParser, out: Path, samples_help: str) -> None:
+    """The options of a coverage study over cells (gate, noise kind, ratio) shared by this
+    script and ``lower_bound_coverage.py``."""
     p.add_argument("--repetitions", type=int, default=200, help="repetitions per cell")
-    p.add_argument("--samples", type=int, default=100, help="bootstrap resamples B")
+    p.add_argument("--samples", type=int, default=100, help=samples_help)
     p.add_argument("--shots", type=float, default=1000.0,
                    help="expected counts per preparation and analyser basis")
     p.add_argument("--gate", default="H")
@@ -209,37 +210,54 @@ def main(argv=None) -> int:
     p.add_argument("--level", type=float, default=0.95)
     p.add_argument("--workers", type=int, default=1, help="repetitions run in parallel")
     p.add_argument("--seed", type=int, default=2026)
-    p.add_argument("--out", type=Path,
-                   default=Path(__file__).parent / "results" / "boundary_coverage.csv",
+    p.add_argument("--out", type=Path, default=out,
                    help="CSV of the repetitions (appended to; existing ones are skipped)")
     p.add_argument("--table-only", action="store_true", help="print the table of --out and exit")
+
+
+def run_cells(args, work, fields, key, describe, **extra) -> None:
+    """Run ``work(opts, job)`` for every repetition of every cell of ``args`` (the
+    options of `add_cell_arguments`) that ``args.out`` does not hold yet (``key`` of a
+    row names its cell), ``args.workers`` at a time, appending one CSV line of
+    ``fields`` per repetition and one line ``describe(row)`` on stderr. ``opts`` holds
+    the seed, samples, level, sigma_ref, the wall-time limit and ``extra``."""
+    done = {(key(r), int(r["rep"])) for r in read_rows(args.out)}
+    todo = []
+    for rep in range(args.repetitions):
+        for kind in args.kinds:
+            for ratio in args.ratios:
+                cell = {"gate": args.gate, "kind": kind, "ratio": ratio, "shots": args.shots,
+                        "samples": args.samples, "level": args.level}
+                if (key(cell), rep) not in done:
+                    todo.append((args.gate, kind, ratio, args.shots, rep))
+    opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
+            "sigma_ref": args.sigma_ref, **extra,
+            "stop_at": None if args.max_minutes is None else time.time() + 60.0 * args.max_minutes}
+    new_file = not args.out.exists() or args.out.stat().st_size == 0
+    args.out.parent.mkdir(parents=True, exist_ok=True)
+    with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
+        writer = csv.DictWriter(fh, fieldnames=fields)
+        if new_file:
+            writer.writeheader()
+        for _, row in runner.map(work, todo, chunk=1):
+            if row is None:
+                continue
+            writer.writerow(row)
+            fh.flush()
+            print(f"{row['gate']} {row['kind']} {row['ratio']:g} rep {row['rep']}: "
+                  f"{describe(row)}", file=sys.stderr)
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    add_cell_arguments(p, Path(__file__).parent / "results" / "boundary_coverage.csv",
+                       "bootstrap resamples B")
     args = p.parse_args(argv)
     if not args.table_only:
-        done = {(key_of(r), int(r["rep"])) for r in read_rows(args.out)}
-        todo = [(args.gate, kind, ratio, args.shots, rep) for rep in range(args.repetitions)
-                for kind in args.kinds for ratio in args.ratios
-                if ((args.gate, kind, ratio, args.shots, args.samples, args.level), rep)
-                not in done]
-        opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
-                "sigma_ref": args.sigma_ref}
-        opts["stop_at"] = (None if args.max_minutes is None
-                           else time.time() + 60.0 * args.max_minutes)
-        new_file = not args.out.exists() or args.out.stat().st_size == 0
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
-            writer = csv.DictWriter(fh, fieldnames=FIELDS)
-            if new_file:
-                writer.writeheader()
-            for _, row in runner.map(one_repetition, todo, chunk=1):
-                if row is None:
-                    continue
-                writer.writerow(row)
-                fh.flush()
-                print(f"{row['gate']} {row['kind']} {row['ratio']:g} rep {row['rep']}: F̂ "
-                      f"{row['pf_est']:.6f} profile [{row['pf_prof_lo']:.6f}, "
-                      f"{row['pf_prof_hi']:.6f}] ({row['prof_s']:.2f} s) normal "
-                      f"[{row['pf_normal_lo']:.6f}, {row['pf_normal_hi']:.6f}] "
-                      f"({row['boot_s']:.2f} s)", file=sys.stderr)
+        run_cells(args, one_repetition, FIELDS, key_of, lambda row: (
+            f"F̂ {row['pf_est']:.6f} profile [{row['pf_prof_lo']:.6f}, "
+            f"{row['pf_prof_hi']:.6f}] ({row['prof_s']:.2f} s) normal "
+            f"[{row['pf_normal_lo']:.6f}, {row['pf_normal_hi']:.6f}] ({row['boot_s']:.2f} s)"))
     print(table(read_rows(args.out)))
     return 0
 

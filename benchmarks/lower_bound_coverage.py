@@ -28,8 +28,6 @@ for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMB
     os.environ.setdefault(_var, "1")
 
 import argparse  # noqa: E402
-import csv  # noqa: E402
-import math  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
@@ -39,10 +37,10 @@ from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from boundary_coverage import KINDS, SIGMA_REF, noisy_channel  # noqa: E402
+from boundary_coverage import (_cov, add_cell_arguments, noisy_channel, read_rows,  # noqa: E402
+                               run_cells)
 from gatescope.merit import compute_figures  # noqa: E402
 from gatescope.model import build_model  # noqa: E402
-from gatescope.parallel import Runner  # noqa: E402
 from gatescope.profile import Profile, process_fidelity_figure  # noqa: E402
 from gatescope.reader import read_experiment  # noqa: E402
 from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: E402
@@ -83,21 +81,9 @@ def one_repetition(opts: dict, job) -> dict | None:
     return out
 
 
-def read_rows(path: Path) -> list[dict]:
-    if not path.exists():
-        return []
-    with open(path, newline="") as fh:
-        return list(csv.DictReader(fh))
-
-
 def key_of(row) -> tuple:
     return (row["gate"], float(row["shots"]), row["kind"], float(row["ratio"]),
             int(row["samples"]), float(row["level"]))
-
-
-def _cov(hit: np.ndarray) -> str:
-    c = hit.mean()
-    return f"{c:.3f} ± {math.sqrt(max(c * (1 - c), 1e-12) / hit.size):.3f}"
 
 
 def table(rows: list[dict]) -> str:
@@ -134,55 +120,17 @@ def table(rows: list[dict]) -> str:
 
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    p.add_argument("--repetitions", type=int, default=200, help="repetitions per cell")
-    p.add_argument("--samples", type=int, default=200,
-                   help="simulated data sets per tested value (B)")
-    p.add_argument("--shots", type=float, default=1000.0,
-                   help="expected counts per preparation and analyser basis")
-    p.add_argument("--gate", default="H")
-    p.add_argument("--kinds", nargs="+", default=list(KINDS), choices=KINDS)
-    p.add_argument("--ratios", type=float, nargs="+", default=[0.3, 1.0, 3.0, 10.0])
-    p.add_argument("--sigma-ref", type=float, default=SIGMA_REF,
-                   help=f"infidelity of ratio 1 (default {SIGMA_REF:g}, one qubit at 1000 counts "
-                        "per basis)")
-    p.add_argument("--max-minutes", type=float, default=None,
-                   help="start no new repetition after this much wall time")
-    p.add_argument("--level", type=float, default=0.95)
-    p.add_argument("--workers", type=int, default=1, help="repetitions run in parallel")
-    p.add_argument("--seed", type=int, default=2026)
-    p.add_argument("--out", type=Path,
-                   default=Path(__file__).parent / "results" / "lower_bound_coverage.csv",
-                   help="CSV of the repetitions (appended to; existing ones are skipped)")
+    add_cell_arguments(p, Path(__file__).parent / "results" / "lower_bound_coverage.csv",
+                       "simulated data sets per tested value (B)")
     p.add_argument("--two-sided", action="store_true",
                    help="also the two-sided profile-likelihood and test-inversion intervals "
                         "(use its own --out)")
-    p.add_argument("--table-only", action="store_true", help="print the table of --out and exit")
     args = p.parse_args(argv)
     if not args.table_only:
-        done = {(key_of(r), int(r["rep"])) for r in read_rows(args.out)}
-        todo = [(args.gate, kind, ratio, args.shots, rep) for rep in range(args.repetitions)
-                for kind in args.kinds for ratio in args.ratios
-                if ((args.gate, args.shots, kind, ratio, args.samples, args.level), rep)
-                not in done]
-        opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
-                "sigma_ref": args.sigma_ref, "two_sided": args.two_sided,
-                "stop_at": None if args.max_minutes is None
-                else time.time() + 60.0 * args.max_minutes}
-        new_file = not args.out.exists() or args.out.stat().st_size == 0
-        args.out.parent.mkdir(parents=True, exist_ok=True)
-        with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
-            writer = csv.DictWriter(fh, fieldnames=FIELDS + (TWO_SIDED if args.two_sided else ()))
-            if new_file:
-                writer.writeheader()
-            for _, row in runner.map(one_repetition, todo, chunk=1):
-                if row is None:
-                    continue
-                writer.writerow(row)
-                fh.flush()
-                print(f"{row['gate']} {row['kind']} {row['ratio']:g} rep {row['rep']}: F̂ "
-                      f"{row['est']:.6f} (truth {row['truth']:.6f}) profile LB "
-                      f"{row['profile_lb']:.6f}, test-inversion LB {row['ti_lb']:.6f} "
-                      f"({row['ti_s']:.1f} s)", file=sys.stderr)
+        run_cells(args, one_repetition, FIELDS + (TWO_SIDED if args.two_sided else ()), key_of,
+                  lambda row: (f"F̂ {row['est']:.6f} (truth {row['truth']:.6f}) profile LB "
+                               f"{row['profile_lb']:.6f}, test-inversion LB {row['ti_lb']:.6f} "
+                               f"({row['ti_s']:.1f} s)"), two_sided=args.two_sided)
     print(table(read_rows(args.out)))
     return 0
 
