@@ -137,7 +137,7 @@ def main(argv=None) -> int:
                for n in ("normal", "profile", "test inversion")]
     handles += [Line2D([], [], color="k", marker=m, ls="", label=k,
                        mfc="none" if k == "damping" else "k") for k, m in MARKERS.items()]
-    axes[0, -1].legend(handles=handles, loc="lower right", fontsize=8)
+    fig.legend(handles=handles, loc="outside lower center", ncol=len(handles), fontsize=8)
     fig.suptitle("One qubit (Hadamard) near F = 1: coverage of the process fidelity's "
                  "95% intervals and bounds")
     fig.savefig(args.out, dpi=110)
