@@ -356,7 +356,7 @@ def test_profile_options_are_checked_before_the_fit(make_experiment, monkeypatch
 def test_the_default_interval():
     from types import SimpleNamespace
 
-    from gatescope.pipeline import default_inverted, default_profiled
+    from gatescope.pipeline import default_interval_words, default_inverted, default_profiled
 
     # profile likelihood or test inversion by default where they covered better near the
     # boundary (benchmarks/README.md, "Coverage near the boundary"): a one-qubit process,
@@ -376,6 +376,11 @@ def test_the_default_interval():
                               (SimpleNamespace(n_qubits=3, kind="state"), "mle", 100)):
         assert default_profiled(exp, method, boot) == ()
         assert default_inverted(exp, method, boot) == ()
+    # the command line's help says the same, from the same tables
+    words = default_interval_words()
+    assert "test inversion for the process fidelity and average gate fidelity of a 1-qubit " \
+           "process" in words
+    assert "profile likelihood for the purity of a 2-qubit state" in words
 
 
 def test_an_explicit_bootstrap_interval_keeps_every_figure_on_it(make_experiment):

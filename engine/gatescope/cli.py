@@ -54,6 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .conventions import GATE_NAMES
     from .estimators import METHODS
     from .intervals import DEFAULT_INTERVAL, FIT_INTERVALS
+    from .pipeline import default_interval_words
     from .synth.noise import spec_forms
     from .synth.state import STATE_NOISE_KINDS
 
@@ -75,12 +76,11 @@ def build_parser() -> argparse.ArgumentParser:
                         f"{DEFAULT_INTERVAL} for the rest), or test-inversion (as profile, with "
                         "the fidelities' intervals calibrated by simulated data sets; one and "
                         "two qubits); default: with an mle bootstrap, "
-                        "profile for the fidelities and the purity of a one-qubit process and "
-                        f"the purity of a two-qubit one, {DEFAULT_INTERVAL} for the rest")
+                        f"{default_interval_words()}; {DEFAULT_INTERVAL} for the rest")
     f.add_argument("--lower-bound", action="store_true",
                    help="also the one-sided lower bound of the fidelities and the purity, at "
-                        "--ci-level (test inversion for the fidelities of a one-qubit process, "
-                        "profile likelihood otherwise)")
+                        "--ci-level (test inversion where it is the default interval, profile "
+                        "likelihood otherwise)")
     f.add_argument("--seed", type=int, default=None,
                    help="seed of the bootstrap and of the test inversions (recorded)")
     f.add_argument("--workers", type=int, default=None, metavar="W", help="processes (default: all cores)")

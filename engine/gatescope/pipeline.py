@@ -215,6 +215,20 @@ MAX_INVERTED_QUBITS = 2
 TEST_INVERSION_STREAM = 0x7465
 
 
+def default_interval_words() -> str:
+    """`PROFILE_DEFAULT` and `TEST_INVERSION_DEFAULT` in words (the command line's help)."""
+    def figures(names):
+        return " and ".join(n.replace("_", " ") for n in names)
+
+    parts = [f"test inversion for the {figures(names)} of a {n}-qubit {kind}"
+             for (kind, n), names in TEST_INVERSION_DEFAULT.items()]
+    for (kind, n), names in PROFILE_DEFAULT.items():
+        rest = [m for m in names if m not in TEST_INVERSION_DEFAULT.get((kind, n), ())]
+        if rest:
+            parts.append(f"profile likelihood for the {figures(rest)} of a {n}-qubit {kind}")
+    return "; ".join(parts)
+
+
 def default_inverted(experiment: Experiment, method: str, bootstrap: int) -> tuple:
     """The figures whose interval is the test-inversion one when `fit` is given no
     ``interval``: `TEST_INVERSION_DEFAULT` for a bootstrapped maximum-likelihood fit,
