@@ -457,6 +457,60 @@ def test_test_inversion_of_a_state_fidelity(make_state_experiment):
     assert abs(p - 0.05) <= 2 * 0.028 + 1.0 / 61
 
 
+def test_best_unitary_matches_a_generic_optimiser(make_experiment):
+    # scipy's Nelder-Mead (a generic optimiser) over an independent parametrisation of
+    # SU(2), U = Rz(a) Ry(b) Rz(c) (Euler angles; Nielsen & Chuang, Thm 4.1), from several
+    # starts: the largest likelihood of a unitary channel it finds is the one the Riemannian
+    # ascent finds from the nearest unitary
+    from scipy.optimize import minimize
+
+    from gatescope.channels import choi_from_unitary
+    from gatescope.merit.process import nearest_unitary
+    from gatescope.profile import best_unitary
+
+    exp, _ = make_experiment("H+dephasing:0.02", n_qubits=1, shots=500, seed=9)
+    model = build_model(exp)
+    lik = PoissonLikelihood(model)
+    mle = fit_mle(model, **FIT_OPTIONS)
+    ll, u = best_unitary(lik, nearest_unitary(mle.choi)[0])
+    assert np.allclose(u.conj().T @ u, np.eye(2), atol=1e-10)
+
+    def rz(t):
+        return np.diag([np.exp(-0.5j * t), np.exp(0.5j * t)])
+
+    def ry(t):
+        return np.array([[np.cos(t / 2), -np.sin(t / 2)], [np.sin(t / 2), np.cos(t / 2)]])
+
+    def minus_ll(x):
+        v = lik.evaluate(choi_from_unitary(rz(x[0]) @ ry(x[1]) @ rz(x[2]))).log_likelihood
+        return -v if np.isfinite(v) else 1e30
+
+    rng = np.random.default_rng(0)
+    best = min(minimize(minus_ll, rng.uniform(-np.pi, np.pi, 3), method="Nelder-Mead",
+                        options={"xatol": 1e-10, "fatol": 1e-10, "maxiter": 20000}).fun
+               for _ in range(8))
+    assert ll == pytest.approx(-best, abs=1e-6)
+    assert ll <= mle.log_likelihood                       # a unitary is one physical process
+
+
+def test_purity_interval_of_a_unitary_process_reaches_one(make_experiment):
+    # a two-qubit unitary process (CZ with a ZZ phase error): its estimate leaves the
+    # unitary channels in many directions, so the deviance of purity 1 exceeds χ²₁(0.95)
+    # here although the truth is unitary; the simulated test at the most likely unitary
+    # accepts it (Carpenter, J. R. Stat. Soc. B 61, 159 (1999): test inversion), and the
+    # interval reaches 1
+    exp, _ = make_experiment("CZ+zz:0.03", n_qubits=2, shots=1000, seed=4)
+    model = build_model(exp)
+    mle = fit_mle(model, **FIT_OPTIONS)
+    prof = Profile(model, purity_figure(4), mle=mle)
+    assert prof.interval(0.95).high < 1.0                 # the likelihood-ratio cut-off
+    assert prof.top_accepted(0.025, samples=60, seed=1)
+    found = profile_figures(model, exp.target, names=("purity",), samples=60, seed=1,
+                            start=mle.choi)["purity"]
+    assert found.interval.high == 1.0 and found.touches_boundary
+    assert found.interval.low == pytest.approx(prof.interval(0.95).low, rel=1e-6)
+
+
 def test_exceedance_counts_the_simulated_estimates(perfect_data):
     # data drawn from the target itself: no count where the gate predicts none, yet the
     # fits find small rotations in the shot noise of the other rows, so the simulated

@@ -403,8 +403,8 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
     values = compute_figures(point.choi, target, diamond=diamond, details=details,
                              kind=model.kind)
     boot = None
-    if seed is None and (lower_bound or inverted) and not bootstrap:
-        seed = draw_seed()                    # the test inversions simulate data sets
+    if seed is None and (lower_bound or profiled or inverted) and not bootstrap:
+        seed = draw_seed()       # the test inversions and the purity's top simulate data sets
     if bootstrap:
         boot, seed = run_bootstrap(model, point, target, samples=bootstrap,
                                    kind=bootstrap_kind, seed=seed, workers=workers,
