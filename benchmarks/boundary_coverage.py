@@ -18,7 +18,9 @@ the average gate fidelity and the purity:
 Noise kinds: ``white`` (depolarizing), ``overrotation`` (the gate followed by
 a rotation about X by θ, F = cos²(θ/2)), ``damping`` (amplitude damping on
 every qubit). Repetition r of a cell draws its counts with seed
-``seed + r`` and its bootstrap with seed ``seed + r + 1_000_000``. Each
+``seed + r``, its bootstrap with seed ``seed + r + 1_000_000`` and the simulated
+test of the purity's top (`gatescope.profile.Profile.top_accepted`) with seed
+``seed + r + 3_000_000``. Each
 repetition is one CSV line (``--out``); a rerun skips the repetitions already
 there; ``--table-only`` prints the table of what the file holds. For another
 gate or count level set the infidelity of ratio 1 with ``--sigma-ref`` (and
@@ -126,7 +128,8 @@ def one_repetition(opts: dict, job) -> dict | None:
         out["boot_s"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         prof = profile_figures(model, target, level=level, interval=True, lower_bound=True,
-                               names=FIGURES, start=fit.choi)
+                               names=FIGURES, start=fit.choi,
+                               seed=opts["seed"] + rep + 3_000_000)
         out["prof_s"] = time.perf_counter() - t0
         out["prof_fits"] = sum(p.fits for p in prof.values())
     for name in FIGURES:
