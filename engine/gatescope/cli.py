@@ -74,8 +74,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="interval construction: a bootstrap one, profile (profile likelihood "
                         "for the fidelities and the purity, the bootstrap's "
                         f"{DEFAULT_INTERVAL} for the rest), or test-inversion (as profile, with "
-                        "the fidelities' intervals calibrated by simulated data sets; one and "
-                        "two qubits); default: with an mle bootstrap, "
+                        "the fidelities' intervals calibrated by simulated data sets; processes "
+                        "of one and two qubits); default: with an mle bootstrap, "
                         f"{default_interval_words()}; {DEFAULT_INTERVAL} for the rest")
     f.add_argument("--lower-bound", action="store_true",
                    help="also the one-sided lower bound of the fidelities and the purity, at "

@@ -38,7 +38,7 @@ from .options import choice, flag, fraction, whole
 from .options import seed as check_seed
 from .options import workers as check_workers
 from .parallel import single_threaded_blas
-from .profile import INVERTED_FIGURES, PROFILED_FIGURES, profile_figures
+from .profile import PROFILED_FIGURES, profile_figures
 from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
 from .reader import Experiment, read_experiment
@@ -116,10 +116,11 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
         ``average_gate_fidelity``, ``purity``, and a state's
         ``state_fidelity`` (pure target) and ``purity`` — and the bootstrap
         interval `gatescope.intervals.DEFAULT_INTERVAL` for the others.
-        ``"test-inversion"``: as ``"profile"``, but the process and average gate
-        fidelities, and a state's fidelity to a pure target
-        (`gatescope.profile.INVERTED_FIGURES`), get the test-inversion interval
-        (calibrated by simulated data sets; one and two qubits). Default (None):
+        ``"test-inversion"`` (processes of one and two qubits): as ``"profile"``,
+        but the process and average gate fidelities get the test-inversion
+        interval (calibrated by simulated data sets). It is not offered for a
+        state's fidelity, where it covered less than the bootstrap's interval
+        (benchmarks/README.md, "Test inversion"). Default (None):
         the test-inversion interval for the figures `default_inverted` names,
         the profile-likelihood one for the others `default_profiled` names, the
         bootstrap's default for the rest. Each figure records its construction
@@ -157,7 +158,12 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
                       ci_level=ci_level, interval=interval, seed=seed, workers=workers,
                       options=options, lower_bound=lower_bound)
     profiled = PROFILED_FIGURES if interval in PROFILE_INTERVALS else ()
-    inverted = INVERTED_FIGURES if interval == "test-inversion" else ()
+    inverted = PROCESS_INVERTED if interval == "test-inversion" else ()
+    if inverted and experiment.kind == "state":
+        raise InputError("test-inversion intervals are offered for the fidelities of processes; "
+                         "near a pure state they covered a state's fidelity less often than the "
+                         "bootstrap's interval (README, Methods); use --interval profile or "
+                         "a bootstrap interval", key="interval")
     if inverted and experiment.n_qubits > MAX_INVERTED_QUBITS:
         raise InputError(f"test-inversion intervals take about a thousand refits: they are "
                          f"offered up to {MAX_INVERTED_QUBITS} qubits, and this experiment has "
@@ -206,9 +212,11 @@ def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tup
 #: closest to the level (benchmarks/README.md, "Test inversion"). Elsewhere the bound
 #: is the profile-likelihood one and the interval `PROFILE_DEFAULT`'s.
 TEST_INVERSION_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity")}
+#: The figures that ``interval="test-inversion"`` inverts: the fidelities of a process.
+PROCESS_INVERTED = ("process_fidelity", "average_gate_fidelity")
 #: Test-inversion intervals (`fit` with ``interval="test-inversion"``) are offered up to
-#: this many qubits, for processes and states: each end tests 4–8 values with
-#: B = `profile.CALIBRATION_SAMPLES` refits.
+#: this many qubits: each end tests 4–8 values with B = `profile.CALIBRATION_SAMPLES`
+#: refits.
 MAX_INVERTED_QUBITS = 2
 #: Entropy added to the seed of a fit for the random numbers of its test inversions, so
 #: that they are not those of its bootstrap.
