@@ -963,7 +963,7 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         if interval:
             two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
                    if name in invert_intervals and invertible else prof.interval(level))
-            if (prof.figure.quadratic and model.kind != "state" and two.high < prof.figure.high
+            if (_top_tested(prof) and two.high < prof.figure.high
                     and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed)):
                 two = replace(two, high=prof.figure.high, touches_boundary=True)
         if lower_bound:
@@ -977,13 +977,23 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
             if two is None:
                 two_top = prof.end_point(+1, two_sided_cutoff(level))
                 top = bool(two_top.touches_edge) or (
-                    model.kind != "state"
+                    _top_tested(prof)
                     and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed))
             else:
                 top = bool(two.high >= prof.figure.high)
         out[name] = FigureProfile(name, prof.estimate, two, low, top, prof.fits + 1,
                                   prof.seconds + shared)
     return out
+
+
+#: The purity's top is tested by simulation (`Profile.top_accepted`) for processes up to
+#: this dimension (two qubits): B refits of a three-qubit process take minutes.
+TOP_TEST_MAX_DIM = 4
+
+
+def _top_tested(prof: Profile) -> bool:
+    return (prof.figure.quadratic and prof.model.kind != "state"
+            and prof.model.dim <= TOP_TEST_MAX_DIM)
 
 
 def _affine_image(pro: FigureProfile, name: str, dim: int) -> FigureProfile:
