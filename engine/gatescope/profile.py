@@ -963,8 +963,7 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         if interval:
             two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
                    if name in invert_intervals and invertible else prof.interval(level))
-            if (_top_tested(prof) and two.high < prof.figure.high
-                    and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed)):
+            if two.high < prof.figure.high and _top_accepted(prof, level, samples, seed):
                 two = replace(two, high=prof.figure.high, touches_boundary=True)
         if lower_bound:
             low = (prof.test_inversion_lower_bound(level, samples=samples, seed=seed)
@@ -976,9 +975,7 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
             # purity: no single maximiser; the two-sided interval says whether it reaches 1
             if two is None:
                 two_top = prof.end_point(+1, two_sided_cutoff(level))
-                top = bool(two_top.touches_edge) or (
-                    _top_tested(prof)
-                    and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed))
+                top = bool(two_top.touches_edge) or _top_accepted(prof, level, samples, seed)
             else:
                 top = bool(two.high >= prof.figure.high)
         out[name] = FigureProfile(name, prof.estimate, two, low, top, prof.fits + 1,
@@ -991,9 +988,13 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
 TOP_TEST_MAX_DIM = 4
 
 
-def _top_tested(prof: Profile) -> bool:
+def _top_accepted(prof: Profile, level: float, samples: int, seed) -> bool:
+    """Whether the top of a process's purity (up to `TOP_TEST_MAX_DIM`) passes
+    `Profile.top_accepted` at the tail of a two-sided interval at ``level``; False for
+    every other figure."""
     return (prof.figure.quadratic and prof.model.kind != "state"
-            and prof.model.dim <= TOP_TEST_MAX_DIM)
+            and prof.model.dim <= TOP_TEST_MAX_DIM
+            and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed))
 
 
 def _affine_image(pro: FigureProfile, name: str, dim: int) -> FigureProfile:
