@@ -223,20 +223,27 @@ def run_cells(args, work, fields, key, describe, **extra) -> None:
     options of `add_cell_arguments`) that ``args.out`` does not hold yet (``key`` of a
     row names its cell), ``args.workers`` at a time, appending one CSV line of
     ``fields`` per repetition and one line ``describe(row)`` on stderr. ``opts`` holds
-    the seed, samples, level, sigma_ref, the wall-time limit and ``extra``."""
+    the seed, samples, level, sigma_ref, the wall-time limit and ``extra`` (whose
+    entries also name the cell, for ``key``)."""
     done = {(key(r), int(r["rep"])) for r in read_rows(args.out)}
     todo = []
     for rep in range(args.repetitions):
         for kind in args.kinds:
             for ratio in args.ratios:
                 cell = {"gate": args.gate, "kind": kind, "ratio": ratio, "shots": args.shots,
-                        "samples": args.samples, "level": args.level}
+                        "samples": args.samples, "level": args.level, **extra}
                 if (key(cell), rep) not in done:
                     todo.append((args.gate, kind, ratio, args.shots, rep))
     opts = {"seed": args.seed, "samples": args.samples, "level": args.level,
             "sigma_ref": args.sigma_ref, **extra,
             "stop_at": None if args.max_minutes is None else time.time() + 60.0 * args.max_minutes}
     new_file = not args.out.exists() or args.out.stat().st_size == 0
+    if not new_file:
+        with open(args.out, newline="") as fh:
+            header = next(csv.reader(fh))
+        if tuple(header) != tuple(fields):
+            sys.exit(f"{args.out}: its columns differ from this run's ({', '.join(fields)}); "
+                     "use another --out")
     args.out.parent.mkdir(parents=True, exist_ok=True)
     with open(args.out, "a", newline="") as fh, Runner(args.workers, shared=opts) as runner:
         writer = csv.DictWriter(fh, fieldnames=fields)

@@ -11,6 +11,10 @@ seed ``seed + k + 2_000_000``), with their seconds. For a trace-preserving proce
 bounds of the average gate fidelity are the images of these under F ↦ (dF + 1)/(d + 1),
 so they hold exactly when these do. ``--two-sided`` adds the two-sided profile-likelihood
 and test-inversion intervals (`Profile.interval`, `Profile.test_inversion_interval`).
+``--nulls`` chooses the processes the test inversion simulates for each tested value
+(`gatescope.profile.NULLS`; default the library's `default_nulls` for the gate's qubits);
+the CSV records them and the table names them where they are not the twirled null alone
+(the choice of rows written before the column existed).
 
 "fallbacks" counts the repetitions whose test inversion rejected even the estimate and gave
 the profile-likelihood bound instead (their cutoff is NaN in the CSV). One CSV line per
@@ -41,12 +45,13 @@ from boundary_coverage import (_cov, add_cell_arguments, noisy_channel, read_row
                                run_cells)
 from gatescope.merit import compute_figures  # noqa: E402
 from gatescope.model import build_model  # noqa: E402
-from gatescope.profile import Profile, process_fidelity_figure  # noqa: E402
+from gatescope.conventions import named_gate  # noqa: E402
+from gatescope.profile import NULLS, Profile, default_nulls, process_fidelity_figure  # noqa: E402
 from gatescope.reader import read_experiment  # noqa: E402
 from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: E402
 
 FIELDS = ("gate", "kind", "ratio", "shots", "samples", "level", "rep", "truth", "est",
-          "profile_lb", "profile_s", "ti_lb", "ti_cutoff", "ti_fits", "ti_s")
+          "profile_lb", "profile_s", "ti_lb", "ti_cutoff", "ti_fits", "ti_s", "nulls")
 #: The extra columns of ``--two-sided``: both profile-likelihood and test-inversion intervals.
 TWO_SIDED = ("profile_lo", "profile_hi", "ti_lo", "ti_hi", "ti2_fits", "ti2_s")
 
@@ -62,11 +67,12 @@ def one_repetition(opts: dict, job) -> dict | None:
     model = build_model(exp)
     out = {"gate": gate, "kind": kind, "ratio": ratio, "shots": shots,
            "samples": opts["samples"], "level": opts["level"], "rep": rep,
+           "nulls": opts["nulls"],
            "truth": compute_figures(channel.choi, exp.target)["process_fidelity"]}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         t0 = time.perf_counter()
-        prof = Profile(model, process_fidelity_figure(exp.target))
+        prof = Profile(model, process_fidelity_figure(exp.target), nulls=opts["nulls"].split())
         plb = prof.lower_bound(opts["level"])
         out.update(est=prof.estimate, profile_lb=plb.low, profile_s=time.perf_counter() - t0)
         ti = prof.test_inversion_lower_bound(opts["level"], samples=opts["samples"],
@@ -82,8 +88,10 @@ def one_repetition(opts: dict, job) -> dict | None:
 
 
 def key_of(row) -> tuple:
+    """The cell of a row: its settings and the test's null set (rows written before the
+    column existed used the twirled null alone)."""
     return (row["gate"], float(row["shots"]), row["kind"], float(row["ratio"]),
-            int(row["samples"]), float(row["level"]))
+            int(row["samples"]), float(row["level"]), row.get("nulls") or "twirled")
 
 
 def table(rows: list[dict]) -> str:
@@ -103,7 +111,8 @@ def table(rows: list[dict]) -> str:
         col = lambda name: np.array([float(r[name]) for r in g])   # noqa: E731
         t, est = col("truth"), col("est")
         ratio = (1.0 - t.mean()) / est.std(ddof=1) if len(g) > 1 else float("nan")
-        line = (f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g} | {len(g)} | {ratio:.2f} | "
+        nulls = "" if key[6] == "twirled" else f", nulls: {key[6]}"
+        line = (f"| {key[0]}, {key[1]:g}, {key[2]}, {key[3]:g}{nulls} | {len(g)} | {ratio:.2f} | "
                 f"{_cov(col('profile_lb') <= t)} | {_cov(col('ti_lb') <= t)} | "
                 f"{np.nanmean(col('ti_cutoff')):.2f} | {int(np.isnan(col('ti_cutoff')).sum())} | "
                 f"{np.mean(est - col('profile_lb')):.2e} | "
@@ -125,12 +134,18 @@ def main(argv=None) -> int:
     p.add_argument("--two-sided", action="store_true",
                    help="also the two-sided profile-likelihood and test-inversion intervals "
                         "(use its own --out)")
+    p.add_argument("--nulls", nargs="+", choices=NULLS, default=None,
+                   help="processes the test inversion simulates per tested value (default "
+                        "the library's for the gate's qubits)")
     args = p.parse_args(argv)
+    if args.nulls is None:
+        args.nulls = default_nulls(int(round(np.log2(named_gate(args.gate).shape[0]))))
     if not args.table_only:
         run_cells(args, one_repetition, FIELDS + (TWO_SIDED if args.two_sided else ()), key_of,
                   lambda row: (f"F̂ {row['est']:.6f} (truth {row['truth']:.6f}) profile LB "
                                f"{row['profile_lb']:.6f}, test-inversion LB {row['ti_lb']:.6f} "
-                               f"({row['ti_s']:.1f} s)"), two_sided=args.two_sided)
+                               f"({row['ti_s']:.1f} s)"), two_sided=args.two_sided,
+                  nulls=" ".join(args.nulls))
     print(table(read_rows(args.out)))
     return 0
 

@@ -163,7 +163,8 @@ def test_mle_with_the_normal_interval_is_not_warned_of_the_resampled_bias(make_e
 def test_non_converged_refits_are_counted_kept_and_warned(make_experiment):
     exp, _ = make_experiment(FULL_RANK, shots=1000, seed=9)
     with pytest.warns(GatescopeWarning, match="10 of 10 bootstrap refits .* did not converge"):
-        res = gs.fit(exp, "mle", bootstrap=10, seed=1, workers=2, maxiter=1)
+        res = gs.fit(exp, "mle", bootstrap=10, seed=1, workers=2, maxiter=1,
+                     interval="normal")
     boot = res.bootstrap
     assert boot.failures == 10 and boot.errors == 0
     assert not boot.converged.any()

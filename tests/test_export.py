@@ -32,11 +32,12 @@ def test_json_carries_figures_status_fit_and_warnings(boot_result):
     assert data["figures"]["process_fidelity"] == {"value": fid.value, "ci": list(fid.ci),
                                                    "level": 0.95, "determined": True,
                                                    "in_range": True,
-                                                   "interval_method": "normal",
+                                                   "interval_method": "test-inversion",
                                                    "lower_bound": None, "lower_bound_method": None,
-                                                   "touches_boundary": None}
-    # the default of a two-qubit bootstrap: profile likelihood for the purity
-    # (pipeline.default_profiled), the bootstrap's normal interval elsewhere
+                                                   "touches_boundary": fid.touches_boundary}
+    # the default of a two-qubit bootstrap: test inversion for the fidelities, profile
+    # likelihood for the purity (pipeline.default_profiled), the bootstrap's normal
+    # interval elsewhere
     assert data["figures"]["purity"]["interval_method"] == "profile"
     assert data["figures"]["purity"]["touches_boundary"] is False
     assert data["status"] == "converged" and data["method"] == "mle" and data["file"] == "r.h5"

@@ -355,17 +355,17 @@ def test_the_default_interval():
 
     # profile likelihood or test inversion by default where they covered better near the
     # boundary (benchmarks/README.md, "Coverage near the boundary"): a one-qubit process,
-    # test inversion for the fidelities and profile for the purity; the purity of a
-    # two-qubit process and of a two-qubit state; the bootstrap's normal interval otherwise
+    # test inversion for the fidelities and profile for the purity; a two-qubit process
+    # alike; the purity of a two-qubit state; the bootstrap's normal interval otherwise
     one, two = (SimpleNamespace(n_qubits=n, kind="process") for n in (1, 2))
     pair = SimpleNamespace(n_qubits=2, kind="state")
     assert default_profiled(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity",
                                                  "purity")
     assert default_inverted(one, "mle", 100) == ("process_fidelity", "average_gate_fidelity")
     assert default_profiled(one, "mle-pg", 100) == default_profiled(one, "mle", 100)
-    assert default_profiled(two, "mle", 100) == ("purity",)
+    assert default_profiled(two, "mle", 100) == default_profiled(one, "mle", 100)
     assert default_profiled(pair, "mle", 100) == ("purity",)
-    assert default_inverted(two, "mle", 100) == ()
+    assert default_inverted(two, "mle", 100) == ("process_fidelity", "average_gate_fidelity")
     for exp, method, boot in ((one, "pls", 100), (one, "mle", 0),
                               (SimpleNamespace(n_qubits=3, kind="process"), "mle", 100),
                               (SimpleNamespace(n_qubits=3, kind="state"), "mle", 100)):
@@ -373,8 +373,9 @@ def test_the_default_interval():
         assert default_inverted(exp, method, boot) == ()
     # the command line's help says the same, from the same tables
     words = default_interval_words()
-    assert "test inversion for the process fidelity and average gate fidelity of a 1-qubit " \
-           "process" in words
+    for n in (1, 2):
+        assert (f"test inversion for the process fidelity and average gate fidelity of a "
+                f"{n}-qubit process") in words
     assert "profile likelihood for the purity of a 2-qubit state" in words
 
 

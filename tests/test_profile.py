@@ -29,9 +29,9 @@ from gatescope.likelihood import PoissonLikelihood, Tilt
 from gatescope.merit.process import average_gate_fidelity, process_fidelity
 from gatescope.model import build_model
 from gatescope.profile import (FIT_OPTIONS, INVERTED_FIGURES, Profile, average_gate_fidelity_figure,
-                               named_figure, one_sided_cutoff, process_fidelity_figure,
-                               profile_figures, profiled_names, purity_figure,
-                               state_fidelity_figure, two_sided_cutoff)
+                               default_nulls, named_figure, one_sided_cutoff, pauli_twirl,
+                               process_fidelity_figure, profile_figures, profiled_names,
+                               purity_figure, state_fidelity_figure, two_sided_cutoff)
 from gatescope.synth.noise import random_channel
 
 SCS_TIGHT = dict(eps_abs=1e-9, eps_rel=1e-9, max_iters=200_000)
@@ -350,7 +350,6 @@ def test_pauli_twirl_is_the_group_average(n, gate):
     # U†∘Φ and followed by U, against the chi-diagonal form of `pauli_twirl`
     from gatescope.channels import apply_channel, choi_from_unitary, compose
     from gatescope.conventions import pauli_basis
-    from gatescope.profile import pauli_twirl
 
     u = named_gate(gate)
     d = 2 ** n
@@ -410,6 +409,35 @@ def test_test_inversion_interval(near_unitary):
     p = prof.exceedance(high.choi, prof.statistic(), samples=60, seed=4, side=+1)
     assert p <= 0.05 + 2 * 0.028
     assert end.value > two.estimate
+
+
+def test_test_inversion_with_both_nulls(near_unitary):
+    # a value is rejected only when every simulated null rejects it: the p-value is the
+    # largest of the twirled and the plain one (a test of a composite null is at the level
+    # of its least favourable member; Berger & Boos, JASA 89, 1012 (1994), for the
+    # supremum over a set of nuisance values), each with the same random numbers
+    exp, model, mle = near_unitary
+    both = Profile(model, process_fidelity_figure(exp.target), mle=mle,
+                   nulls=("twirled", "plain"))
+    twirled = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    plain = Profile(model, process_fidelity_figure(exp.target), mle=mle, nulls=("plain",))
+    assert twirled.nulls == ("twirled",) == default_nulls(1)   # one qubit: the twirl alone
+    assert default_nulls(2) == ("twirled", "plain")
+    end = both.end_point(+1, 2.0)
+    sources = both.simulated_processes(end.choi)
+    assert len(sources) == 2 and np.array_equal(sources[1], end.choi)
+    assert np.allclose(sources[0], pauli_twirl(end.choi, exp.target), atol=1e-12)
+    observed = both.statistic()
+    for side in (-1, +1):
+        p = [prof.exceedance(end.choi, observed, samples=30, seed=6, side=side)
+             for prof in (both, twirled, plain)]
+        assert p[0] == max(p[1], p[2])
+    # the top's own test simulates the process given, once
+    fits = both.simulated_fits
+    both.exceedance(both._near_top(), observed, samples=30, seed=6, side=+1, as_is=True)
+    assert both.simulated_fits == fits + 30
+    with pytest.raises(ValueError, match="nulls"):
+        Profile(model, process_fidelity_figure(exp.target), mle=mle, nulls=("mixed",))
 
 
 def test_test_inversion_reaches_a_perfect_gate_far_out_in_deviance(tmp_path):

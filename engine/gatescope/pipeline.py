@@ -38,7 +38,8 @@ from .options import choice, flag, fraction, whole
 from .options import seed as check_seed
 from .options import workers as check_workers
 from .parallel import single_threaded_blas
-from .profile import PROFILED_FIGURES, profile_figures
+from .profile import PROFILED_FIGURES, profile_figures, profiled_names
+from .progress import Progress
 from .projection import KERNEL_MAX_DIM, project_physical
 from .provenance import provenance
 from .reader import Experiment, read_experiment
@@ -188,10 +189,11 @@ def fit(experiment: Experiment, method: str = "mle", *, bootstrap: int = 0,
 #: interval by default, by (kind, number of qubits): where its coverage near the
 #: boundary was measured closer to the level than the bootstrap's normal interval
 #: (benchmarks/README.md, "Coverage near the boundary"). The purity of one- and
-#: two-qubit processes and of two-qubit states; the fidelities of one qubit are in
-#: `TEST_INVERSION_DEFAULT`. Other figures and sizes keep the normal interval.
+#: two-qubit processes and of two-qubit states; the fidelities of one- and two-qubit
+#: processes are listed too, and `TEST_INVERSION_DEFAULT` turns their profile into a
+#: test inversion. Other figures and sizes keep the normal interval.
 PROFILE_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity", "purity"),
-                   ("process", 2): ("purity",),
+                   ("process", 2): ("process_fidelity", "average_gate_fidelity", "purity"),
                    ("state", 2): ("purity",)}
 
 
@@ -211,7 +213,8 @@ def default_profiled(experiment: Experiment, method: str, bootstrap: int) -> tup
 #: by (kind, number of qubits): where their coverage near the boundary was measured
 #: closest to the level (benchmarks/README.md, "Test inversion"). Elsewhere the bound
 #: is the profile-likelihood one and the interval `PROFILE_DEFAULT`'s.
-TEST_INVERSION_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity")}
+TEST_INVERSION_DEFAULT = {("process", 1): ("process_fidelity", "average_gate_fidelity"),
+                          ("process", 2): ("process_fidelity", "average_gate_fidelity")}
 #: The figures that ``interval="test-inversion"`` inverts: the fidelities of a process.
 PROCESS_INVERTED = ("process_fidelity", "average_gate_fidelity")
 #: Test-inversion intervals (`fit` with ``interval="test-inversion"``) are offered up to
@@ -247,7 +250,7 @@ def default_inverted(experiment: Experiment, method: str, bootstrap: int) -> tup
 
 
 def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
-                    lower_bound: bool, seed: int = 0, inverted=()) -> None:
+                    lower_bound: bool, seed: int = 0, inverted=(), progress: bool = False) -> None:
     """Set the profile-likelihood intervals of the figures named in ``interval``, the
     lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
     that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
@@ -255,16 +258,27 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     Each interval and bound is widened, if need be, to reach the figure's value: the
     profile's own maximum-likelihood fit (tighter than the point fit) may differ from
     it by the fit's tolerance. A figure the data do not determine keeps no profile. A
-    search that fails or does not converge is a warning (code ``profile``).
+    search that fails or does not converge is a warning (code ``profile``). With
+    ``progress``, a line per figure on stderr (the test inversions of two qubits take
+    tens of seconds).
     """
     names = None if lower_bound else tuple(interval)
     bounds = TEST_INVERSION_DEFAULT.get((model.kind, model.n_qubits), ())
+    allowed = profiled_names(model, target)
+    chosen = [n for n in (allowed if names is None else names) if n in allowed]
+    if progress and chosen:
+        tested = [n for n in chosen if n in inverted or (lower_bound and n in bounds)]
+        print(f"intervals: {', '.join(chosen)}"
+              + (f" (test inversion for {', '.join(tested)}: tens of seconds at two qubits)"
+                 if tested else ""), file=sys.stderr, flush=True)
+    count = len(chosen)
     try:
-        found = profile_figures(model, target, level=level, interval=bool(interval),
-                                lower_bound=lower_bound, names=names, start=point.choi,
-                                invert_bounds=bounds,
-                                invert_intervals=inverted,
-                                seed=[seed, TEST_INVERSION_STREAM])
+        with Progress(count, "intervals", "figure", enabled=progress) as bar:
+            found = profile_figures(model, target, level=level, interval=bool(interval),
+                                    lower_bound=lower_bound, names=names, start=point.choi,
+                                    invert_bounds=bounds, invert_intervals=inverted,
+                                    seed=[seed, TEST_INVERSION_STREAM],
+                                    done=lambda name: bar.update(postfix=name))
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
         return
@@ -449,5 +463,6 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
                 warn("chsh", text, stacklevel=2)
     if profiled or lower_bound:
         attach_profiles(result, model, point, target, ci_level, interval=profiled,
-                        lower_bound=lower_bound, seed=seed, inverted=inverted)
+                        lower_bound=lower_bound, seed=seed, inverted=inverted,
+                        progress=progress)
     return result

@@ -125,6 +125,25 @@ PROFILED_FIGURES = ("process_fidelity", "average_gate_fidelity", "state_fidelity
 #: The figures with test-inversion intervals and bounds: the linear ones, whose top
 #: (F = 1) has one maximiser, the target.
 INVERTED_FIGURES = ("process_fidelity", "average_gate_fidelity", "state_fidelity")
+#: The processes a test inversion of a process fidelity simulates for a tested value f
+#: (`Profile.simulated_processes`): the profile maximiser J_f Pauli-twirled around the
+#: target (``"twirled"``) and J_f itself (``"plain"``).
+NULLS = ("twirled", "plain")
+
+
+def default_nulls(n_qubits: int) -> tuple:
+    """The processes a test inversion of a process fidelity simulates by default: the
+    twirled profile maximiser for one qubit, the twirled and the plain one beyond.
+
+    The twirl keeps the fidelity but drops the coherent part of an error, and with it
+    part of the estimate's bias: near a unitary the estimate of F lies low by about the
+    number of error directions (d² − 1) times the variance per direction, a bias a
+    twirled (full-rank) null reproduces only in part. Measured (benchmarks/README.md,
+    "Test inversion"): at one qubit the twirled null alone covered 0.940–0.970 at 1000
+    counts per basis and the pair 0.970–0.980, wider by 3–6% at twice the cost; at two
+    qubits under a coherent over-rotation the twirled null covered 0.914–0.933 and the
+    pair 0.933–1.000."""
+    return ("twirled",) if n_qubits <= 1 else ("twirled", "plain")
 
 
 def two_sided_cutoff(level: float) -> float:
@@ -159,9 +178,9 @@ class ProfiledFigure:
         For purity F(J) = scale·Tr J² (1/d² for a process's Choi matrix of
         trace d, 1 for a density matrix); its tilt is μ·scale·Tr J².
     unitary : array or None
-        The target unitary U of a process fidelity: the test-inversion lower
-        bound (`Profile.test_inversion_lower_bound`) simulates processes
-        Pauli-twirled around it.
+        The target unitary U of a process fidelity: a test inversion
+        (`Profile.test_inversion_end`) may simulate processes Pauli-twirled
+        around it (`Profile.simulated_processes`).
     """
 
     name: str
@@ -334,12 +353,19 @@ class Profile:
         `FIT_OPTIONS`, from ``start`` when given) when not given.
     fit_options : dict, optional
         Options of the tilted fits (`fit_mle`), default `FIT_OPTIONS`.
+    nulls : tuple of `NULLS`, optional
+        The processes a test inversion simulates for each tested value of a process
+        fidelity (`simulated_processes`), default `default_nulls` of the model's qubits.
     """
 
     def __init__(self, model, figure: ProfiledFigure, *, counts=None,
-                 mle: Fit | None = None, fit_options: dict | None = None, start=None):
+                 mle: Fit | None = None, fit_options: dict | None = None, start=None,
+                 nulls: tuple | None = None):
         if figure.quadratic and model.trace_decreasing:
             raise ValueError("the purity profile needs a trace-preserving model")
+        self.nulls = tuple(default_nulls(model.n_qubits) if nulls is None else nulls)
+        if not self.nulls or any(n not in NULLS for n in self.nulls):
+            raise ValueError(f"nulls must be a non-empty selection of {NULLS}, got {nulls}")
         self.model = model
         self.figure = figure
         self.counts = counts
@@ -565,13 +591,15 @@ class Profile:
             self._observed = value
         return value
 
-    def simulated_process(self, choi: np.ndarray) -> np.ndarray:
-        """The process the test of the value F(``choi``) simulates: ``choi`` Pauli-twirled
-        around the target for a process fidelity (`pauli_twirl`), ``choi`` itself for
-        other figures."""
+    def simulated_processes(self, choi: np.ndarray) -> list[np.ndarray]:
+        """The processes the test of the value F(``choi``) simulates, one per entry of
+        ``nulls``: ``choi`` Pauli-twirled around the target (`pauli_twirl`) for
+        ``"twirled"``, ``choi`` itself for ``"plain"``. A figure other than a process
+        fidelity (the state fidelity, purity) simulates ``choi`` only."""
         if self.figure.unitary is None or self.model.kind == "state":
-            return choi
-        return pauli_twirl(choi, self.figure.unitary)
+            return [choi]
+        return [pauli_twirl(choi, self.figure.unitary) if null == "twirled" else choi
+                for null in self.nulls]
 
     def _near_top(self) -> np.ndarray:
         """A physical process at the top of the figure's range to within 10⁻⁹ of its
@@ -582,21 +610,29 @@ class Profile:
         return (1.0 - eps) * self.figure.maximiser + eps * self.mle.choi
 
     def exceedance(self, choi: np.ndarray, observed: float, *, samples: int,
-                   seed, side: int = -1) -> float:
+                   seed, side: int = -1, as_is: bool = False) -> float:
         """Monte Carlo p-value of the value F(``choi``) against the estimate ``observed``:
         (1 + #{T* ≥ observed})/(B + 1) for ``side`` −1 (a value below the estimate),
-        (1 + #{T* ≤ observed})/(B + 1) for ``side`` +1 (a value above it).
+        (1 + #{T* ≤ observed})/(B + 1) for ``side`` +1 (a value above it); with several
+        simulated processes (`simulated_processes`; ``as_is``: ``choi`` alone) the
+        largest of their p-values — the value is rejected only when every one of them
+        rejects it.
 
-        B = ``samples`` data sets of Poisson counts are drawn from
-        `simulated_process` (with the intensities that maximise ℓ there, as the
-        parametric bootstrap draws them) and T* = F(Ĵ*) is each one's estimate
-        (by `statistic`'s estimator, warm-started at the simulated process, as
-        the bootstrap warm-starts its refits; Davison & Hinkley, *Bootstrap Methods and their
-        Application*, 1997, §4.2, for the Monte Carlo p-value). Data set b
-        always uses the b-th child of ``SeedSequence(seed)``, so the p-values
-        of different tested values share their random numbers.
+        For each process, B = ``samples`` data sets of Poisson counts are drawn
+        from it (with the intensities that maximise ℓ there, as the parametric
+        bootstrap draws them) and T* = F(Ĵ*) is each one's estimate (by
+        `statistic`'s estimator, warm-started at the simulated process, as the
+        bootstrap warm-starts its refits; Davison & Hinkley, *Bootstrap Methods
+        and their Application*, 1997, §4.2, for the Monte Carlo p-value). Data
+        set b always uses the b-th child of ``SeedSequence(seed)``, so the
+        p-values of different tested values, and of the processes of one value,
+        share their random numbers.
         """
-        source = self.simulated_process(choi)
+        sources = [choi] if as_is else self.simulated_processes(choi)
+        return max(self._exceedance(source, observed, samples, seed, side)
+                   for source in sources)
+
+    def _exceedance(self, source, observed, samples, seed, side) -> float:
         ev = self.likelihood.evaluate(source)
         means = np.maximum(np.asarray(self.model.expected_counts(source, ev.intensities),
                                       dtype=float), 0.0)
@@ -630,7 +666,7 @@ class Profile:
         if not math.isfinite(ll):
             return False
         p = self.exceedance(choi_from_unitary(u), self.statistic(), samples=samples,
-                            seed=seed, side=+1)
+                            seed=seed, side=+1, as_is=True)
         return p > tail
 
     def test_inversion_lower_bound(self, level: float = 0.95, *,
@@ -678,7 +714,7 @@ class Profile:
         larger than data from a process with figure f make plausible — its
         p-value `exceedance`, simulated at the profile maximiser J_f (the
         nuisance parameters at their constrained maximum-likelihood values;
-        for a fidelity Pauli-twirled around the target, `simulated_process`),
+        for a process fidelity twirled or not, `simulated_processes`),
         is at most ``tail`` — and on the upper side when T is smaller. The end
         is where the p-value crosses ``tail`` (the test-inversion bootstrap
         interval: Carpenter, J. R. Stat. Soc. B 61, 159 (1999)). The tested
@@ -742,7 +778,7 @@ class Profile:
             elif rejected is None:                   # all accepted: further from the estimate
                 if side > 0 and self.figure.maximiser is not None and edge_p is None:
                     edge_p = self.exceedance(self._near_top(), observed, samples=samples,
-                                             seed=seed, side=side)
+                                             seed=seed, side=side, as_is=True)
                     if edge_p > tail:                # the whole side up to the top
                         edge = End(self.figure.high, self.figure.maximiser, True, True,
                                    math.inf)
@@ -911,7 +947,7 @@ class FigureProfile:
 def profile_figures(model, target, *, level: float = 0.95, interval: bool = True,
                     lower_bound: bool = False, names=None, start=None, counts=None,
                     fit_options: dict | None = None, invert_bounds=(), invert_intervals=(),
-                    seed=0, samples: int | None = None) -> dict:
+                    seed=0, samples: int | None = None, done=None) -> dict:
     """Profile-likelihood intervals and lower bounds of the figures of ``model``.
 
     Parameters
@@ -934,6 +970,8 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         ``seed``, an int or a sequence of ints for `numpy.random.SeedSequence`;
         ``samples`` None: `CALIBRATION_SAMPLES`), instead of the profile-likelihood ones;
         only `INVERTED_FIGURES` take them.
+    done : callable, optional
+        Called with each figure's name once its intervals are computed (progress).
 
     Returns
     -------
@@ -955,6 +993,8 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         if (name == "average_gate_fidelity" and "process_fidelity" in out
                 and not model.trace_decreasing):
             out[name] = _affine_image(out["process_fidelity"], name, model.dim)
+            if done is not None:
+                done(name)
             continue
         prof = Profile(model, named_figure(name, target, model.dim, model.kind), counts=counts,
                        mle=mle, fit_options=options)
@@ -980,6 +1020,8 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
                 top = bool(two.high >= prof.figure.high)
         out[name] = FigureProfile(name, prof.estimate, two, low, top, prof.fits + 1,
                                   prof.seconds + shared)
+        if done is not None:
+            done(name)
     return out
 
 
@@ -1017,5 +1059,5 @@ __all__ = ["ProfiledFigure", "ProfilePoint", "ProfileInterval", "Profile", "Figu
            "average_gate_fidelity_figure", "state_fidelity_figure", "purity_figure",
            "INVERTED_FIGURES",
            "named_figure", "two_sided_cutoff", "one_sided_cutoff", "FIT_OPTIONS",
-           "pauli_twirl", "CALIBRATION_SAMPLES", "best_unitary",
+           "pauli_twirl", "CALIBRATION_SAMPLES", "best_unitary", "NULLS", "default_nulls",
            "PROFILED_FIGURES"]
