@@ -19,8 +19,8 @@ FORMAT1 = Path(__file__).resolve().parent / "data" / "format1"
 def boot_result(tmp_path_factory):
     from support import simulated_experiment
 
-    exp, _ = simulated_experiment(tmp_path_factory.mktemp("e") / "d", "CZ+depolarizing:0.05",
-                                  shots=600, seed=3)
+    exp, _ = simulated_experiment(tmp_path_factory.mktemp("e") / "d", "H+depolarizing:0.05",
+                                  shots=600, seed=3, n_qubits=1)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return gs.fit(exp, bootstrap=6, seed=2, workers=1)
@@ -35,7 +35,7 @@ def test_json_carries_figures_status_fit_and_warnings(boot_result):
                                                    "interval_method": "test-inversion",
                                                    "lower_bound": None, "lower_bound_method": None,
                                                    "touches_boundary": fid.touches_boundary}
-    # the default of a two-qubit bootstrap: test inversion for the fidelities, profile
+    # the default of a one-qubit bootstrap: test inversion for the fidelities, profile
     # likelihood for the purity (pipeline.default_profiled), the bootstrap's normal
     # interval elsewhere
     assert data["figures"]["purity"]["interval_method"] == "profile"

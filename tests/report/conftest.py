@@ -29,10 +29,12 @@ def report_data(tmp_path_factory):
 
 @pytest.fixture(scope="session")
 def boot_result(report_data):
-    """A two-qubit CZ with noise, bootstrapped (20 resamples)."""
+    """A two-qubit CZ with noise, bootstrapped (20 resamples), with the bootstrap's
+    normal interval for every figure (the default test inversion of the fidelities takes
+    tens of seconds at two qubits; the demo's report shows it)."""
     exp, _ = simulated_experiment(report_data / "boot", "CZ+zz:0.2+depolarizing:0.05",
                                   shots=1000, seed=3)
-    return _fit_and_save(exp, report_data / "boot.h5", bootstrap=20, seed=1)
+    return _fit_and_save(exp, report_data / "boot.h5", bootstrap=20, seed=1, interval="normal")
 
 
 @pytest.fixture(scope="session")
