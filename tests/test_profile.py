@@ -440,6 +440,26 @@ def test_test_inversion_with_both_nulls(near_unitary):
         Profile(model, process_fidelity_figure(exp.target), mle=mle, nulls=("mixed",))
 
 
+def test_simulated_refits_on_two_workers_give_the_same_p_value(near_unitary):
+    # each simulated data set has its own child seed, so the p-value and the intervals do
+    # not depend on the number of processes that refit them
+    from gatescope.parallel import Runner
+
+    exp, model, mle = near_unitary
+    prof = Profile(model, process_fidelity_figure(exp.target), mle=mle)
+    end = prof.end_point(-1, 2.0)
+    alone = prof.exceedance(end.choi, prof.statistic(), samples=24, seed=5)
+    with Runner(2, shared=(model, prof.figure)) as runner:
+        prof.runner = runner
+        assert prof.exceedance(end.choi, prof.statistic(), samples=24, seed=5) == alone
+    assert 1 / 25 <= alone <= 1.0
+    one, two = (profile_figures(model, exp.target, names=("process_fidelity",),
+                                invert_intervals=("process_fidelity",), samples=20, seed=2,
+                                workers=w)["process_fidelity"] for w in (1, 2))
+    assert two.interval.method == one.interval.method == "test-inversion"
+    assert (two.interval.low, two.interval.high) == (one.interval.low, one.interval.high)
+
+
 def test_test_inversion_reaches_a_perfect_gate_far_out_in_deviance(tmp_path):
     # a few counts where the gate predicts (almost) none: the target itself lies at a
     # deviance far beyond any cutoff, yet processes ever closer to it stay accepted — their simulated

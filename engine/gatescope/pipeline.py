@@ -250,7 +250,8 @@ def default_inverted(experiment: Experiment, method: str, bootstrap: int) -> tup
 
 
 def attach_profiles(result: Result, model, point, target, level: float, *, interval=(),
-                    lower_bound: bool, seed: int = 0, inverted=(), progress: bool = False) -> None:
+                    lower_bound: bool, seed: int = 0, inverted=(), progress: bool = False,
+                    workers: int = 1) -> None:
     """Set the profile-likelihood intervals of the figures named in ``interval``, the
     lower bounds (``lower_bound``) and ``touches_boundary`` of the figures of ``result``
     that `gatescope.profile` covers (those in ``interval`` without ``lower_bound``).
@@ -260,7 +261,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     it by the fit's tolerance. A figure the data do not determine keeps no profile. A
     search that fails or does not converge is a warning (code ``profile``). With
     ``progress``, a line per figure on stderr (the test inversions of two qubits take
-    tens of seconds).
+    tens of seconds); their simulated refits run on ``workers`` processes.
     """
     names = None if lower_bound else tuple(interval)
     bounds = TEST_INVERSION_DEFAULT.get((model.kind, model.n_qubits), ())
@@ -277,7 +278,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
             found = profile_figures(model, target, level=level, interval=bool(interval),
                                     lower_bound=lower_bound, names=names, start=point.choi,
                                     invert_bounds=bounds, invert_intervals=inverted,
-                                    seed=[seed, TEST_INVERSION_STREAM],
+                                    seed=[seed, TEST_INVERSION_STREAM], workers=workers,
                                     done=lambda name: bar.update(postfix=name))
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
@@ -442,10 +443,7 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
         # reference even for a model that fits: the test is for the ML estimate only
         warn_if_poor_fit(diag)
     undetermined = undetermined_figures(model, rows, ident, values, no_signal=no_signal)
-    prov = provenance(seed=seed, command_line=command_line, started=started,
-                      wall=time.perf_counter() - t0)
-    if compile_seconds is not None:
-        prov["compile_seconds"] = float(compile_seconds)
+    prov = {} if compile_seconds is None else {"compile_seconds": float(compile_seconds)}
     result = build_result(experiment, point.choi, values, details, method=point.method,
                           converged=verdict.converged, iterations=point.iterations,
                           log_likelihood=point.log_likelihood, stop_reason=point.stop_reason,
@@ -464,5 +462,8 @@ def _fit(experiment, method, *, bootstrap, bootstrap_kind, ci_level, seed, worke
     if profiled or lower_bound:
         attach_profiles(result, model, point, target, ci_level, interval=profiled,
                         lower_bound=lower_bound, seed=seed, inverted=inverted,
-                        progress=progress)
+                        progress=progress, workers=check_workers(workers))
+    # the whole job's time: model, estimate, figures, bootstrap, goodness of fit, intervals
+    result.provenance.update(provenance(seed=seed, command_line=command_line,
+                                        started=started, wall=time.perf_counter() - t0))
     return result

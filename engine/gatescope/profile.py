@@ -99,6 +99,7 @@ from .estimators import Fit, estimate, fit_mle
 from .likelihood import PoissonLikelihood, Tilt
 from .merit.process import nearest_unitary
 from .merit.state import _pure_vector
+from .parallel import Runner
 
 #: Options of the tilted fits (and of the profile's own maximum-likelihood fit): a tighter
 #: optimality residual than `fit_mle`'s default (1e−4), so that the deviance is accurate
@@ -381,6 +382,9 @@ class Profile:
                                     int(mle.iterations))]
         self.fits = 0
         self.simulated_fits = 0
+        #: The `gatescope.parallel.Runner` (shared: ``(model, figure)``) that runs the
+        #: simulated refits of `exceedance`; None: this process.
+        self.runner = None
         self._edge_loglik = {}
         self._observed = None
 
@@ -637,12 +641,12 @@ class Profile:
         means = np.maximum(np.asarray(self.model.expected_counts(source, ev.intensities),
                                       dtype=float), 0.0)
         t0 = time.perf_counter()
-        beyond = 0
-        for child in np.random.SeedSequence(seed).spawn(samples):
-            fit = estimate(self.model, "mle", counts=resample_counts(means, child),
-                           start=source)
-            value = self.figure.value(fit.choi)
-            beyond += value >= observed if side < 0 else value <= observed
+        items = [(means, source, child) for child in np.random.SeedSequence(seed).spawn(samples)]
+        if self.runner is None:
+            values = [_simulated_value((self.model, self.figure), item) for item in items]
+        else:
+            values = [value for _, value in self.runner.map(_simulated_value, items)]
+        beyond = sum(value >= observed if side < 0 else value <= observed for value in values)
         self.seconds += time.perf_counter() - t0
         self.simulated_fits += samples
         return (1.0 + beyond) / (samples + 1.0)
@@ -944,10 +948,21 @@ class FigureProfile:
     seconds: float
 
 
+def _simulated_value(shared, item) -> float:
+    """F of one simulated data set of `Profile.exceedance`: Poisson counts of mean
+    ``means`` drawn from the seed sequence ``child``, refitted by ``mle`` warm-started at
+    ``source``. ``shared`` is ``(model, figure)``, ``item`` ``(means, source, child)``
+    (a task of `gatescope.parallel.Runner`)."""
+    model, figure = shared
+    means, source, child = item
+    fit = estimate(model, "mle", counts=resample_counts(means, child), start=source)
+    return float(figure.value(fit.choi))
+
+
 def profile_figures(model, target, *, level: float = 0.95, interval: bool = True,
                     lower_bound: bool = False, names=None, start=None, counts=None,
                     fit_options: dict | None = None, invert_bounds=(), invert_intervals=(),
-                    seed=0, samples: int | None = None, done=None) -> dict:
+                    seed=0, samples: int | None = None, done=None, workers: int = 1) -> dict:
     """Profile-likelihood intervals and lower bounds of the figures of ``model``.
 
     Parameters
@@ -972,6 +987,9 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         only `INVERTED_FIGURES` take them.
     done : callable, optional
         Called with each figure's name once its intervals are computed (progress).
+    workers : int
+        Processes for the simulated refits of the test inversions and of the purity's
+        top test (`gatescope.parallel.Runner`); the numbers do not depend on it.
 
     Returns
     -------
@@ -999,30 +1017,41 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
         prof = Profile(model, named_figure(name, target, model.dim, model.kind), counts=counts,
                        mle=mle, fit_options=options)
         invertible = name in INVERTED_FIGURES
-        two = low = None
-        if interval:
-            two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
-                   if name in invert_intervals and invertible else prof.interval(level))
-            if two.high < prof.figure.high and _top_accepted(prof, level, samples, seed):
-                two = replace(two, high=prof.figure.high, touches_boundary=True)
-        if lower_bound:
-            low = (prof.test_inversion_lower_bound(level, samples=samples, seed=seed)
-                   if name in invert_bounds and invertible else prof.lower_bound(level))
-        top = prof.consistent_with_top(level)
-        if two is not None and two.method == "test-inversion":
-            top = bool(two.high >= prof.figure.high)      # the calibrated interval decides
-        elif top is None:
-            # purity: no single maximiser; the two-sided interval says whether it reaches 1
-            if two is None:
-                two_top = prof.end_point(+1, two_sided_cutoff(level))
-                top = bool(two_top.touches_edge) or _top_accepted(prof, level, samples, seed)
-            else:
-                top = bool(two.high >= prof.figure.high)
-        out[name] = FigureProfile(name, prof.estimate, two, low, top, prof.fits + 1,
-                                  prof.seconds + shared)
+        simulates = (invertible and name in (*invert_intervals, *invert_bounds)
+                     or _top_tested(prof))
+        with Runner(workers if simulates else 1, shared=(model, prof.figure)) as runner:
+            prof.runner = runner
+            out[name] = _figure_profile(prof, name, level, interval, lower_bound, invertible,
+                                        invert_intervals, invert_bounds, samples, seed, shared)
         if done is not None:
             done(name)
     return out
+
+
+def _figure_profile(prof, name, level, interval, lower_bound, invertible, invert_intervals,
+                    invert_bounds, samples, seed, shared) -> FigureProfile:
+    """The `FigureProfile` of one figure for `profile_figures` (its parameters)."""
+    two = low = None
+    if interval:
+        two = (prof.test_inversion_interval(level, samples=samples, seed=seed)
+               if name in invert_intervals and invertible else prof.interval(level))
+        if two.high < prof.figure.high and _top_accepted(prof, level, samples, seed):
+            two = replace(two, high=prof.figure.high, touches_boundary=True)
+    if lower_bound:
+        low = (prof.test_inversion_lower_bound(level, samples=samples, seed=seed)
+               if name in invert_bounds and invertible else prof.lower_bound(level))
+    top = prof.consistent_with_top(level)
+    if two is not None and two.method == "test-inversion":
+        top = bool(two.high >= prof.figure.high)      # the calibrated interval decides
+    elif top is None:
+        # purity: no single maximiser; the two-sided interval says whether it reaches 1
+        if two is None:
+            two_top = prof.end_point(+1, two_sided_cutoff(level))
+            top = bool(two_top.touches_edge) or _top_accepted(prof, level, samples, seed)
+        else:
+            top = bool(two.high >= prof.figure.high)
+    return FigureProfile(name, prof.estimate, two, low, top, prof.fits + 1,
+                         prof.seconds + shared)
 
 
 #: The purity's top is tested by simulation (`Profile.top_accepted`) for processes up to
@@ -1030,13 +1059,19 @@ def profile_figures(model, target, *, level: float = 0.95, interval: bool = True
 TOP_TEST_MAX_DIM = 4
 
 
+def _top_tested(prof: Profile) -> bool:
+    """Whether the top of the figure is tested by simulation: the purity of a process
+    up to `TOP_TEST_MAX_DIM`."""
+    return (prof.figure.quadratic and prof.model.kind != "state"
+            and prof.model.dim <= TOP_TEST_MAX_DIM)
+
+
 def _top_accepted(prof: Profile, level: float, samples: int, seed) -> bool:
-    """Whether the top of a process's purity (up to `TOP_TEST_MAX_DIM`) passes
+    """Whether the top of a process's purity (`_top_tested`) passes
     `Profile.top_accepted` at the tail of a two-sided interval at ``level``; False for
     every other figure."""
-    return (prof.figure.quadratic and prof.model.kind != "state"
-            and prof.model.dim <= TOP_TEST_MAX_DIM
-            and prof.top_accepted(0.5 * (1.0 - level), samples=samples, seed=seed))
+    return _top_tested(prof) and prof.top_accepted(0.5 * (1.0 - level), samples=samples,
+                                                   seed=seed)
 
 
 def _affine_image(pro: FigureProfile, name: str, dim: int) -> FigureProfile:
