@@ -2,19 +2,24 @@
 
 For each qubit count, one simulated experiment (the gate with white noise at
 ``--infidelity``, ``--shots`` counts per preparation and analyser basis,
-full six-state sets) is fitted ``--repeats`` times in each configuration, in
-one process with one thread, and the median wall time is kept:
+full six-state sets) is fitted ``--repeats`` times in each configuration, on
+``--workers`` processes (default one) with one thread each, and the median wall
+time is kept:
 
 * ``fit`` — the point fit alone;
 * ``profile`` — ``interval="profile"`` without a bootstrap;
 * ``profile+lower`` — the same with ``lower_bound=True``;
-* ``bootstrap`` — ``bootstrap=B`` with the ``normal`` interval, one worker;
-* ``bootstrap+profile`` — both.
+* ``bootstrap`` — ``bootstrap=B`` with the ``normal`` interval;
+* ``bootstrap+profile`` — both;
+* ``bootstrap+default`` — ``bootstrap=B`` with the default intervals (test
+  inversion for the fidelities of one- and two-qubit processes).
 
 The ratios to ``fit`` and to ``bootstrap`` are printed beside the seconds and
 written with them to ``--out`` (JSON).
 
     nice -n 10 python benchmarks/profile_cost.py --qubits 1 2
+    python benchmarks/profile_cost.py --qubits 2 --infidelity 0.0003 --repeats 1 --workers 2 \
+        --out benchmarks/results/profile_cost_workers2.json
 """
 
 from __future__ import annotations
@@ -43,7 +48,8 @@ def configurations(samples: int) -> dict:
     return {"fit": {}, "profile": {"interval": "profile"},
             "profile+lower": {"interval": "profile", "lower_bound": True},
             "bootstrap": {"bootstrap": samples, "interval": "normal"},
-            "bootstrap+profile": {"bootstrap": samples, "interval": "profile"}}
+            "bootstrap+profile": {"bootstrap": samples, "interval": "profile"},
+            "bootstrap+default": {"bootstrap": samples}}
 
 
 def main(argv=None) -> int:
@@ -53,6 +59,8 @@ def main(argv=None) -> int:
     p.add_argument("--infidelity", type=float, default=0.01)
     p.add_argument("--samples", type=int, default=100, help="bootstrap resamples B")
     p.add_argument("--repeats", type=int, default=3)
+    p.add_argument("--workers", type=int, default=1,
+                   help="worker processes of every fit (bootstrap and test-inversion refits)")
     p.add_argument("--out", type=Path,
                    default=Path(__file__).parent / "results" / "profile_cost.json")
     args = p.parse_args(argv)
@@ -72,13 +80,14 @@ def main(argv=None) -> int:
                     runs = []
                     for _ in range(args.repeats):
                         t0 = time.perf_counter()
-                        gs.fit(exp, seed=1, workers=1, **kw)
+                        gs.fit(exp, seed=1, workers=args.workers, **kw)
                         runs.append(time.perf_counter() - t0)
                     seconds[name] = statistics.median(runs)
         results[str(n)] = {"spec": spec, "shots": args.shots, "samples": args.samples,
-                           "seconds": seconds}
+                           "workers": args.workers, "seconds": seconds}
         base, boot = seconds["fit"], seconds["bootstrap"]
-        print(f"{n} qubit(s), {spec}, {args.shots:g} counts per basis, B = {args.samples}:")
+        print(f"{n} qubit(s), {spec}, {args.shots:g} counts per basis, B = {args.samples}, "
+              f"{args.workers} worker(s):")
         for name, s in seconds.items():
             print(f"  {name:18s} {s:8.3f} s   × {s / base:7.1f} of fit   × {s / boot:5.2f} "
                   f"of bootstrap")
