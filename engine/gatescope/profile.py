@@ -141,7 +141,7 @@ def default_nulls(n_qubits: int) -> tuple:
     number of error directions (d² − 1) times the variance per direction, a bias a
     twirled (full-rank) null reproduces only in part. Measured (benchmarks/README.md,
     "Test inversion"): at one qubit the twirled null alone covered 0.940–0.970 at 1000
-    counts per basis and the pair 0.970–0.980, wider by 3–6% at twice the cost; at two
+    counts per basis and the pair 0.970–0.980, wider by 4–6% at twice the cost; at two
     qubits under a coherent over-rotation the twirled null covered 0.914–0.933 and the
     pair 0.933–1.000."""
     return ("twirled",) if n_qubits <= 1 else ("twirled", "plain")
