@@ -305,6 +305,23 @@ def test_test_inversion_intervals_and_bounds(make_experiment, monkeypatch):
     assert drawn.provenance["seed"] is not None
 
 
+def test_a_test_inversion_that_rejects_the_estimate_falls_back_with_one_warning(
+        make_experiment, monkeypatch):
+    # counts equal to their expectations (no shot noise): the data sit closer to them than
+    # any simulated data set, so the test rejects every value up to the estimate itself;
+    # the bounds fall back to the profile likelihood, said once for both fidelities
+    import gatescope.profile
+    monkeypatch.setattr(gatescope.profile, "CALIBRATION_SAMPLES", 40)     # a quicker test
+    exp, _ = make_experiment("H", n_qubits=1, shots=1000, exact=True)
+    with pytest.warns(gs.GatescopeWarning) as record:
+        res = gs.fit(exp, lower_bound=True, seed=2)
+    texts = [str(w.message) for w in record if "test inversion" in str(w.message)]
+    assert len(texts) == 1
+    assert "test inversion of process_fidelity, average_gate_fidelity rejected" in texts[0]
+    for name in ("process_fidelity", "average_gate_fidelity"):
+        assert res.figures[name].lower_bound_method == "profile"
+
+
 def test_test_inversion_is_refused_for_a_state(make_state_experiment):
     # measured to cover a state's fidelity less often than the bootstrap near a pure state
     exp, _ = make_state_experiment("phi++depolarizing:0.02", shots=500, seed=3)

@@ -283,6 +283,7 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
     except (RuntimeError, NumericalError, ArithmeticError) as exc:
         warn("profile", f"profile-likelihood intervals not computed: {exc}", stacklevel=2)
         return
+    fell_back, unconverged = [], []
     for name, prof in found.items():
         fig = result.figures.get(name)
         if fig is None or not fig.determined:
@@ -290,13 +291,9 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         parts = [p for p in (prof.interval, prof.lower) if p is not None]
         asked = ((prof.interval, name in inverted), (prof.lower, name in bounds))
         if any(p is not None and wanted and p.method != "test-inversion" for p, wanted in asked):
-            warn("profile", f"the test inversion of {name} rejected every value up to the "
-                            f"estimate itself (counts closer to their expectations than shot "
-                            f"noise makes likely): its profile-likelihood interval or bound is "
-                            f"given instead", stacklevel=2)
+            fell_back.append(name)
         if not all(p.converged for p in parts):
-            warn("profile", f"the profile-likelihood search for {name} stopped before it "
-                            f"converged: its interval may be inaccurate", stacklevel=2)
+            unconverged.append(name)
         low, high = parameter_range(name, model.dim, model.kind)
         if prof.interval is not None and name in interval:
             fig.ci = (max(min(prof.interval.low, fig.value), low),
@@ -307,6 +304,14 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
             fig.lower_bound_method = prof.lower.method
         fig.level = float(level)
         fig.touches_boundary = bool(prof.touches_boundary)
+    if fell_back:          # one warning: the average gate fidelity follows the process one
+        warn("profile", f"the test inversion of {', '.join(fell_back)} rejected every value up "
+                        f"to the estimate itself (counts closer to their expectations than shot "
+                        f"noise makes likely): the profile-likelihood interval or bound is "
+                        f"given instead", stacklevel=2)
+    if unconverged:
+        warn("profile", f"the profile-likelihood search for {', '.join(unconverged)} stopped "
+                        f"before it converged: the interval may be inaccurate", stacklevel=2)
 
 
 #: The notice printed while the numerical kernels compile (README, "First run").
