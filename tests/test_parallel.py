@@ -66,6 +66,45 @@ def test_an_error_in_a_task_reaches_the_caller_and_stops_the_workers():
             list(runner.map(square_task, range(4)))      # None + int raises in the workers
 
 
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="SIGALRM, fork: Linux")
+def test_a_map_stopped_by_a_signal_leaves_no_error_in_the_pool_thread(tmp_path, monkeypatch):
+    # a reproducer: after SIGTERM (or Ctrl-C) in the middle of a map, the futures the map had
+    # cancelled were marked failed once the killed workers broke the pool, which raises
+    # InvalidStateError in the pool's thread (CPython 3.11): a traceback on stderr
+    import threading
+    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures.process import _ExecutorManagerThread
+
+    from support import report_and_sleep
+
+    errors = []
+    monkeypatch.setattr(threading, "excepthook", lambda args: errors.append(args.exc_value))
+    shutdown = ProcessPoolExecutor.shutdown
+
+    def late_shutdown(self, *args, **kwargs):
+        time.sleep(1.0)          # the pool's thread sees the killed workers first, as it may
+        return shutdown(self, *args, **kwargs)
+
+    monkeypatch.setattr(ProcessPoolExecutor, "shutdown", late_shutdown)
+
+    def interrupt(signum, frame):
+        raise KeyboardInterrupt
+
+    previous = signal.signal(signal.SIGALRM, interrupt)
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            with parallel.Runner(2, shared=str(tmp_path)) as runner:
+                signal.alarm(2)                       # the tasks sleep for 120 s
+                list(runner.map(report_and_sleep, range(8), chunk=1))
+    finally:
+        signal.alarm(0)
+        signal.signal(signal.SIGALRM, previous)
+    for thread in threading.enumerate():
+        if isinstance(thread, _ExecutorManagerThread):
+            thread.join(timeout=30)
+    assert errors == []
+
+
 def _wait_for(condition, seconds):
     end = time.monotonic() + seconds
     while time.monotonic() < end:

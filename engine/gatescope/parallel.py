@@ -385,15 +385,15 @@ class Runner:
                 self._pool = ProcessPoolExecutor(
                     max_workers=min(self.workers, len(chunks)), mp_context=context,
                     initializer=_init_worker, initargs=(self.shared, parent))
+        # Tasks left when the caller stops are cancelled by `close` (the pool's own thread
+        # cancels them at shutdown): a future cancelled here could later be marked failed
+        # by that thread when killed workers break the pool, which raises there
+        # (InvalidStateError, CPython 3.11).
         todo = {self._pool.submit(_run_chunk, task, c) for c in chunks}
-        try:
-            while todo:
-                done, todo = wait(todo, return_when=FIRST_COMPLETED)
-                for fut in done:
-                    yield from fut.result()
-        finally:
-            for fut in todo:
-                fut.cancel()
+        while todo:
+            done, todo = wait(todo, return_when=FIRST_COMPLETED)
+            for fut in done:
+                yield from fut.result()
 
     def _map_dask(self, task, chunks):
         from dask.distributed import as_completed
@@ -418,7 +418,7 @@ class Runner:
                         proc.kill()
                 pool.shutdown(wait=False, cancel_futures=True)
             else:
-                pool.shutdown(wait=True)
+                pool.shutdown(wait=True, cancel_futures=True)
         client, self._client = self._client, None
         if client is not None:
             client.close()
