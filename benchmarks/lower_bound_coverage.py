@@ -45,7 +45,7 @@ from boundary_coverage import (_cov, add_cell_arguments, noisy_channel, read_row
                                run_cells)
 from gatescope.merit import compute_figures  # noqa: E402
 from gatescope.model import build_model  # noqa: E402
-from gatescope.conventions import named_gate  # noqa: E402
+from gatescope.conventions import n_qubits_of, named_gate  # noqa: E402
 from gatescope.profile import NULLS, Profile, default_nulls, process_fidelity_figure  # noqa: E402
 from gatescope.reader import read_experiment  # noqa: E402
 from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: E402
@@ -139,7 +139,7 @@ def main(argv=None) -> int:
                         "the library's for the gate's qubits)")
     args = p.parse_args(argv)
     if args.nulls is None:
-        args.nulls = default_nulls(int(round(np.log2(named_gate(args.gate).shape[0]))))
+        args.nulls = default_nulls(n_qubits_of(named_gate(args.gate).shape[0]))
     if not args.table_only:
         run_cells(args, one_repetition, FIELDS + (TWO_SIDED if args.two_sided else ()), key_of,
                   lambda row: (f"F̂ {row['est']:.6f} (truth {row['truth']:.6f}) profile LB "

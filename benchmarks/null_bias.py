@@ -38,25 +38,14 @@ from pathlib import Path  # noqa: E402
 import numpy as np  # noqa: E402
 
 from boundary_coverage import KINDS, noisy_channel  # noqa: E402
-from gatescope.bootstrap import resample_counts  # noqa: E402
 from gatescope.estimators import estimate  # noqa: E402
 from gatescope.likelihood import PoissonLikelihood  # noqa: E402
 from gatescope.model import build_model  # noqa: E402
-from gatescope.profile import pauli_twirl, process_fidelity_figure  # noqa: E402
+from gatescope.profile import pauli_twirl, process_fidelity_figure, simulated_values  # noqa: E402
 from gatescope.reader import read_experiment  # noqa: E402
 from gatescope.synth.simulate import simulate_counts, write_experiment  # noqa: E402
 
 SOURCES = ("truth", "twirled truth", "estimate", "twirled estimate")
-
-
-def simulated_estimates(model, figure, source, samples: int, seed) -> np.ndarray:
-    """F(Ĵ*) of ``samples`` data sets drawn from ``source`` (with the intensities that
-    maximise the likelihood of the observed counts there) and refitted by ``mle``."""
-    ev = PoissonLikelihood(model).evaluate(source)
-    means = np.maximum(np.asarray(model.expected_counts(source, ev.intensities), float), 0.0)
-    return np.array([figure.value(estimate(model, "mle", counts=resample_counts(means, child),
-                                           start=source).choi)
-                     for child in np.random.SeedSequence(seed).spawn(samples)])
 
 
 def cell(gate: str, kind: str, infidelity: float, shots: float, datasets: int, samples: int,
@@ -78,7 +67,8 @@ def cell(gate: str, kind: str, infidelity: float, shots: float, datasets: int, s
                      "estimate": fit.choi,
                      "twirled estimate": pauli_twirl(fit.choi, exp.target)}
         for name, source in processes.items():
-            values = simulated_estimates(model, figure, source, samples, seed + k + 5_000_000)
+            values = simulated_values(PoissonLikelihood(model), figure, source, samples,
+                                      seed + k + 5_000_000)
             bias[name].append(values.mean() - figure.value(source))
             spread[name].append(values.std(ddof=1))
     unit = float(np.mean(spread["truth"]))

@@ -637,15 +637,9 @@ class Profile:
                    for source in sources)
 
     def _exceedance(self, source, observed, samples, seed, side) -> float:
-        ev = self.likelihood.evaluate(source)
-        means = np.maximum(np.asarray(self.model.expected_counts(source, ev.intensities),
-                                      dtype=float), 0.0)
         t0 = time.perf_counter()
-        items = [(means, source, child) for child in np.random.SeedSequence(seed).spawn(samples)]
-        if self.runner is None:
-            values = [_simulated_value((self.model, self.figure), item) for item in items]
-        else:
-            values = [value for _, value in self.runner.map(_simulated_value, items)]
+        values = simulated_values(self.likelihood, self.figure, source, samples, seed,
+                                  runner=self.runner)
         beyond = sum(value >= observed if side < 0 else value <= observed for value in values)
         self.seconds += time.perf_counter() - t0
         self.simulated_fits += samples
@@ -948,6 +942,27 @@ class FigureProfile:
     seconds: float
 
 
+def simulated_values(likelihood, figure, source, samples: int, seed, *,
+                     runner=None) -> np.ndarray:
+    """F(Ĵ*) of ``samples`` data sets simulated from the process ``source``: Poisson
+    counts with the intensities that maximise ``likelihood`` there (as the parametric
+    bootstrap draws them), each refitted by ``mle`` warm-started at ``source``. Data set
+    b uses the b-th child of ``SeedSequence(seed)``; the refits run on ``runner`` (a
+    `gatescope.parallel.Runner` whose shared object is ``(model, figure)``) when given,
+    with the same values in the same order."""
+    model = likelihood.model
+    ev = likelihood.evaluate(source)
+    means = np.maximum(np.asarray(model.expected_counts(source, ev.intensities), dtype=float),
+                       0.0)
+    items = [(means, source, child) for child in np.random.SeedSequence(seed).spawn(samples)]
+    if runner is None:
+        return np.array([_simulated_value((model, figure), item) for item in items])
+    values = np.empty(samples)
+    for index, value in runner.map(_simulated_value, items):
+        values[index] = value
+    return values
+
+
 def _simulated_value(shared, item) -> float:
     """F of one simulated data set of `Profile.exceedance`: Poisson counts of mean
     ``means`` drawn from the seed sequence ``child``, refitted by ``mle`` warm-started at
@@ -1095,4 +1110,5 @@ __all__ = ["ProfiledFigure", "ProfilePoint", "ProfileInterval", "Profile", "Figu
            "INVERTED_FIGURES",
            "named_figure", "two_sided_cutoff", "one_sided_cutoff", "FIT_OPTIONS",
            "pauli_twirl", "CALIBRATION_SAMPLES", "best_unitary", "NULLS", "default_nulls",
+           "simulated_values",
            "PROFILED_FIGURES"]
