@@ -272,9 +272,8 @@ def attach_profiles(result: Result, model, point, target, level: float, *, inter
         print(f"intervals: {', '.join(chosen)}"
               + (f" (test inversion for {', '.join(tested)}: tens of seconds at two qubits)"
                  if tested else ""), file=sys.stderr, flush=True)
-    count = len(chosen)
     try:
-        with Progress(count, "intervals", "figure", enabled=progress) as bar:
+        with Progress(len(chosen), "intervals", "figure", enabled=progress) as bar:
             found = profile_figures(model, target, level=level, interval=bool(interval),
                                     lower_bound=lower_bound, names=names, start=point.choi,
                                     invert_bounds=bounds, invert_intervals=inverted,
